@@ -1,0 +1,154 @@
+"""Command line: ``euphotic run CONFIG.toml``, ``euphotic inspect FILES``, ``euphotic models``."""
+
+from __future__ import annotations
+
+import logging
+import shlex
+import sys
+from pathlib import Path
+
+import click
+
+from euphotic import __version__
+from euphotic.errors import EuphoticError
+
+
+def _fail(exc: BaseException, debug: bool) -> None:
+    if debug:
+        raise exc
+    if isinstance(exc, EuphoticError):
+        msg = str(exc)
+    elif isinstance(exc, OSError) and getattr(exc, "filename", None):
+        msg = f"{exc.filename}: {exc.strerror or exc}"
+    else:
+        msg = f"unexpected {exc.__class__.__name__}: {exc} (rerun with --debug for the traceback)"
+    click.echo(f"euphotic: error: {' '.join(str(msg).split())}", err=True)
+    sys.exit(1)
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="euphotic")
+def main() -> None:
+    """Ocean net primary production from gridded chlorophyll, light and temperature files.
+
+    Monthly NPP maps (CF NetCDF) and carbon totals for named regions (CSV). Satellite NPP models
+    disagree by about a factor of two: validate locally before management or carbon claims.
+    """
+
+
+@main.command()
+@click.argument("config", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--output-dir", "-o", type=click.Path(file_okay=False, path_type=Path),
+              help="Write here instead of the config's [run] output_dir.")
+@click.option("--no-figures", is_flag=True, help="Skip the PNG maps and the totals chart.")
+@click.option("--quiet", "-q", is_flag=True, help="No progress bar; print only the totals.")
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def run(config: Path, output_dir: Path | None, no_figures: bool, quiet: bool, debug: bool) -> None:
+    """Run the models for CONFIG (a TOML file) and write maps and regional totals."""
+    logging.basicConfig(level=logging.WARNING, format="euphotic: warning: %(message)s")
+    try:
+        from euphotic.config import load_config
+        from euphotic.pipeline import run as run_pipeline
+
+        cfg = load_config(config)
+        if output_dir is not None:
+            cfg.output_dir = output_dir
+        if no_figures:
+            cfg.figures = False
+        command = "euphotic run " + " ".join(shlex.quote(a) for a in sys.argv[2:])
+        result = run_pipeline(cfg, progress=not quiet, command=command)
+    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
+        _fail(exc, debug)
+        return
+    click.echo(format_totals(result.rows))
+    click.echo("")
+    from euphotic.outputs import CAUTION
+
+    click.echo("Caution: " + CAUTION)
+    if not quiet:
+        click.echo("")
+        for m in result.skipped_months:
+            click.echo(f"skipped {m}: no day covered by all inputs")
+        for p in result.maps:
+            click.echo(f"wrote {p}")
+        click.echo(f"wrote {result.totals_csv}")
+        for p in result.figures:
+            click.echo(f"wrote {p}")
+
+
+def format_totals(rows: list[dict]) -> str:
+    """The totals table as aligned text."""
+    head = ["region", "month", "model", "mean mgC/m2/d", "observed km2", "ocean km2",
+            "coverage", "total TgC", "filled TgC"]
+    keys = ["region", "month", "model", "mean_npp_mg_m2_d", "observed_area_km2", "ocean_area_km2",
+            "coverage", "total_TgC", "total_filled_TgC"]
+    fmts = [str, str, str, "{:.1f}".format, "{:,.0f}".format, "{:,.0f}".format, "{:.0%}".format,
+            "{:.3g}".format, "{:.3g}".format]
+    table = [head]
+    for r in rows:
+        cells = []
+        for k, f in zip(keys, fmts, strict=True):
+            v = r[k]
+            try:
+                cells.append("-" if isinstance(v, float) and v != v else f(v))
+            except (ValueError, TypeError):
+                cells.append(str(v))
+        table.append(cells)
+    widths = [max(len(row[i]) for row in table) for i in range(len(head))]
+    lines = []
+    for j, row in enumerate(table):
+        lines.append("  ".join(c.ljust(w) if i < 3 else c.rjust(w) for i, (c, w) in enumerate(zip(row, widths, strict=True))))
+        if j == 0:
+            lines.append("  ".join("-" * w for w in widths))
+    return "\n".join(lines)
+
+
+@main.command()
+@click.argument("files", nargs=-1, required=True)
+@click.option("--as", "role", type=click.Choice(["chl", "par", "sst", "day_length"]), default=None,
+              help="Which input the files are (default: try each).")
+@click.option("--variable", default=None, help="Variable name, when no CF standard_name identifies it.")
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def inspect(files: tuple[str, ...], role: str | None, variable: str | None, debug: bool) -> None:
+    """Show how FILES would be read: variable, units, periods and grid."""
+    from euphotic.errors import InputFileError
+    from euphotic.readers import InputSpec, grid_summary, open_input
+
+    roles = [role] if role else ["chl", "par", "sst", "day_length"]
+    last: Exception | None = None
+    for r in roles:
+        try:
+            da = open_input(InputSpec(role=r, files=list(files), variable=variable, base_dir=Path.cwd()))
+        except InputFileError as exc:
+            last = exc
+            if role is None and "no " in exc.problem and "variable" in exc.problem:
+                continue
+            _fail(exc, debug)
+            return
+        except Exception as exc:  # noqa: BLE001
+            _fail(exc, debug)
+            return
+        starts = da["period_start"].values.astype("datetime64[D]")
+        ends = da["period_end"].values.astype("datetime64[D]")
+        click.echo(f"input:     {r} ({da.attrs['long_name']})")
+        click.echo(f"variable:  {da.attrs['source_variable']} -> converted to {da.attrs['units']}")
+        click.echo(f"files:     {len(da.attrs['files'])}")
+        click.echo(f"periods:   {len(starts)}, {starts.min()} .. {ends.max() - 1}"
+                   f" (lengths {sorted(set((ends - starts).astype(int).tolist()))} days)")
+        click.echo(f"grid:      {grid_summary(da)}")
+        click.echo(f"chunks:    {da.data.chunksize}")
+        return
+    _fail(last or EuphoticError("no input recognised"), debug)
+
+
+@main.command(name="models")
+def list_models() -> None:
+    """List the available models and their citations."""
+    from euphotic.models import CITATIONS, MODELS
+
+    for name in MODELS:
+        click.echo(f"{name}\n    {CITATIONS[name]}")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

@@ -1,0 +1,35 @@
+"""Error types. Every message names the file (or config key) and the problem in one line."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+
+class EuphoticError(ValueError):
+    """Base class for errors the command line reports as one clear line."""
+
+
+class ConfigError(EuphoticError):
+    """The configuration file is missing a key, has a wrong value, or cannot be parsed."""
+
+    def __init__(self, source: str | Path, problem: str):
+        self.source = str(source)
+        self.problem = problem
+        super().__init__(f"{source}: {problem}")
+
+
+class InputFileError(EuphoticError):
+    """An input file cannot be used: missing variable, unknown unit, no dates, bad grid..."""
+
+    def __init__(self, path: str | Path, problem: str):
+        self.path = str(path)
+        self.problem = problem
+        super().__init__(f"{path}: {problem}")
+
+
+class GridMismatchError(InputFileError):
+    """A variable's grid cannot be brought onto the chlorophyll grid."""
+
+
+class NoOverlapError(EuphoticError):
+    """The inputs share no day with a valid estimate."""

@@ -1,0 +1,60 @@
+"""VGPM with the Eppley (1972) exponential temperature dependence of P^B_opt."""
+
+from __future__ import annotations
+
+from functools import partial
+
+import numpy as np
+
+from euphotic.models._apply import apply_kernel, as_units
+from euphotic.models.vgpm import _OUTPUT_ATTRS, vgpm_kernel
+
+#: P^B_opt = EPPLEY_A * 10 ** (EPPLEY_B * T - EPPLEY_C), mg C (mg Chl)-1 h-1, T in degC.
+#: Source (from memory of the literature): the Eppley-VGPM form of Eppley's (1972) exponential
+#: temperature curve, 1.54 * 10^(0.0275 T - 0.07); 10^0.0275 = 1.0654 per degC, Eppley's 1.066.
+EPPLEY_A = 1.54
+EPPLEY_B = 0.0275
+EPPLEY_C = 0.07
+
+
+def pb_opt_eppley(sst) -> np.ndarray:
+    """P^B_opt from temperature by Eppley's exponential curve, mg C (mg Chl)-1 h-1.
+
+    Parameters
+    ----------
+    sst : array_like
+        Sea surface temperature, degC.
+
+    Notes
+    -----
+    .. math:: P^B_{opt} = 1.54 \\times 10^{0.0275\\,T - 0.07}
+
+    References
+    ----------
+    Eppley, R. W. (1972). Temperature and phytoplankton growth in the sea. Fishery Bulletin
+    70:1063-1085.
+    """
+    t = np.asarray(sst, dtype=np.float64)
+    return EPPLEY_A * 10.0 ** (EPPLEY_B * t - EPPLEY_C)
+
+
+_eppley_kernel = partial(vgpm_kernel, pb_opt=pb_opt_eppley)
+
+
+def eppley_vgpm(chl, par, sst, day_length):
+    """Net primary production by the VGPM with Eppley's temperature function, mg C m-2 d-1.
+
+    Same arguments, units and behaviour as :func:`euphotic.models.vgpm` (chl mg m-3, PAR
+    mol photons m-2 d-1, SST degC, day length h); only P^B_opt(T) differs
+    (:func:`pb_opt_eppley`).
+
+    References
+    ----------
+    Behrenfeld and Falkowski (1997), Limnol. Oceanogr. 42:1-20; Eppley (1972), Fish. Bull.
+    70:1063-1085.
+    """
+    chl = as_units(chl, "mg m-3", "chl")
+    par = as_units(par, "mol m-2 d-1", "par")
+    sst = as_units(sst, "degC", "sst")
+    day_length = as_units(day_length, "h", "day_length")
+    return apply_kernel(_eppley_kernel, chl, par, sst, day_length, name="npp", attrs=_OUTPUT_ATTRS)

@@ -1,0 +1,177 @@
+"""The run: open inputs, build one lazy graph for all months and models, compute it once,
+then put the files in place. I/O and orchestration only; the science is in models/,
+geo and aggregate."""
+
+from __future__ import annotations
+
+import contextlib
+import logging
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import dask
+import numpy as np
+import xarray as xr
+
+from euphotic import aggregate, ocean, outputs
+from euphotic.config import RunConfig
+from euphotic.errors import NoOverlapError
+from euphotic.geo import cell_area
+from euphotic.models import get_model
+from euphotic.readers import match_grid, open_input
+
+log = logging.getLogger("euphotic")
+
+
+@dataclass
+class Prepared:
+    """Inputs opened lazily on the chlorophyll grid, with the months to produce."""
+
+    chl: xr.DataArray
+    par: xr.DataArray
+    sst: xr.DataArray
+    day_length: xr.DataArray | None
+    ocean: xr.DataArray  # bool (lat, lon); numpy-backed unless taken from temperature
+    area_m2: np.ndarray
+    months: list[np.datetime64]
+    region_masks: dict[str, np.ndarray] = field(default_factory=dict)
+    skipped_months: list[np.datetime64] = field(default_factory=list)
+
+
+@dataclass
+class RunResult:
+    """What a run wrote and the totals table rows."""
+
+    maps: list[Path]
+    totals_csv: Path
+    rows: list[dict]
+    figures: list[Path] = field(default_factory=list)
+    skipped_months: list[np.datetime64] = field(default_factory=list)
+
+
+def _span(da: xr.DataArray) -> str:
+    s = da["period_start"].values.min().astype("datetime64[D]")
+    e = da["period_end"].values.max().astype("datetime64[D]") - 1
+    return f"{s}..{e}"
+
+
+def prepare(cfg: RunConfig) -> Prepared:
+    """Open and check every input and build masks; nothing on the grid is computed."""
+    chl = open_input(cfg.inputs["chl"])
+    others = {}
+    for role in ("par", "sst", "day_length"):
+        if role in cfg.inputs:
+            da = open_input(cfg.inputs[role])
+            others[role] = match_grid(da, chl, da.attrs["files"][0])
+            others[role].attrs["files"] = da.attrs["files"]
+    par, sst = others["par"], others["sst"]
+    lat, lon = chl["lat"].values, chl["lon"].values
+
+    # months to produce: those the chlorophyll touches, within [start, end]
+    months = aggregate.months_touched(chl["period_start"].values, chl["period_end"].values)
+    if cfg.start is not None:
+        months = [m for m in months if m >= cfg.start.astype("datetime64[M]")]
+    if cfg.end is not None:
+        months = [m for m in months if m <= cfg.end.astype("datetime64[M]")]
+    if not months:
+        raise NoOverlapError(
+            f"{cfg.path}: no chlorophyll period ({_span(chl)}) falls within start/end of [run]"
+        )
+    keep, skipped = [], []
+    for m in months:
+        days = aggregate.month_days(m)
+        covered = np.ones(len(days), bool)
+        for da in (chl, par, sst):
+            covered &= aggregate.day_to_period(da["period_start"].values, da["period_end"].values, days) >= 0
+        (keep if covered.any() else skipped).append(m)
+    if not keep:
+        raise NoOverlapError(
+            f"no day is covered by all inputs: chl {_span(chl)} ({chl.attrs['files'][0]}), "
+            f"par {_span(par)} ({par.attrs['files'][0]}), sst {_span(sst)} ({sst.attrs['files'][0]})"
+        )
+
+    if cfg.ocean_source == "file":
+        ocean_np = ocean.file_ocean_mask(str(cfg.land_mask), cfg.land_mask_variable, lat, lon)
+        ocean_da = xr.DataArray(ocean_np, dims=("lat", "lon"), coords={"lat": lat, "lon": lon})
+    elif cfg.ocean_source == "package":
+        ocean_np = ocean.packaged_ocean_mask(lat, lon)
+        ocean_da = xr.DataArray(ocean_np, dims=("lat", "lon"), coords={"lat": lat, "lon": lon})
+    else:
+        ocean_da = ocean.temperature_ocean_mask(sst)
+    area = cell_area(lat, lon, earth=cfg.earth)
+    masks = {r.name: r.mask(lat, lon) for r in cfg.regions}
+    for name, m in masks.items():
+        if not m.any():
+            log.warning("region %r contains no cell centre of the grid", name)
+    return Prepared(chl=chl, par=par, sst=sst, day_length=others.get("day_length"), ocean=ocean_da,
+                    area_m2=area, months=keep, region_masks=masks, skipped_months=skipped)
+
+
+def _progress_context(progress: bool):
+    if not progress:
+        return contextlib.nullcontext()
+    try:
+        from distributed import get_client
+
+        get_client()
+        return contextlib.nullcontext()  # a distributed client reports its own progress
+    except (ImportError, ValueError):
+        pass
+    from dask.diagnostics import ProgressBar
+
+    return ProgressBar(minimum=1.0, dt=0.5)
+
+
+def run(cfg: RunConfig, *, progress: bool = True, command: str = "euphotic run") -> RunResult:
+    """Produce monthly maps, the regional totals table and figures for a configuration."""
+    prep = prepare(cfg)
+    out_dir = Path(cfg.output_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    input_files = {"chl": prep.chl.attrs["files"], "par": prep.par.attrs["files"],
+                   "sst": prep.sst.attrs["files"]}
+    if prep.day_length is not None:
+        input_files["day_length"] = prep.day_length.attrs["files"]
+
+    writes, finals, temps, lazies = [], [], [], []
+    ocean_w = prep.ocean
+    for model_name in cfg.models:
+        model = get_model(model_name)
+        for month in prep.months:
+            maps = aggregate.monthly_npp(
+                model, model_name, month, chl=prep.chl, par=prep.par, sst=prep.sst,
+                ocean=prep.ocean, day_length=prep.day_length,
+            )
+            ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command)
+            final = out_dir / f"{outputs.month_stem(maps)}.nc"
+            tmp = outputs.temp_path(final)
+            temps.append(tmp)
+            writes.append(ds.to_netcdf(tmp, engine="netcdf4", encoding=outputs.encoding_for(ds), compute=False))
+            finals.append((tmp, final))
+            for name, mask in prep.region_masks.items():
+                lazies.append(aggregate.region_sums(maps, name, mask, ocean_w, prep.area_m2))
+
+    sums = [(z.observed_area_m2, z.integral_mg_d, z.coverage_area_m2, z.ocean_area_m2) for z in lazies]
+    try:
+        with _progress_context(progress):
+            _, computed = dask.compute(writes, sums)
+    except BaseException:
+        for t in temps:
+            with contextlib.suppress(FileNotFoundError):
+                os.unlink(t)
+        raise
+    for tmp, final in finals:
+        os.replace(tmp, final)
+    rows = [
+        aggregate.finish_totals(z, float(o), float(i), float(c), float(a))
+        for z, (o, i, c, a) in zip(lazies, computed, strict=True)
+    ]
+    totals = out_dir / "regional_totals.csv"
+    outputs.write_totals_csv(rows, totals)
+    result = RunResult(maps=[f for _, f in finals], totals_csv=totals, rows=rows,
+                       skipped_months=prep.skipped_months)
+    if cfg.figures:
+        from euphotic import figures
+
+        result.figures = figures.figures_for_run(result, cfg, prep.region_masks)
+    return result

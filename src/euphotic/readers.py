@@ -1,0 +1,489 @@
+"""Open gridded input files lazily and put them in a common form.
+
+Each input (chlorophyll, PAR, temperature, optionally day length) becomes one dask-backed
+``xarray.DataArray`` with dims ``("time", "lat", "lon")``: latitude ascending, longitude in
+[-180, 180) (or [0, 360) for a grid that is only contiguous that way), values decoded and
+converted to the model's units, and two coordinates along ``time`` giving each period's first
+day (``period_start``) and the day after its last (``period_end``). Nothing is loaded.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import glob
+import os
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Literal
+
+import cftime
+import numpy as np
+import xarray as xr
+
+from euphotic import units
+from euphotic.errors import GridMismatchError, InputFileError
+from euphotic.regrid import axis_step, is_regular, regrid_like, same_axis
+
+Role = Literal["chl", "par", "sst", "day_length"]
+
+#: CF standard names that identify each input, in order of preference.
+STANDARD_NAMES: dict[str, tuple[str, ...]] = {
+    "chl": (
+        "mass_concentration_of_chlorophyll_a_in_sea_water",
+        "mass_concentration_of_chlorophyll_in_sea_water",
+    ),
+    "par": (
+        "surface_downwelling_photosynthetic_photon_flux_in_air",
+        "surface_downwelling_photosynthetic_radiative_flux_in_air",
+        "downwelling_photosynthetic_photon_flux_in_sea_water",
+        "downwelling_photosynthetic_radiative_flux_in_sea_water",
+    ),
+    "sst": ("sea_surface_temperature", "sea_surface_skin_temperature",
+            "sea_surface_subskin_temperature", "sea_surface_foundation_temperature"),
+    "day_length": ("day_length",),
+}
+
+#: Units each input is converted to.
+TARGET_UNITS: dict[str, str] = {
+    "chl": units.CHL_UNITS,
+    "par": units.PAR_UNITS,
+    "sst": units.SST_UNITS,
+    "day_length": units.DAY_LENGTH_UNITS,
+}
+
+LONG_NAMES = {
+    "chl": "surface chlorophyll-a concentration",
+    "par": "daily photosynthetically active radiation at the surface",
+    "sst": "sea surface temperature",
+    "day_length": "day length",
+}
+
+#: netCDF-C chunk cache per variable, bytes. The library default (64 MiB per variable) grows
+#: memory with every open file; inputs are read chunk by chunk once, so a small cache suffices.
+CHUNK_CACHE_BYTES = 4 * 1024 * 1024
+
+
+@dataclass
+class InputSpec:
+    """How to find one input: files, variable, and how to date the files."""
+
+    role: Role
+    files: str | Sequence[str]
+    variable: str | None = None
+    units: str | None = None
+    #: regular expression with a named group ``start`` (and optionally ``end``, inclusive)
+    date_pattern: str | None = None
+    #: strptime format of the dates the pattern captures
+    date_format: str = "%Y%m%d"
+    #: length of each file's period when only a start date is known: "day", "month" or N (days)
+    period: str | int | None = None
+    base_dir: Path = field(default_factory=Path.cwd)
+
+    def paths(self) -> list[str]:
+        """Expand the file pattern(s) into a sorted list of existing paths."""
+        pats = [self.files] if isinstance(self.files, str) else list(self.files)
+        out: list[str] = []
+        for pat in pats:
+            p = os.path.normpath(pat if os.path.isabs(pat) else str(self.base_dir / pat))
+            hits = sorted(glob.glob(p)) if glob.has_magic(p) else ([p] if os.path.exists(p) else [])
+            if not hits:
+                what = "matches no file" if glob.has_magic(p) else "does not exist"
+                raise InputFileError(p, f"{self.role} input {what}")
+            out.extend(hits)
+        return sorted(dict.fromkeys(out))
+
+
+# ------------------------------------------------------------------------------------------
+# dates
+# ------------------------------------------------------------------------------------------
+
+
+def _to_day(value) -> np.datetime64:
+    """A cftime/datetime/date -> numpy datetime64[D] (calendar date as written)."""
+    if isinstance(value, np.datetime64):
+        return value.astype("datetime64[D]")
+    return np.datetime64(dt.date(value.year, value.month, value.day), "D")
+
+
+def _ceil_day(value) -> np.datetime64:
+    """Exclusive end day: a time exactly at midnight ends the day before; otherwise next day."""
+    day = _to_day(value)
+    if isinstance(value, np.datetime64):
+        return day if value == day.astype(value.dtype) else day + 1
+    midnight = (value.hour, value.minute, value.second, getattr(value, "microsecond", 0)) == (0, 0, 0, 0)
+    return day if midnight else day + 1
+
+
+def _parse_iso(text: str, path: str, key: str):
+    t = str(text).strip()
+    try:
+        if re.fullmatch(r"\d{4}-\d{2}-\d{2}", t):
+            return dt.date.fromisoformat(t), True
+        t = t.replace("Z", "+00:00")
+        value = dt.datetime.fromisoformat(t)
+        if value.tzinfo is not None:
+            value = value.astimezone(dt.timezone.utc).replace(tzinfo=None)
+        return value, False
+    except ValueError:
+        raise InputFileError(path, f"global attribute {key}={text!r} is not an ISO 8601 date") from None
+
+
+def _month_end(day: np.datetime64) -> np.datetime64:
+    m = day.astype("datetime64[M]")
+    return (m + 1).astype("datetime64[D]")
+
+
+def _period_length(period, start: np.datetime64, path: str) -> np.datetime64:
+    if period in (None, "day", "daily", 1, "1"):
+        return start + 1
+    if period in ("month", "monthly"):
+        return _month_end(start)
+    try:
+        n = int(str(period).removesuffix("-day").removesuffix("D").removesuffix("d"))
+    except ValueError:
+        raise InputFileError(path, f"period {period!r} is not 'day', 'month' or a number of days") from None
+    return start + n
+
+
+def _dates_from_name(spec: InputSpec, path: str):
+    m = re.search(spec.date_pattern, os.path.basename(path))
+    if not m or "start" not in m.groupdict():
+        raise InputFileError(path, f"file name does not match date_pattern {spec.date_pattern!r}")
+    try:
+        start = np.datetime64(dt.datetime.strptime(m.group("start"), spec.date_format).date(), "D")
+        if m.groupdict().get("end"):
+            end = np.datetime64(dt.datetime.strptime(m.group("end"), spec.date_format).date(), "D") + 1
+        else:
+            end = _period_length(spec.period, start, path)
+    except ValueError as exc:
+        raise InputFileError(path, f"date in file name does not fit date_format {spec.date_format!r}: {exc}") from None
+    return np.array([start]), np.array([end])
+
+
+def _dates_from_acdd(ds: xr.Dataset, path: str):
+    a, b = ds.attrs.get("time_coverage_start"), ds.attrs.get("time_coverage_end")
+    if a is None or b is None:
+        return None
+    start, _ = _parse_iso(a, path, "time_coverage_start")
+    end, date_only = _parse_iso(b, path, "time_coverage_end")
+    s = _to_day(start)
+    e = _to_day(end) + 1 if date_only else _ceil_day(end)
+    if e <= s:
+        raise InputFileError(path, f"time_coverage_end {b!r} is not after time_coverage_start {a!r}")
+    return np.array([s]), np.array([e])
+
+
+def _decode_time(var: xr.Variable, path: str, name: str):
+    units_ = var.attrs.get("units")
+    if not units_ or "since" not in str(units_):
+        raise InputFileError(path, f"time variable {name!r} has no 'UNITS since DATE' units")
+    cal = var.attrs.get("calendar", "standard")
+    try:
+        return cftime.num2date(np.asarray(var.values), units_, calendar=cal, only_use_cftime_datetimes=True)
+    except Exception as exc:
+        raise InputFileError(path, f"cannot decode time variable {name!r}: {exc}") from None
+
+
+# ------------------------------------------------------------------------------------------
+# opening one file
+# ------------------------------------------------------------------------------------------
+
+
+@dataclass
+class _Piece:
+    path: str
+    data: xr.DataArray  # (time, lat, lon) in target units
+    start: np.ndarray | None  # datetime64[D] per time step, or None (stamps only)
+    end: np.ndarray | None
+    stamps: np.ndarray | None  # cftime stamps when only stamps are known
+
+
+def _find_variable(ds: xr.Dataset, spec: InputSpec, path: str) -> str:
+    if spec.variable:
+        if spec.variable not in ds.data_vars:
+            raise InputFileError(
+                path, f"no variable {spec.variable!r} (data variables: {', '.join(ds.data_vars) or 'none'})"
+            )
+        return spec.variable
+    for std in STANDARD_NAMES[spec.role]:
+        hits = [v for v in ds.data_vars if ds[v].attrs.get("standard_name") == std]
+        if hits:
+            return hits[0]
+    raise InputFileError(
+        path,
+        f"no {spec.role} variable: none has standard_name "
+        f"{' or '.join(repr(s) for s in STANDARD_NAMES[spec.role][:2])} "
+        f"(data variables: {', '.join(ds.data_vars) or 'none'}); name it with `variable` in the config",
+    )
+
+
+def _find_axis(ds: xr.Dataset, da: xr.DataArray, axis: str, path: str) -> str:
+    std = {"lat": "latitude", "lon": "longitude"}[axis]
+    unit_ok = {"lat": ("degrees_north", "degree_north", "degree_N", "degrees_N", "degreeN", "degreesN"),
+               "lon": ("degrees_east", "degree_east", "degree_E", "degrees_E", "degreeE", "degreesE")}[axis]
+    names = {"lat": ("lat", "latitude", "y", "nav_lat"), "lon": ("lon", "longitude", "x", "nav_lon")}[axis]
+    for d in da.dims:
+        c = ds[d] if d in ds.variables else None
+        attrs = c.attrs if c is not None else {}
+        if attrs.get("standard_name") == std or attrs.get("units") in unit_ok or d.lower() in names:
+            if c is None:
+                raise InputFileError(path, f"dimension {d!r} has no {std} coordinate values")
+            if c.ndim != 1:
+                raise GridMismatchError(path, f"{std} is not one-dimensional: only regular lat-lon grids are read")
+            return d
+    raise InputFileError(path, f"variable {da.name!r} has no {std} dimension (dims: {da.dims})")
+
+
+def _apply_valid_range(da: xr.DataArray, enc: dict, attrs: dict) -> xr.DataArray:
+    """Mask values outside valid_min/valid_max/valid_range (compared in unpacked units)."""
+    lo, hi = attrs.get("valid_min"), attrs.get("valid_max")
+    vr = attrs.get("valid_range")
+    if vr is not None and np.size(vr) == 2:
+        lo, hi = vr[0], vr[1]
+    if lo is None and hi is None:
+        return da
+    scale = enc.get("scale_factor", 1.0)
+    offset = enc.get("add_offset", 0.0)
+    packed_dtype = np.dtype(enc.get("dtype", da.dtype))
+    packed = ("scale_factor" in enc or "add_offset" in enc)
+
+    def unpack(v):
+        v = np.asarray(v)
+        # NUG/CF: on packed data the valid range is stated in the packed (stored) type.
+        if packed and (v.dtype == packed_dtype or packed_dtype.kind in "iu" and v.dtype.kind in "iu"):
+            return float(v) * float(scale) + float(offset)
+        return float(v)
+
+    cond = None
+    if lo is not None:
+        cond = da >= unpack(lo) - 1e-9 * abs(unpack(lo))
+    if hi is not None:
+        c2 = da <= unpack(hi) + 1e-9 * abs(unpack(hi))
+        cond = c2 if cond is None else cond & c2
+    return da.where(cond)
+
+
+def _convert_units(da: xr.DataArray, spec: InputSpec, path: str, name: str) -> xr.DataArray:
+    given = spec.units or da.attrs.get("units")
+    if given is None or not str(given).strip():
+        if spec.role == "chl":
+            raise InputFileError(path, f"variable {name!r} has no units attribute; set `units` in the config")
+        raise InputFileError(path, f"variable {name!r} has no units attribute; set `units` in the config")
+    try:
+        if spec.role == "par":
+            factor, _kind = units.par_factors(given)
+            out = da * factor if factor != 1.0 else da
+        else:
+            target = TARGET_UNITS[spec.role]
+            a, b = units.linear_factors(given, target)
+            out = da
+            if a != 1.0:
+                out = out * a
+            if b != 0.0:
+                out = out + b
+    except units.UnitError as exc:
+        raise InputFileError(path, f"variable {name!r}: {exc} (expected units like "
+                             f"{TARGET_UNITS[spec.role]!r})") from None
+    return out
+
+
+def normalize_lon(da: xr.DataArray, path: str, convention: str | None = None) -> xr.DataArray:
+    """Wrap longitudes to [-180, 180) (or [0, 360)), sort them, and check the grid is regular."""
+    lon = da["lon"].values.astype(np.float64)
+    options = [convention] if convention else ["pm180", "0to360"]
+    for conv in options:
+        wrapped = ((lon + 180.0) % 360.0) - 180.0 if conv == "pm180" else lon % 360.0
+        order = np.argsort(wrapped, kind="stable")
+        if is_regular(wrapped[order]):
+            out = da.assign_coords(lon=wrapped)
+            if not np.all(order == np.arange(len(order))):
+                out = out.isel(lon=order)
+            return out
+    raise GridMismatchError(path, "longitudes are not a regular axis (after wrapping to -180..180 and 0..360)")
+
+
+def _open_one(spec: InputSpec, path: str) -> _Piece:
+    try:
+        ds = xr.open_dataset(
+            path,
+            engine="netcdf4",
+            chunks={},
+            decode_times=False,
+            mask_and_scale=True,
+            cache=False,
+        )
+    except (OSError, ValueError) as exc:
+        raise InputFileError(path, f"cannot be opened as NetCDF ({exc.__class__.__name__}: {exc})") from None
+    name = _find_variable(ds, spec, path)
+    da = ds[name]
+    enc = dict(da.encoding)
+    attrs = dict(da.attrs)
+    lat_d = _find_axis(ds, da, "lat", path)
+    lon_d = _find_axis(ds, da, "lon", path)
+    other = [d for d in da.dims if d not in (lat_d, lon_d)]
+    time_d = None
+    for d in other:
+        c = ds[d] if d in ds.variables else None
+        is_time = c is not None and (
+            c.attrs.get("standard_name") == "time" or c.attrs.get("axis") == "T"
+            or "since" in str(c.attrs.get("units", "")) or d.lower() in ("time", "t")
+        )
+        if is_time and time_d is None:
+            time_d = d
+        elif da.sizes[d] == 1:
+            da = da.isel({d: 0}, drop=True)
+        else:
+            raise InputFileError(path, f"variable {name!r} has an extra dimension {d!r} of size {da.sizes[d]}")
+    da = da.rename({lat_d: "lat", lon_d: "lon"})
+
+    # --- dates
+    start = end = stamps = None
+    if spec.date_pattern:
+        start, end = _dates_from_name(spec, path)
+        if time_d is not None and da.sizes[time_d] != 1:
+            raise InputFileError(path, "date_pattern dates one period per file, but the file has "
+                                       f"{da.sizes[time_d]} time steps")
+    elif time_d is not None:
+        tvar = ds[time_d].variable
+        bname = ds[time_d].attrs.get("bounds")
+        if bname and bname in ds.variables:
+            b = _decode_time(
+                xr.Variable(ds[bname].dims, ds[bname].values, {**tvar.attrs, **ds[bname].attrs}), path, bname
+            )
+            b = np.asarray(b).reshape(-1, 2)
+            start = np.array([_to_day(x) for x in b[:, 0]])
+            end = np.array([_ceil_day(x) for x in b[:, 1]])
+            end = np.maximum(end, start + 1)
+        elif da.sizes[time_d] == 1 and (acdd := _dates_from_acdd(ds, path)) is not None:
+            start, end = acdd
+        else:
+            stamps = np.atleast_1d(_decode_time(tvar, path, time_d))
+    else:
+        acdd = _dates_from_acdd(ds, path)
+        if acdd is None:
+            scalar = [c for c in ds.coords if ds[c].ndim == 0 and "since" in str(ds[c].attrs.get("units", ""))]
+            if scalar:
+                stamps = np.atleast_1d(_decode_time(ds[scalar[0]].variable, path, scalar[0]))
+            else:
+                raise InputFileError(
+                    path, "no time information: no time coordinate, no time_coverage_start/end "
+                          "attributes, and no date_pattern in the config"
+                )
+        else:
+            start, end = acdd
+    if time_d is None:
+        da = da.expand_dims("time")
+    else:
+        da = da.rename({time_d: "time"})
+    da = da.transpose("time", "lat", "lon")
+    da = da.drop_vars([c for c in da.coords if c not in ("lat", "lon")])
+
+    # --- values and units
+    da = _apply_valid_range(da, enc, attrs)
+    da = _convert_units(da, spec, path, name)
+    if da.dtype != np.float32 and da.dtype != np.float64:
+        da = da.astype(np.float32)
+
+    # --- grid
+    lat = da["lat"].values.astype(np.float64)
+    if lat.size > 1 and not is_regular(lat):
+        raise GridMismatchError(path, "latitudes are not a regular axis: only regular lat-lon grids are read")
+    if lat.size > 1 and lat[1] < lat[0]:
+        da = da.isel(lat=slice(None, None, -1))
+    da = da.assign_coords(lat=da["lat"].values.astype(np.float64))
+    da = normalize_lon(da, path)
+    da.attrs = {"units": TARGET_UNITS[spec.role], "long_name": LONG_NAMES[spec.role], "source_variable": name}
+    return _Piece(path=path, data=da, start=start, end=end, stamps=stamps)
+
+
+def _resolve_stamps(pieces: list[_Piece], spec: InputSpec) -> None:
+    """Give periods to time stamps that came without bounds (spacing decides the length)."""
+    todo = [p for p in pieces if p.stamps is not None]
+    if not todo:
+        return
+    all_days = np.unique(np.concatenate([[_to_day(s) for s in p.stamps] for p in todo]))
+    if spec.period is not None:
+        kind = spec.period
+    elif len(all_days) < 2:
+        kind = "day"
+    else:
+        step = float(np.median(np.diff(all_days).astype(np.float64)))
+        kind = "day" if step <= 1.5 else ("month" if 27.5 <= step <= 31.5 else int(round(step)))
+    for p in todo:
+        days = np.array([_to_day(s) for s in p.stamps])
+        if kind in ("month", "monthly"):
+            p.start = days.astype("datetime64[M]").astype("datetime64[D]")
+        else:
+            p.start = days
+        p.end = np.array([_period_length(kind, s, p.path) for s in p.start])
+
+
+def _small_chunk_cache() -> None:
+    import netCDF4
+
+    size, nelems, preemption = netCDF4.get_chunk_cache()
+    if size != CHUNK_CACHE_BYTES:
+        netCDF4.set_chunk_cache(CHUNK_CACHE_BYTES, nelems, preemption)
+
+
+def open_input(spec: InputSpec) -> xr.DataArray:
+    """Open all files of one input lazily as ``(time, lat, lon)`` in the model's units.
+
+    Returns
+    -------
+    xarray.DataArray
+        Dask-backed, with coords ``period_start`` and ``period_end`` (datetime64[D], end
+        exclusive) along ``time`` and attrs ``units``, ``long_name`` and ``files``.
+
+    Raises
+    ------
+    InputFileError
+        Naming the file and the problem (missing variable, unknown unit, no dates...).
+    """
+    paths = spec.paths()
+    _small_chunk_cache()
+    pieces = [_open_one(spec, p) for p in paths]
+    _resolve_stamps(pieces, spec)
+    ref = pieces[0].data
+    arrays = []
+    for p in pieces:
+        d = p.data
+        if not (same_axis(d.lat.values, ref.lat.values) and same_axis(d.lon.values, ref.lon.values)):
+            raise GridMismatchError(p.path, f"grid differs from the first {spec.role} file {pieces[0].path}")
+        arrays.append(d.assign_coords(lat=ref.lat.values, lon=ref.lon.values))
+    starts = np.concatenate([p.start for p in pieces]).astype("datetime64[D]")
+    ends = np.concatenate([p.end for p in pieces]).astype("datetime64[D]")
+    out = xr.concat(arrays, dim="time", coords="minimal", compat="override", join="override",
+                    combine_attrs="override") if len(arrays) > 1 else arrays[0]
+    out = out.assign_coords(
+        time=("time", starts.astype("datetime64[ns]")),
+        period_start=("time", starts.astype("datetime64[ns]")),
+        period_end=("time", ends.astype("datetime64[ns]")),
+    )
+    order = np.argsort(starts, kind="stable")
+    if not np.all(order == np.arange(len(order))):
+        out = out.isel(time=order)
+    out.attrs["files"] = [p.path for p in pieces]
+    out.name = spec.role
+    return out
+
+
+def match_grid(da: xr.DataArray, target: xr.DataArray, path: str) -> xr.DataArray:
+    """Bring ``da`` onto ``target``'s lat/lon (area-average when finer, interpolate when coarser)."""
+    conv = "0to360" if float(target.lon.max()) > 180.0 else "pm180"
+    da = normalize_lon(da, path, convention=conv)
+    lat, lon = target.lat.values, target.lon.values
+    if same_axis(da.lat.values, lat) and same_axis(da.lon.values, lon):
+        return da.assign_coords(lat=lat, lon=lon)
+    out = regrid_like(da, lat, lon, path)
+    out.attrs = dict(da.attrs)
+    return out
+
+
+def grid_summary(da: xr.DataArray) -> str:
+    """One line describing a grid, for messages and `euphotic inspect`."""
+    return (f"{da.sizes['lat']} x {da.sizes['lon']} cells, lat {float(da.lat[0]):g}..{float(da.lat[-1]):g} "
+            f"step {abs(axis_step(da.lat.values)):g}, lon {float(da.lon[0]):g}..{float(da.lon[-1]):g} "
+            f"step {abs(axis_step(da.lon.values)):g}")

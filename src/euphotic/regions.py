@@ -1,0 +1,202 @@
+"""Named regions from the config: lon/lat boxes, GeoJSON polygons, or a NetCDF mask.
+
+A grid cell belongs to a region when its centre falls inside. Polygon masks come from
+regionmask (shapely geometries, antimeridian-split MultiPolygons included).
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from euphotic.errors import ConfigError, InputFileError
+
+
+@dataclass
+class Region:
+    """One named region: a shapely geometry, or a boolean mask on the grid."""
+
+    name: str
+    geometry: object | None = None  # shapely geometry in lon/lat degrees
+    mask_file: str | None = None
+    mask_variable: str | None = None
+    mask_values: tuple[float, ...] | None = None
+
+    def mask(self, lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
+        """Boolean (lat, lon) array: True where the cell centre is inside the region."""
+        if self.geometry is not None:
+            return polygon_mask(self.geometry, lat, lon, self.name)
+        return netcdf_mask(self.mask_file, self.mask_variable, self.mask_values, lat, lon)
+
+
+def box_geometry(west: float, south: float, east: float, north: float):
+    """A lon/lat box; one that crosses the antimeridian (west > east) becomes two boxes."""
+    from shapely.geometry import MultiPolygon, box
+
+    if not (-90.0 <= south < north <= 90.0):
+        raise ValueError(f"box south {south} / north {north} must satisfy -90 <= south < north <= 90")
+    if west > east:  # crosses the antimeridian, as in RFC 7946 bbox
+        return MultiPolygon([box(west, south, 180.0, north), box(-180.0, south, east, north)])
+    return box(west, south, east, north)
+
+
+def polygon_mask(geometry, lat: np.ndarray, lon: np.ndarray, name: str = "region") -> np.ndarray:
+    """Cells whose centres fall inside a shapely (Multi)Polygon in lon/lat degrees."""
+    import regionmask
+
+    regions = regionmask.Regions([geometry], names=[name], abbrevs=["r0"], numbers=[0])
+    lon = np.asarray(lon, dtype=np.float64)
+    lat = np.asarray(lat, dtype=np.float64)
+    # regionmask wants the grid in the polygons' longitude convention.
+    lon_q = ((lon + 180.0) % 360.0) - 180.0
+    order = np.argsort(lon_q, kind="stable")
+    m = regions.mask(lon_q[order], lat, wrap_lon=False)
+    inside = np.asarray(m.notnull().values)
+    out = np.empty_like(inside)
+    out[:, order] = inside
+    return out
+
+
+def netcdf_mask(path, variable, values, lat, lon) -> np.ndarray:
+    """Cells where a NetCDF mask variable is non-zero (or equals one of ``values``)."""
+    v = netcdf_on_grid(path, variable, lat, lon, what="region mask")
+    if values is None:
+        return np.isfinite(v) & (v != 0)
+    return np.isin(v, np.asarray(values))
+
+
+def netcdf_on_grid(path, variable, lat, lon, *, what: str) -> np.ndarray:
+    """Values of a 2-D (lat, lon) NetCDF variable at the target cell centres (nearest cell).
+
+    The file's grid must cover the target grid; its cells are matched to the nearest target
+    centre within half a target cell.
+    """
+    from euphotic.readers import normalize_lon
+    from euphotic.regrid import same_axis
+
+    try:
+        ds = xr.open_dataset(path, engine="netcdf4")
+    except (OSError, ValueError) as exc:
+        raise InputFileError(path, f"{what} cannot be opened as NetCDF ({exc})") from None
+    with ds:
+        if variable is None:
+            candidates = [v for v in ds.data_vars if ds[v].ndim == 2]
+            if len(candidates) != 1:
+                raise InputFileError(path, f"give the {what} `variable`: candidates are {candidates}")
+            variable = candidates[0]
+        if variable not in ds:
+            raise InputFileError(path, f"no variable {variable!r} in {what} (has {list(ds.data_vars)})")
+        da = _to_lat_lon(ds[variable], path)
+        conv = "0to360" if float(np.max(lon)) > 180.0 else "pm180"
+        da = normalize_lon(da, str(path), convention=conv)
+        if da.lat.values[0] > da.lat.values[-1]:
+            da = da.isel(lat=slice(None, None, -1))
+        if not (same_axis(da.lat.values, lat) and same_axis(da.lon.values, lon)):
+            step = abs(float(lat[1] - lat[0])) if len(lat) > 1 else 1.0
+            try:
+                da = da.sel(lat=xr.DataArray(lat, dims="lat"), lon=xr.DataArray(lon, dims="lon"),
+                            method="nearest", tolerance=0.5 * step + 1e-9)
+            except KeyError:
+                raise InputFileError(path, f"{what} grid does not cover the chlorophyll grid") from None
+        return np.asarray(da.values, dtype=np.float64)
+
+
+def _to_lat_lon(da: xr.DataArray, path) -> xr.DataArray:
+    names = {}
+    for d in da.dims:
+        low = d.lower()
+        if low in ("lat", "latitude", "y"):
+            names[d] = "lat"
+        elif low in ("lon", "longitude", "x"):
+            names[d] = "lon"
+    if sorted(names.values()) != ["lat", "lon"]:
+        raise InputFileError(path, f"region mask {da.name!r} must have lat and lon dimensions, has {da.dims}")
+    return da.rename(names).transpose("lat", "lon")
+
+
+def _geojson_geometries(path: Path, name_property: str | None):
+    from shapely.geometry import shape
+
+    try:
+        obj = json.loads(Path(path).read_text())
+    except (OSError, json.JSONDecodeError) as exc:
+        raise InputFileError(path, f"cannot read GeoJSON ({exc})") from None
+    kind = obj.get("type")
+    if kind == "FeatureCollection":
+        feats = obj.get("features", [])
+    elif kind == "Feature":
+        feats = [obj]
+    elif kind in ("Polygon", "MultiPolygon", "GeometryCollection"):
+        feats = [{"type": "Feature", "geometry": obj, "properties": {}}]
+    else:
+        raise InputFileError(path, f"GeoJSON type {kind!r} is not a Feature, FeatureCollection or Polygon")
+    out = []
+    for i, f in enumerate(feats):
+        geom = f.get("geometry")
+        if geom is None or geom.get("type") not in ("Polygon", "MultiPolygon"):
+            raise InputFileError(path, f"feature {i} is not a Polygon or MultiPolygon")
+        try:
+            g = shape(geom)
+        except Exception as exc:
+            raise InputFileError(path, f"feature {i} has an invalid geometry ({exc})") from None
+        props = f.get("properties") or {}
+        label = props.get(name_property) if name_property else None
+        out.append((label, g))
+    if not out:
+        raise InputFileError(path, "GeoJSON has no features")
+    return out
+
+
+def regions_from_config(items: list[dict], base_dir: Path, source: str) -> list[Region]:
+    """Build regions from the ``[[regions]]`` tables of a config."""
+    from shapely.ops import unary_union
+
+    regions: list[Region] = []
+    for i, item in enumerate(items):
+        where = f"{source}: [[regions]] #{i + 1}"
+        kinds = [k for k in ("box", "geojson", "mask") if k in item]
+        if len(kinds) != 1:
+            raise ConfigError(where, "give exactly one of `box`, `geojson` or `mask`")
+        kind = kinds[0]
+        name = item.get("name")
+        if kind == "box":
+            b = item["box"]
+            if not (isinstance(b, list) and len(b) == 4 and all(isinstance(x, int | float) for x in b)):
+                raise ConfigError(where, "`box` must be [west, south, east, north] in degrees")
+            if not name:
+                raise ConfigError(where, "a box region needs a `name`")
+            try:
+                regions.append(Region(name, geometry=box_geometry(*map(float, b))))
+            except ValueError as exc:
+                raise ConfigError(where, str(exc)) from None
+        elif kind == "geojson":
+            path = (base_dir / item["geojson"]).resolve()
+            name_property = item.get("name_property")
+            geoms = _geojson_geometries(path, name_property)
+            if name_property:
+                for label, g in geoms:
+                    if not label:
+                        raise InputFileError(path, f"a feature has no property {name_property!r}")
+                    regions.append(Region(str(label), geometry=g))
+            else:
+                if not name:
+                    raise ConfigError(where, "a geojson region needs a `name` (or `name_property`)")
+                regions.append(Region(name, geometry=unary_union([g for _, g in geoms])))
+        else:
+            if not name:
+                raise ConfigError(where, "a mask region needs a `name`")
+            vals = item.get("values", item.get("value"))
+            if vals is not None and not isinstance(vals, list):
+                vals = [vals]
+            regions.append(Region(name, mask_file=str((base_dir / item["mask"]).resolve()),
+                                  mask_variable=item.get("variable"),
+                                  mask_values=tuple(vals) if vals is not None else None))
+    names = [r.name for r in regions]
+    dupes = sorted({n for n in names if names.count(n) > 1})
+    if dupes:
+        raise ConfigError(source, f"region names must be unique; repeated: {', '.join(dupes)}")
+    return regions
