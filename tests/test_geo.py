@@ -260,12 +260,6 @@ def test_xarray_latitude_and_time_give_both_dims():
     )
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="BUG geo.day_length: xarray lat with a numpy array of dates is broadcast "
-    "element-wise by apply_ufunc instead of gaining a date dimension (ValueError when the "
-    "sizes differ, silently pairs lat[i] with date[i] when they are equal)",
-)
 @pytest.mark.parametrize("n_dates", [2, 3])
 def test_xarray_latitude_with_numpy_dates_gains_date_dimension(n_dates):
     # Documented behaviour (geo.day_length docstring): an array of dates adds that dimension.
@@ -277,11 +271,6 @@ def test_xarray_latitude_with_numpy_dates_gains_date_dimension(n_dates):
     np.testing.assert_array_equal(np.sort(np.ravel(out.values)), np.sort(expected.ravel()))
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="BUG geo.day_length: numpy lat with a DataArray of dates is passed to apply_ufunc "
-    "as a bare array and broadcast element-wise against the time dimension (ValueError)",
-)
 def test_numpy_latitude_with_xarray_dates_gains_both_dimensions():
     lat = np.array([0.0, 30.0, 60.0])
     time = xr.DataArray(np.array(["2021-03-20", "2021-06-21"], dtype="datetime64[D]"),

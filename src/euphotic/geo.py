@@ -107,22 +107,32 @@ def day_length(lat, date, *, horizon_deg: float = 0.0):
     ----------
     Forsythe et al. (1995), Ecological Modelling 80:87-95, equation 3 (CBM model).
     """
-    if isinstance(date, xr.DataArray):
-        decl = xr.DataArray(solar_declination(date.values), coords=date.coords, dims=date.dims)
-    else:
-        decl = solar_declination(date)
-    if isinstance(lat, xr.DataArray) or isinstance(decl, xr.DataArray):
+    if isinstance(lat, xr.DataArray) or isinstance(date, xr.DataArray):
+        if not isinstance(date, xr.DataArray):
+            d = np.asarray(date)
+            date = xr.DataArray(d, dims="time") if d.ndim else d
+        if not isinstance(lat, xr.DataArray):
+            la = np.asarray(lat, dtype=np.float64)
+            lat = xr.DataArray(la, dims="lat") if la.ndim else la
+        if isinstance(date, xr.DataArray):
+            decl = xr.DataArray(solar_declination(date.values), coords=date.coords, dims=date.dims)
+        else:
+            decl = solar_declination(date)
         out = xr.apply_ufunc(
             day_length_from_declination, lat, decl, kwargs={"horizon_deg": horizon_deg}
         )
-        out.attrs.update(
-            units="h", long_name="day length", comment="Forsythe et al. (1995) CBM model"
-        )
+        if isinstance(out, xr.DataArray):
+            first = list(date.dims) if isinstance(date, xr.DataArray) else []
+            out = out.transpose(*first, ...)
+            out.attrs.update(
+                units="h", long_name="day length", comment="Forsythe et al. (1995) CBM model"
+            )
         return out
-    decl = np.asarray(decl)
+    decl = np.asarray(solar_declination(date))
     lat = np.asarray(lat, dtype=np.float64)
     if decl.ndim and lat.ndim:  # (date, lat) table
-        return day_length_from_declination(lat[None, ...], decl.reshape(decl.shape + (1,) * lat.ndim), horizon_deg=horizon_deg)
+        decl = decl.reshape(decl.shape + (1,) * lat.ndim)
+        return day_length_from_declination(lat[None, ...], decl, horizon_deg=horizon_deg)
     return day_length_from_declination(lat, decl, horizon_deg=horizon_deg)
 
 

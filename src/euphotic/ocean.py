@@ -8,8 +8,6 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from euphotic.errors import InputFileError
-
 
 def _packaged_mask_path() -> Path:
     import importlib.util
@@ -33,7 +31,9 @@ def packaged_ocean_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
     with zipfile.ZipFile(path) as z:
         with z.open("mask.npy") as f:
             version = np.lib.format.read_magic(f)
-            shape, fortran, dtype = np.lib.format._read_array_header(f, version)
+            read_header = (np.lib.format.read_array_header_1_0 if version == (1, 0)
+                           else np.lib.format.read_array_header_2_0)
+            shape, fortran, dtype = read_header(f)
             if fortran or dtype != np.bool_ or len(shape) != 2:
                 raise RuntimeError(f"{path}: unexpected land mask layout {shape} {dtype}")
             nrow, ncol = shape

@@ -92,7 +92,7 @@ def month_dataset(
     ds["time_bnds"] = (("time", "nv"), np.array([[start, end]], dtype="datetime64[ns]"))
     ds["lat_bnds"] = (("lat", "nv"), _bounds(lat))
     ds["lon_bnds"] = (("lon", "nv"), _bounds(lon))
-    now = dt.datetime.now(dt.timezone.utc).replace(microsecond=0).isoformat()
+    now = dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat()
     files = {k: [os.path.basename(p) for p in v] for k, v in input_files.items()}
     ds.attrs = {
         "Conventions": "CF-1.8, ACDD-1.3",

@@ -124,7 +124,7 @@ def _parse_iso(text: str, path: str, key: str):
         t = t.replace("Z", "+00:00")
         value = dt.datetime.fromisoformat(t)
         if value.tzinfo is not None:
-            value = value.astimezone(dt.timezone.utc).replace(tzinfo=None)
+            value = value.astimezone(dt.UTC).replace(tzinfo=None)
         return value, False
     except ValueError:
         raise InputFileError(path, f"global attribute {key}={text!r} is not an ISO 8601 date") from None
@@ -309,7 +309,7 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
         ds = xr.open_dataset(
             path,
             engine="netcdf4",
-            chunks={},
+            chunks=None,  # metadata is read without dask; the data variable is chunked below
             decode_times=False,
             mask_and_scale=True,
             cache=False,
@@ -319,6 +319,8 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
     name = _find_variable(ds, spec, path)
     da = ds[name]
     enc = dict(da.encoding)
+    # dask chunks = the file's own chunks (whole variable for contiguous / netCDF-3 files)
+    da = da.chunk(enc.get("preferred_chunks") or {d: -1 for d in da.dims})
     attrs = dict(da.attrs)
     lat_d = _find_axis(ds, da, "lat", path)
     lon_d = _find_axis(ds, da, "lon", path)

@@ -48,5 +48,6 @@ def apply_kernel(kernel: Callable, *args, name: str, attrs: dict | None = None):
             out.attrs.update(attrs)
         return out
     if any(isinstance(a, da.Array) for a in args):
-        return da.map_blocks(kernel, *args, dtype=np.float64)
+        arrays = da.broadcast_arrays(*[da.asarray(a) for a in args])
+        return da.map_blocks(kernel, *arrays, dtype=np.float64)
     return kernel(*[np.asarray(a, dtype=np.float64) for a in args])

@@ -1,0 +1,341 @@
+"""Tests of the NPP models against their published equations and hand-worked values.
+
+References:
+
+* Behrenfeld, M. J. and Falkowski, P. G. (1997). Photosynthetic rates derived from
+  satellite-based chlorophyll concentration. Limnology and Oceanography 42(1):1-20.
+  "B&F97" below: the VGPM, NPP = 0.66125 P^B_opt E0/(E0 + 4.1) Z_eu C DL, and P^B_opt(T)
+  of their eq. 11.
+* Morel, A. and Berthon, J.-F. (1989). Surface pigments, algal biomass profiles, and potential
+  production of the euphotic layer. Limnology and Oceanography 34(8):1545-1562. "M&B89":
+  C_tot = 38.0 C^0.425 (C < 1), 40.2 C^0.507 (C >= 1); Z_eu = 568.2 C_tot^-0.746, or
+  200 C_tot^-0.293 where the first gives more than 102 m.
+* Eppley, R. W. (1972). Temperature and phytoplankton growth in the sea. Fishery Bulletin
+  70:1063-1085; in the Eppley-VGPM as P^B_opt = 1.54 x 10^(0.0275 T - 0.07) (this form is
+  from memory of the literature).
+
+"Worked by hand" values below were computed step by step, each intermediate written in the
+comment to 7 significant figures (powers and logarithms with a calculator), independently of
+the package code.
+"""
+
+from __future__ import annotations
+
+import dask
+import dask.array as da
+import numpy as np
+import pytest
+import xarray as xr
+from dask.callbacks import Callback
+
+from euphotic.models import (
+    eppley_vgpm,
+    euphotic_depth,
+    pb_opt_behrenfeld_falkowski,
+    pb_opt_eppley,
+    vgpm,
+)
+
+# --------------------------------------------------------------------------------------
+# P^B_opt(T), B&F97 eq. 11
+# --------------------------------------------------------------------------------------
+
+# Worked by hand, term by term (c_k T^k, k = 0..7), decimal arithmetic:
+#   T = 0:  1.2956 (only the constant term)
+#   T = 10: 1.2956 + 2.749 + 6.17 - 20.5 + 24.62 - 13.48 + 3.4132 - 0.327 = 3.9408
+#   T = 20: 1.2956 + 5.498 + 24.68 - 164.0 + 393.92 - 431.36 + 218.4448 - 41.856 = 6.6224
+#   T = -1: 1.2956 - 0.2749 + 0.0617 + 0.0205 + 0.002462 + 0.0001348 + 0.0000034132
+#           + 0.0000000327 = 1.1055002459
+#   T = 28.5: 1.2956 + 7.83465 + 50.115825 - 474.5570625 + 1624.304653875
+#           - 2534.6277901125 + 1829.07240234823125 - 499.41521896414921875
+#           = 4.02305964658203125
+# The hand sums are exact decimals; the only difference is float64 rounding of terms up to
+# ~2500 in size (2500 x 2.2e-16 x a few terms ~ 1e-12), hence abs 1e-11.
+_PB_HAND = [(0.0, 1.2956), (10.0, 3.9408), (20.0, 6.6224), (-1.0, 1.1055002459),
+            (28.5, 4.02305964658203125)]
+
+
+@pytest.mark.parametrize("t, expected", _PB_HAND)
+def test_pb_opt_polynomial_hand_values(t, expected):
+    assert pb_opt_behrenfeld_falkowski(t) == pytest.approx(expected, rel=0, abs=1e-11)
+
+
+def test_pb_opt_cutoffs():
+    # B&F97 eq. 11: 1.13 for T < -1 degC, 4.00 for T > 28.5 degC (constants, so exact), the
+    # polynomial on [-1, 28.5] including both end points (the inequalities are strict).
+    t = np.array([-5.0, -1.0001, -1.0, -0.9999, 28.4999, 28.5, 28.5001, 35.0])
+    out = pb_opt_behrenfeld_falkowski(t)
+    assert out[0] == 1.13 and out[1] == 1.13
+    assert out[6] == 4.00 and out[7] == 4.00
+    # At and just inside the cut-offs: the hand values at -1 and 28.5 above. Within 1e-4 degC
+    # of them the polynomial moves by < 1e-4 x |dP/dT| (about 0.21 at -1 and 0.46 at 28.5, by
+    # hand from the same terms), so abs 1e-4 is ample.
+    np.testing.assert_allclose(out[2:4], 1.1055002459, rtol=0, atol=1e-4)
+    np.testing.assert_allclose(out[4:6], 4.02305964658203125, rtol=0, atol=1e-4)
+
+
+def test_pb_opt_nan_in_nan_out():
+    assert np.isnan(pb_opt_behrenfeld_falkowski(np.nan))
+
+
+# --------------------------------------------------------------------------------------
+# Euphotic depth, M&B89
+# --------------------------------------------------------------------------------------
+
+# Worked by hand (7 significant figures at each step):
+#  chl 0.02 (C < 1): 0.02^0.425 = 0.1896434, C_tot = 38.0 x that = 7.206449;
+#     568.2 x 7.206449^-0.746 = 568.2 x 0.2291606 = 130.209 > 102 m, so
+#     Z_eu = 200 x 7.206449^-0.293 = 200 x 0.5606446 = 112.1289 m        (deep branch)
+#  chl 0.5 (C < 1): 0.5^0.425 = 0.7448387, C_tot = 28.30387;
+#     Z_eu = 568.2 x 28.30387^-0.746 = 568.2 x 0.08258915 = 46.92716 m
+#  chl 0.9999999 (C < 1): C_tot = 38.00000 (to 7 figures); Z_eu = 568.2 x 0.06629510 = 37.66888
+#  chl 1 (C >= 1): C_tot = 40.2; Z_eu = 568.2 x 40.2^-0.746 = 568.2 x 0.06356929 = 36.12007 m
+#  chl 2 (C >= 1): 2^0.507 = 1.421092, C_tot = 57.12790;
+#     Z_eu = 568.2 x 0.04890927 = 27.79025 m
+#  chl 10 (C >= 1): 10^0.507 = 3.213661, C_tot = 129.1892;
+#     Z_eu = 568.2 x 0.02660880 = 15.11912 m
+# Tolerance rel 1e-6: the hand values carry 7 significant figures.
+_ZEU_HAND = [(0.02, 112.1289), (0.5, 46.92716), (0.9999999, 37.66888), (1.0, 36.12007),
+             (2.0, 27.79025), (10.0, 15.11912)]
+
+
+@pytest.mark.parametrize("chl, expected", _ZEU_HAND)
+def test_euphotic_depth_hand_values(chl, expected):
+    assert euphotic_depth(chl) == pytest.approx(expected, rel=1e-6)
+
+
+def test_euphotic_depth_switches_branch_at_102_m():
+    # M&B89: the 200 C_tot^-0.293 branch is used only where 568.2 C_tot^-0.746 > 102 m, i.e.
+    # C_tot < (568.2/102)^(1/0.746) = 9.996947, chl < (9.996947/38)^(1/0.425) = 0.04320075
+    # (worked by hand). Either side of it:
+    #  chl 0.0430: C_tot = 38 x 0.2625573 = 9.977177; 568.2 x 0.1797795 = 102.1507 > 102, so
+    #     Z_eu = 200 x 0.5096720 = 101.9344 m (deep branch, though the value is below 102)
+    #  chl 0.0435: C_tot = 38 x 0.2638505 = 10.02632; Z_eu = 568.2 x 0.1791218 = 101.7770 m
+    #     (the deep branch would have given 200 x 0.5089388 = 101.7878, 1e-4 away)
+    # Tolerance rel 1e-6 (7-figure hand values) separates the two branches at 0.0435 (1e-4).
+    out = euphotic_depth(np.array([0.0430, 0.0435]))
+    np.testing.assert_allclose(out, [101.9344, 101.7770], rtol=1e-6)
+
+
+# --------------------------------------------------------------------------------------
+# VGPM and Eppley-VGPM on scalars
+# --------------------------------------------------------------------------------------
+
+# Worked by hand: chl 0.5 mg m-3, PAR 40 mol m-2 d-1, SST 20 degC, day length 12 h.
+#   P^B_opt(20) = 6.6224 (above); light term 40 / (40 + 4.1) = 0.9070295; Z_eu = 46.92716 m
+#   0.66125 x 6.6224 = 4.379062; x 0.9070295 = 3.971938; x 46.92716 = 186.3918;
+#   x 0.5 = 93.19588; x 12 = 1118.351 mg C m-2 d-1
+VGPM_HAND = 1118.351
+# Eppley: P^B_opt(20) = 1.54 x 10^(0.55 - 0.07) = 1.54 x 10^0.48 = 1.54 x 3.019952 = 4.650726;
+#   NPP = 1118.351 x 4.650726 / 6.6224 = 785.386 mg C m-2 d-1 (by hand)
+EPPLEY_PB_20_HAND = 4.650726
+EPPLEY_HAND = 785.386
+
+
+def test_vgpm_hand_worked_value():
+    # B&F97 VGPM with eq. 11 and M&B89. rel 1e-6: 7 significant figures carried by hand.
+    out = vgpm(0.5, 40.0, 20.0, 12.0)
+    assert out == pytest.approx(VGPM_HAND, rel=1e-6)
+    assert np.asarray(out).dtype == np.float64
+
+
+def test_eppley_pb_opt_hand_values():
+    # Eppley form (from memory of the literature): 1.54 x 10^(0.0275 T - 0.07).
+    #   T = 0:  1.54 x 10^-0.07 = 1.54 x 0.8511380 = 1.310753
+    #   T = 10: 1.54 x 10^0.205 = 1.54 x 1.603245 = 2.468998
+    #   T = 20: 4.650726 (above)
+    # Per degree the rate grows by 10^0.0275 = 1.065369, Eppley's (1972) "1.066" (from memory).
+    # Tolerance rel 1e-6: 7 significant figures by hand.
+    t = np.array([0.0, 10.0, 20.0])
+    np.testing.assert_allclose(pb_opt_eppley(t), [1.310753, 2.468998, EPPLEY_PB_20_HAND],
+                               rtol=1e-6)
+    assert pb_opt_eppley(21.0) / pb_opt_eppley(20.0) == pytest.approx(1.065369, rel=1e-6)
+
+
+def test_eppley_vgpm_hand_worked_value():
+    assert eppley_vgpm(0.5, 40.0, 20.0, 12.0) == pytest.approx(EPPLEY_HAND, rel=1e-6)
+
+
+@pytest.mark.parametrize("sst", [-2.0, 0.0, 5.0, 12.5, 20.0, 27.0, 30.0])
+def test_eppley_over_vgpm_is_ratio_of_pb_opt(sst):
+    # The two models differ only in P^B_opt(T) (Eppley-VGPM = VGPM with Eppley's temperature
+    # function), so the ratio of NPPs must be the ratio of the P^B_opt values; the ones used
+    # here are checked against hand values above. rel 1e-12: float64 rounding only.
+    chl, par, dl = 0.3, 25.0, 10.5
+    ratio = eppley_vgpm(chl, par, sst, dl) / vgpm(chl, par, sst, dl)
+    expected = pb_opt_eppley(sst) / pb_opt_behrenfeld_falkowski(sst)
+    assert ratio == pytest.approx(expected, rel=1e-12)
+
+
+@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+def test_missing_and_dark_values(model):
+    # chl <= 0, NaN or inf is missing chlorophyll -> NaN; NaN PAR or SST -> NaN.
+    # Day length 0 (polar night): no light, no production -> exactly 0, even with NaN chl.
+    chl = np.array([0.5, 0.0, -0.1, np.nan, np.inf, 0.5, 0.5, np.nan, 0.0])
+    par = np.array([40.0, 40.0, 40.0, 40.0, 40.0, np.nan, 40.0, 40.0, 40.0])
+    sst = np.array([20.0, 20.0, 20.0, 20.0, 20.0, 20.0, np.nan, 20.0, 20.0])
+    dl = np.array([12.0, 12.0, 12.0, 12.0, 12.0, 12.0, 12.0, 0.0, 0.0])
+    out = model(chl, par, sst, dl)
+    assert out.dtype == np.float64
+    assert np.isfinite(out[0]) and out[0] > 0
+    assert np.isnan(out[1:7]).all()
+    assert (out[7:] == 0.0).all()
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.int32])
+def test_output_is_float64(dtype):
+    # Integer-valued inputs (chl 1 mg m-3, as 0.5 is no int32) compared with the float64 call.
+    # These values are exact in float32 and int32, so the only difference allowed is none in
+    # practice; rel 1e-6 would still cover float32 rounding of non-exact inputs (1.2e-7 each).
+    chl, par, sst, dl = (np.array([v], dtype=dtype) for v in (1, 40, 20, 12))
+    out = vgpm(chl, par, sst, dl)
+    assert out.dtype == np.float64
+    assert out[0] == pytest.approx(float(vgpm(1.0, 40.0, 20.0, 12.0)), rel=1e-6)
+
+
+# --------------------------------------------------------------------------------------
+# Array types: numpy, xarray, dask-backed xarray
+# --------------------------------------------------------------------------------------
+
+# Four 2x3 fields: a regular cell (the hand-worked one), warm and cold water, the deep Z_eu
+# branch, high chl, and a polar-night cell with missing chlorophyll.
+_CHL = np.array([[0.5, 0.02, 2.0], [10.0, 0.1, np.nan]])
+_PAR = np.array([[40.0, 60.0, 20.0], [5.0, 0.5, 30.0]])
+_SST = np.array([[20.0, 28.9, 10.0], [-1.5, 3.0, 15.0]])
+_DL = np.array([[12.0, 14.0, 11.0], [18.0, 6.0, 0.0]])
+
+
+class _NoCompute(Callback):
+    """dask callback that fails the test if any task runs while it is active."""
+
+    def __init__(self):
+        def pretask(key, dsk, state):
+            raise AssertionError(f"dask computed task {key!r} while the graph was being built")
+
+        super().__init__(pretask=pretask)
+
+
+@pytest.fixture(params=["numpy", "xarray", "dask"])
+def array_type(request):
+    """Convert a numpy array (plus its units) to the requested array type, as MetPy's tests do.
+
+    xarray and dask carry a ``units`` attribute; dask uses 1x2 chunks so the calculation runs
+    over several blocks.
+    """
+    kind = request.param
+
+    def convert(values, units=None):
+        values = np.asarray(values)
+        if kind == "numpy":
+            return values
+        data = da.from_array(values, chunks=(1, 2)) if kind == "dask" else values
+        return xr.DataArray(data, dims=("y", "x"), attrs={"units": units} if units else {})
+
+    convert.kind = kind
+    return convert
+
+
+@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+def test_array_types_give_the_same_numbers(array_type, model):
+    expected = model(_CHL, _PAR, _SST, _DL)  # numpy reference
+    # The hand value sits in cell [0, 0] (rel 1e-6 as above); the polar night cell is 0.
+    if model is vgpm:
+        assert expected[0, 0] == pytest.approx(VGPM_HAND, rel=1e-6)
+    assert expected[1, 2] == 0.0
+    args = (
+        array_type(_CHL, "mg m-3"),
+        array_type(_PAR, "mol m-2 d-1"),
+        array_type(_SST, "degC"),
+        array_type(_DL, "h"),
+    )
+    with _NoCompute():
+        out = model(*args)
+    if array_type.kind == "numpy":
+        assert isinstance(out, np.ndarray)
+        values = out
+    else:
+        assert isinstance(out, xr.DataArray)
+        assert out.dims == ("y", "x")
+        assert out.attrs["units"] == "mg m-2 d-1"
+        if array_type.kind == "dask":
+            assert isinstance(out.data, da.Array)  # still lazy
+            values = out.compute().values
+        else:
+            assert isinstance(out.data, np.ndarray)
+            values = out.values
+    assert values.dtype == np.float64
+    # Same float64 arithmetic on every path: exact equality, NaN where NaN.
+    np.testing.assert_array_equal(values, expected)
+
+
+def test_no_compute_callback_catches_a_compute():
+    # Guard for the laziness check itself: the callback must fire on a real compute.
+    # Default (threaded) scheduler, the one the other tests would use.
+    arr = da.ones(4, chunks=2) + 1
+    with _NoCompute(), pytest.raises(AssertionError, match="dask computed"):
+        arr.compute()
+
+
+@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+def test_plain_dask_arrays_stay_lazy(model):
+    chunks = (1, 2)
+    args = [da.from_array(a, chunks=chunks) for a in (_CHL, _PAR, _SST, _DL)]
+    with _NoCompute():
+        out = model(*args)
+    assert isinstance(out, da.Array)
+    with dask.config.set(scheduler="sync"):
+        np.testing.assert_array_equal(out.compute(), model(_CHL, _PAR, _SST, _DL))
+
+
+def test_dask_array_mixed_with_numpy_array():
+    chl = da.from_array(np.array([0.5, 2.0]), chunks=1)
+    par = np.array([40.0, 40.0])
+    out = vgpm(chl, par, 20.0, 12.0)
+    expected = vgpm(np.array([0.5, 2.0]), par, 20.0, 12.0)
+    np.testing.assert_array_equal(np.asarray(out.compute()), expected)
+
+
+# --------------------------------------------------------------------------------------
+# Unit invariance of DataArray inputs
+# --------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+def test_units_are_converted(array_type, model):
+    if array_type.kind == "numpy":
+        pytest.skip("bare numpy arrays carry no units")
+    canonical = model(
+        array_type(_CHL, "mg m-3"),
+        array_type(_PAR, "mol m-2 d-1"),
+        array_type(_SST, "degC"),
+        array_type(_DL, "h"),
+    )
+    # Handbook conversions: T(K) = T(degC) + 273.15; 1 ug L-1 = 1e-6 g / 1e-3 m3 = 1 mg m-3;
+    # 1 h = 60 min; 1 einstein = 1 mol photons.
+    converted_args = (
+        array_type(_CHL, "ug L-1"),
+        array_type(_PAR, "einstein m-2 day-1"),
+        array_type(_SST + 273.15, "K"),
+        array_type(_DL * 60.0, "min"),
+    )
+    with _NoCompute():
+        other = model(*converted_args)
+    # rel 1e-12: K -> degC subtracts 273.15 and the factors come from pint as floats, so a few
+    # ulps of ~300 K (about 1e-13 degC) reach the result through P^B_opt; nothing else differs.
+    np.testing.assert_allclose(other.values, canonical.values, rtol=1e-12, atol=0)
+    assert np.isnan(other.values[1, 2]) == np.isnan(canonical.values[1, 2])
+
+
+def test_kelvin_sst_hand_worked_value():
+    # 293.15 K = 20 degC: the hand-worked VGPM value (rel 1e-6 as above).
+    def one(v, u):
+        return xr.DataArray([v], dims="x", attrs={"units": u})
+
+    out = vgpm(one(0.5, "mg m-3"), one(40.0, "mol m-2 d-1"), one(293.15, "K"), one(720.0, "min"))
+    assert float(out[0]) == pytest.approx(VGPM_HAND, rel=1e-6)
+
+
+def test_incompatible_units_are_rejected():
+    bad_sst = xr.DataArray([20.0], dims="x", attrs={"units": "m"})
+    with pytest.raises(ValueError):
+        vgpm(0.5, 40.0, bad_sst, 12.0)
