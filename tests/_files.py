@@ -58,7 +58,6 @@ def write_grid(
     data = np.asarray(data)
     dtype = np.dtype(dtype) if dtype is not None else data.dtype
     with netCDF4.Dataset(path, "w", format="NETCDF4") as ds:
-        ds.set_auto_maskandscale(False)
         dims: tuple[str, ...] = (lat_name, lon_name)
         if time is not None:
             ds.createDimension("time", len(time))
@@ -88,6 +87,8 @@ def write_grid(
         if chunksizes is not None:
             kw = {"chunksizes": tuple(chunksizes)}
         v = ds.createVariable(name, dtype, dims, fill_value=fill_value, **kw)
+        # Per variable: the dataset-level switch does not reach variables created after it.
+        v.set_auto_maskandscale(False)
         for k, val in (var_attrs or {}).items():
             v.setncattr(k, val)
         v[:] = data.astype(dtype)

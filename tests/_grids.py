@@ -35,7 +35,8 @@ def write_field(path: Path, name: str, std: str, units: str, values: np.ndarray,
             ds["time"].attrs["bounds"] = "time_bnds"
             ds["time_bnds"] = (("time", "nv"), np.array([time_bounds], dtype="datetime64[ns]"))
     else:
-        attrs.update(time_coverage_start=start, time_coverage_end=end)
+        if start is not None:
+            attrs.update(time_coverage_start=start, time_coverage_end=end)
         ds = xr.Dataset({name: (("lat", "lon"), np.asarray(values, "f4"), va)}, coords=coords, attrs=attrs)
     enc = {name: {"_FillValue": np.float32(-999.0)}}
     if "time" in ds.coords:
