@@ -339,3 +339,52 @@ def test_incompatible_units_are_rejected():
     bad_sst = xr.DataArray([20.0], dims="x", attrs={"units": "m"})
     with pytest.raises(ValueError):
         vgpm(0.5, 40.0, bad_sst, 12.0)
+
+
+# --------------------------------------------------------------------------------------
+# Compiled kernels agree with the numpy formulas (the numpy path is written straight from
+# the published equations above); tolerance rtol 1e-6 as required, both compute in float64.
+# --------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("name", ["vgpm", "eppley_vgpm"])
+def test_compiled_kernel_matches_numpy_formula(name):
+    from euphotic.models import eppley_vgpm as ep_mod  # noqa: F401  (registers modules)
+    import importlib
+
+    mod = importlib.import_module(f"euphotic.models.{name}")
+    block = getattr(mod, f"{name}_block")
+    reference = mod.vgpm_kernel if name == "vgpm" else mod._eppley_kernel
+    if block is None:
+        pytest.skip("numba not installed")
+    rng = np.random.default_rng(1997)
+    n = 200_000
+    chl = np.exp(rng.normal(-1.0, 1.8, n)).astype("f4")  # ~0.005 to 100 mg m-3
+    chl[::97] = np.nan
+    chl[::89] = 0.0
+    chl[::83] = -0.1
+    chl[::79] = np.inf
+    chl[1] = 1.0  # the C_tot branch point
+    par = rng.uniform(-1.0, 65.0, n).astype("f4")
+    sst = rng.uniform(-3.0, 33.0, n).astype("f4")  # spans both P^B_opt cut-offs
+    sst[::71] = np.nan
+    dl = rng.uniform(0.0, 24.0, n)
+    dl[::7] = 0.0
+    got = block(chl, par, sst, dl)
+    want = reference(chl, par, sst, dl)
+    assert got.dtype == np.float64
+    np.testing.assert_array_equal(np.isnan(got), np.isnan(want))
+    np.testing.assert_allclose(got, want, rtol=1e-6, equal_nan=True)
+    # broadcasting, as inside the monthly graph: day length (day, lat, 1) against (day, lat, lon)
+    c3 = chl[:24].reshape(2, 3, 4)
+    d3 = dl[:6].reshape(2, 3, 1)
+    np.testing.assert_allclose(block(c3, 30.0, 15.0, d3), reference(c3, 30.0, 15.0, d3), rtol=1e-6)
+
+
+def test_numpy_kernel_can_be_forced(monkeypatch):
+    from euphotic.models import vgpm
+
+    fast = vgpm(np.array([0.5]), np.array([40.0]), np.array([20.0]), np.array([12.0]))
+    monkeypatch.setenv("EUPHOTIC_KERNEL", "numpy")
+    slow = vgpm(np.array([0.5]), np.array([40.0]), np.array([20.0]), np.array([12.0]))
+    np.testing.assert_allclose(fast, slow, rtol=1e-12)

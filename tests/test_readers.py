@@ -13,6 +13,10 @@ External references used here:
   ``time_coverage_end`` as ISO 8601 strings.
 * McCree, K. J. (1972), Agricultural Meteorology 10:443-453: 4.57 umol photons per joule of
   daylight PAR. SI: 1 einstein = 1 mol photons; 1 day = 86,400 s.
+* UDUNITS-2 unit database (Unidata, ``lib/udunits2-common.xml``): the accepted names of the
+  Celsius and Kelvin scales; CF requires units strings that UDUNITS understands.
+* ISO 8601: calendar dates in the extended (2020-03-31) and basic (20200331) formats.
+* CF Conventions 4.4.1: the ``360_day`` calendar (every month has 30 days).
 * Python's standard library ``datetime`` (day-of-year and month arithmetic).
 
 All other files are tiny synthetic NetCDF files written into ``tmp_path`` by
@@ -22,6 +26,7 @@ All other files are tiny synthetic NetCDF files written into ``tmp_path`` by
 from __future__ import annotations
 
 import datetime as dt
+import importlib.util
 from pathlib import Path
 
 import cftime
@@ -75,7 +80,9 @@ class _NoCompute(Callback):
 # 1. A real, non-project file: HadISST 1.1 monthly SST shipped by Cartopy
 # ------------------------------------------------------------------------------------------
 
-HADISST = Path(__import__("cartopy").__file__).parent / "data" / "netcdf" / "HadISST1_SST_update.nc"
+_CARTOPY = importlib.util.find_spec("cartopy")
+HADISST = (Path(_CARTOPY.origin).parent / "data" / "netcdf" / "HadISST1_SST_update.nc"
+           if _CARTOPY is not None else Path("cartopy-not-installed"))
 
 
 @pytest.mark.skipif(not HADISST.exists(), reason="Cartopy's HadISST sample file is not installed")
@@ -194,13 +201,16 @@ def test_packed_int16_kelvin_with_valid_range_in_packed_units(tmp_path, attr_dty
     np.testing.assert_array_equal(np.isnan(got), np.isnan(PACKED_EXPECTED_C))
 
 
+# xarray warns that two different fill values are both decoded to NaN: that is the point here.
+@pytest.mark.filterwarnings("ignore:variable 'chl' has multiple fill values")
 def test_fill_value_and_missing_value_both_masked(tmp_path):
     # CF 2.5.1: both _FillValue and missing_value mark missing data.
     data = np.array([[0.1, -999.0], [-1.0, 2.5]], dtype=np.float32)
     path = write_grid(
         tmp_path / "chl.nc", data, [0.5, 1.5], [0.5, 1.5], name="chl",
         fill_value=np.float32(-999.0),
-        var_attrs={"standard_name": STD["chl"], "units": "mg m-3", "missing_value": np.float32(-1.0)},
+        var_attrs={"standard_name": STD["chl"], "units": "mg m-3",
+                   "missing_value": np.float32(-1.0)},
         global_attrs=ONE_DAY,
     )
     got = open_input(InputSpec(role="chl", files=str(path))).isel(time=0).values
@@ -291,6 +301,24 @@ def test_acdd_time_coverage_sets_period(tmp_path, start, end, exp_start, exp_end
     assert da.time.values[0] == da.period_start.values[0]
 
 
+@pytest.mark.xfail(
+    strict=True,
+    reason="BUG readers._parse_iso: an ISO 8601 basic-format date-only time_coverage_end "
+           "('20200331') is taken as midnight (exclusive), so the last day is dropped",
+)
+def test_acdd_basic_format_date_only_end_is_inclusive(tmp_path):
+    # ISO 8601 (and ACDD 1.3, which allows the basic format) : "20200331" is the calendar date
+    # 31 March 2020, the same as "2020-03-31"; as a coverage end that whole day is included.
+    path = write_grid(
+        tmp_path / "chl.nc", np.full((2, 2), 0.3), [0.5, 1.5], [0.5, 1.5], name="chl",
+        var_attrs={"standard_name": STD["chl"], "units": "mg m-3"},
+        global_attrs={"time_coverage_start": "20200301", "time_coverage_end": "20200331"},
+    )
+    da = open_input(InputSpec(role="chl", files=str(path)))
+    assert list(da.period_start.values) == _days(dt.date(2020, 3, 1))
+    assert list(da.period_end.values) == _days(dt.date(2020, 4, 1))
+
+
 def test_acdd_preferred_over_single_time_stamp_without_bounds(tmp_path):
     # One mid-month stamp (2020-03-16) and a monthly ACDD coverage: the period is the month.
     path = write_grid(
@@ -357,6 +385,36 @@ def test_chl_and_sst_units_converted(tmp_path, role, name, units, raw, expected)
     # float64 arithmetic on values of order 300: 1e-9 absolute.
     np.testing.assert_allclose(da.isel(time=0).values.ravel(), expected, rtol=0, atol=1e-9)
     assert da.attrs["source_variable"] == name
+
+
+# UDUNITS-2 (lib/udunits2-common.xml and udunits2-derived.xml, Unidata) names of the Celsius and
+# Kelvin scales. CF requires units strings that UDUNITS accepts, so each is a legal CF unit.
+_UDUNITS_MISSING = "BUG units.parse_units: a UDUNITS-2 temperature name is unknown to the registry"
+_CELSIUS = ["degree_Celsius", "degrees_Celsius", "\u00b0C", "celsius", "degC", "deg_C", "degreeC",
+            "degrees_C"]
+_CELSIUS_BAD = ["degree_C", "degreesC", "degs_C", "degsC", "\u2103"]
+_KELVIN = ["K", "kelvin", "\u00b0K", "degK", "deg_K", "degreeK"]
+_KELVIN_BAD = ["degree_K", "degrees_K", "degree_kelvin", "degrees_kelvin", "degreesK", "degs_K",
+               "degsK"]
+
+
+@pytest.mark.parametrize(
+    ("units", "offset"),
+    [(u, 0.0) for u in _CELSIUS]
+    + [pytest.param(u, 0.0, marks=pytest.mark.xfail(strict=True, reason=_UDUNITS_MISSING))
+       for u in _CELSIUS_BAD]
+    + [(u, -273.15) for u in _KELVIN]
+    + [pytest.param(u, -273.15, marks=pytest.mark.xfail(strict=True, reason=_UDUNITS_MISSING))
+       for u in _KELVIN_BAD],
+)
+def test_udunits_temperature_spellings(tmp_path, units, offset):
+    raw = np.array([[271.35, 293.15]]) if offset else np.array([[-1.8, 20.0]])
+    path = write_grid(tmp_path / "sst.nc", raw, [0.5], [0.5, 1.5], name="sst",
+                      var_attrs={"standard_name": STD["sst"], "units": units},
+                      global_attrs=ONE_DAY)
+    da = open_input(InputSpec(role="sst", files=str(path)))
+    # -1.8 and 20 degC either way (T[degC] = T[K] - 273.15); float64 rounding: 1e-9.
+    np.testing.assert_allclose(da.isel(time=0).values, [[-1.8, 20.0]], rtol=0, atol=1e-9)
 
 
 # ------------------------------------------------------------------------------------------
@@ -552,6 +610,34 @@ def test_periods_from_time_stamps_without_bounds(tmp_path, times, exp_starts, ex
     da = open_input(InputSpec(role="sst", files=str(path)))
     assert list(da.period_start.values) == [_d(s) for s in exp_starts]
     assert list(da.period_end.values) == [_d(s) for s in exp_ends]
+
+
+def test_one_mid_month_stamp_per_file_gives_monthly_periods(tmp_path):
+    # Three monthly files, each with one stamp on the 15th (days since 2001-01-01: 14, 45, 73).
+    # The spacing across files (31, 28 days) says monthly: each file covers its calendar month.
+    for k, day in enumerate([14.0, 45.0, 73.0]):
+        write_grid(tmp_path / f"sst_{k}.nc", np.full((1, 2, 2), float(k)), [0.5, 1.5], [0.5, 1.5],
+                   name="sst", var_attrs={"standard_name": STD["sst"], "units": "degC"},
+                   time=[day], time_units="days since 2001-01-01")
+    da = open_input(InputSpec(role="sst", files=str(tmp_path / "sst_*.nc")))
+    assert list(da.period_start.values) == _days(dt.date(2001, 1, 1), dt.date(2001, 2, 1),
+                                                 dt.date(2001, 3, 1))
+    assert list(da.period_end.values) == _days(dt.date(2001, 2, 1), dt.date(2001, 3, 1),
+                                               dt.date(2001, 4, 1))
+
+
+def test_date_pattern_takes_precedence_over_time_bounds(tmp_path):
+    # Bounds say January 2000; the name says 5 Jan 2020, one day (the configured pattern wins).
+    path = write_grid(tmp_path / "sst_20200105.nc", np.zeros((1, 2, 2)), [0.5, 1.5], [0.5, 1.5],
+                      name="sst", var_attrs={"standard_name": STD["sst"], "units": "degC"},
+                      time=[15.0], time_bounds=[[0.0, 31.0]], time_units="days since 2000-01-01")
+    da = open_input(InputSpec(role="sst", files=str(path), date_pattern=r"(?P<start>\d{8})"))
+    assert list(da.period_start.values) == [_d("2020-01-05")]
+    assert list(da.period_end.values) == [_d("2020-01-06")]
+    # Without the pattern, the bounds: [2000-01-01, 2000-02-01).
+    da = open_input(InputSpec(role="sst", files=str(path)))
+    assert list(da.period_start.values) == [_d("2000-01-01")]
+    assert list(da.period_end.values) == [_d("2000-02-01")]
 
 
 def test_period_option_overrides_stamp_spacing(tmp_path):

@@ -7,7 +7,8 @@ from functools import partial
 import numpy as np
 
 from euphotic.models._apply import apply_kernel, as_units
-from euphotic.models.vgpm import _OUTPUT_ATTRS, vgpm_kernel
+from euphotic.models._compiled import block_kernel, jit_point, use_compiled
+from euphotic.models.vgpm import _OUTPUT_ATTRS, make_vgpm_point, vgpm_kernel
 
 #: P^B_opt = EPPLEY_A * 10 ** (EPPLEY_B * T - EPPLEY_C), mg C (mg Chl)-1 h-1, T in degC.
 #: Source (from memory of the literature): the Eppley-VGPM form of Eppley's (1972) exponential
@@ -41,6 +42,16 @@ def pb_opt_eppley(sst) -> np.ndarray:
 _eppley_kernel = partial(vgpm_kernel, pb_opt=pb_opt_eppley)
 
 
+@jit_point
+def pb_opt_eppley_point(t: float) -> float:
+    """:func:`pb_opt_eppley` for one value (compiled)."""
+    return EPPLEY_A * 10.0 ** (EPPLEY_B * t - EPPLEY_C)
+
+
+#: Compiled block kernel of the Eppley-VGPM (None without numba).
+eppley_vgpm_block = block_kernel(make_vgpm_point(pb_opt_eppley_point))
+
+
 def eppley_vgpm(chl, par, sst, day_length):
     """Net primary production by the VGPM with Eppley's temperature function, mg C m-2 d-1.
 
@@ -57,4 +68,5 @@ def eppley_vgpm(chl, par, sst, day_length):
     par = as_units(par, "mol m-2 d-1", "par")
     sst = as_units(sst, "degC", "sst")
     day_length = as_units(day_length, "h", "day_length")
-    return apply_kernel(_eppley_kernel, chl, par, sst, day_length, name="npp", attrs=_OUTPUT_ATTRS)
+    kernel = eppley_vgpm_block if (eppley_vgpm_block is not None and use_compiled()) else _eppley_kernel
+    return apply_kernel(kernel, chl, par, sst, day_length, name="npp", attrs=_OUTPUT_ATTRS)

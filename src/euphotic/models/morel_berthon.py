@@ -4,6 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
+from euphotic.models._compiled import jit_point
+
 
 def chl_euphotic_column(chl: np.ndarray) -> np.ndarray:
     """Chlorophyll integrated over the euphotic layer, C_tot (mg m-2), from surface chl (mg m-3).
@@ -49,3 +51,25 @@ def euphotic_depth(chl) -> np.ndarray:
     with np.errstate(invalid="ignore", divide="ignore"):
         zeu = 568.2 * ctot**-0.746
         return np.where(zeu > 102.0, 200.0 * ctot**-0.293, zeu)
+
+
+@jit_point
+def euphotic_depth_point(chl: float) -> float:
+    """:func:`euphotic_depth` for one value (compiled; chl must be > 0 and finite).
+
+    Same equations with one logarithm: C_tot = a C^b, so C_tot^k = a^k exp(b k ln C).
+    """
+    lc = np.log(chl)
+    if chl < 1.0:
+        la, b = _LN38, 0.425
+    else:
+        la, b = _LN402, 0.507
+    ln_ctot = la + b * lc
+    zeu = 568.2 * np.exp(-0.746 * ln_ctot)
+    if zeu > 102.0:
+        zeu = 200.0 * np.exp(-0.293 * ln_ctot)
+    return zeu
+
+
+_LN38 = float(np.log(38.0))
+_LN402 = float(np.log(40.2))
