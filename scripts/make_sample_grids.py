@@ -50,7 +50,9 @@ def smooth_noise(rng: np.random.Generator, shape: tuple[int, int], scale: float)
 def land_flag(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
     """Invented coast (Skerrow, east side) and the small Vesk islands."""
     la, lo = np.meshgrid(lat, lon, indexing="ij")
-    coast = -16.5 - 1.8 * np.sin(np.deg2rad((la - 40.0) * 14.0)) - 0.9 * np.cos(np.deg2rad(la * 37.0))
+    coast = (
+        -16.5 - 1.8 * np.sin(np.deg2rad((la - 40.0) * 14.0)) - 0.9 * np.cos(np.deg2rad(la * 37.0))
+    )
     land = lo > coast
     for clat, clon, r in ((52.3, -27.5, 0.55), (51.6, -26.4, 0.35), (53.0, -25.6, 0.25)):
         land |= ((la - clat) / r) ** 2 + ((lo - clon) / (r / np.cos(np.deg2rad(clat)))) ** 2 < 1.0
@@ -87,22 +89,47 @@ def main(out: Path) -> None:
     bank = (((la - 57.2) / 1.1) ** 2 + ((lo + 24.0) / 2.6) ** 2 < 1.0) & ~land
     masks = xr.Dataset(
         {
-            "land": (("lat", "lon"), land.astype("i1"), {"long_name": "land flag", "flag_values": np.array([0, 1], "i1"), "flag_meanings": "ocean land"}),
-            "bank": (("lat", "lon"), bank.astype("i1"), {"long_name": "Tollan Bank region", "flag_values": np.array([0, 1], "i1"), "flag_meanings": "outside inside"}),
+            "land": (
+                ("lat", "lon"),
+                land.astype("i1"),
+                {
+                    "long_name": "land flag",
+                    "flag_values": np.array([0, 1], "i1"),
+                    "flag_meanings": "ocean land",
+                },
+            ),
+            "bank": (
+                ("lat", "lon"),
+                bank.astype("i1"),
+                {
+                    "long_name": "Tollan Bank region",
+                    "flag_values": np.array([0, 1], "i1"),
+                    "flag_meanings": "outside inside",
+                },
+            ),
         },
-        coords={"lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north"}),
-                "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east"})},
+        coords={
+            "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north"}),
+            "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east"}),
+        },
         attrs={"title": "Maren Sea demo masks (invented)", "Conventions": "CF-1.8"},
     )
     masks.to_netcdf(out / "masks.nc", encoding={v: {"zlib": True} for v in masks.data_vars})
 
     # chlorophyll: coastal and northern enrichment, a bloom growing through the month, eddies
     dist_coast = np.clip((-16.5 - lo) / 8.0, 0, 1)
-    base_log = (np.log(0.12) + 1.6 * (1 - dist_coast) ** 2 + 1.3 * np.clip((la - 44) / 16, 0, 1)
-                + 0.9 * bank + 0.35 * smooth_noise(rng, (ny, nx), 12))
+    base_log = (
+        np.log(0.12)
+        + 1.6 * (1 - dist_coast) ** 2
+        + 1.3 * np.clip((la - 44) / 16, 0, 1)
+        + 0.9 * bank
+        + 0.35 * smooth_noise(rng, (ny, nx), 12)
+    )
     fog = smooth_noise(rng, (ny, nx), 25)  # where cloud is persistent (fog over the cold north)
     fog = fog + 1.2 * np.clip((la - 54.0) / 6.0, 0, 1)
-    sst_base = 19.0 - 0.62 * (slat[:, None] - 40.0) + 0.4 * smooth_noise(rng, (len(slat), len(slon)), 4)
+    sst_base = (
+        19.0 - 0.62 * (slat[:, None] - 40.0) + 0.4 * smooth_noise(rng, (len(slat), len(slon)), 4)
+    )
     for d in range(N_DAYS):
         day = MONTH_START + d
         doy = int((day - day.astype("datetime64[Y]")).astype(int)) + 1
@@ -111,47 +138,100 @@ def main(out: Path) -> None:
         clouds = 0.55 * fog + smooth_noise(rng, (ny, nx), 18) > 0.45  # a third to half under cloud
         chl = np.where(land | clouds, np.float32(np.nan), np.round(chl, 3)).astype("f4")
         cds = xr.Dataset(
-            {"chlor": (("lat", "lon"), chl, {
-                "standard_name": "mass_concentration_of_chlorophyll_a_in_sea_water",
-                "long_name": "chlorophyll-a concentration", "units": "mg m-3",
-                "valid_min": np.float32(0.001), "valid_max": np.float32(100.0)})},
+            {
+                "chlor": (
+                    ("lat", "lon"),
+                    chl,
+                    {
+                        "standard_name": "mass_concentration_of_chlorophyll_a_in_sea_water",
+                        "long_name": "chlorophyll-a concentration",
+                        "units": "mg m-3",
+                        "valid_min": np.float32(0.001),
+                        "valid_max": np.float32(100.0),
+                    },
+                )
+            },
             coords=masks.coords,
-            attrs={"title": "Maren Sea demo chlorophyll (invented)", "Conventions": "CF-1.8, ACDD-1.3",
-                   "time_coverage_start": f"{day}T00:00:00Z", "time_coverage_end": f"{day}T23:59:59Z"},
+            attrs={
+                "title": "Maren Sea demo chlorophyll (invented)",
+                "Conventions": "CF-1.8, ACDD-1.3",
+                "time_coverage_start": f"{day}T00:00:00Z",
+                "time_coverage_end": f"{day}T23:59:59Z",
+            },
         )
-        cds.to_netcdf(out / "chl" / f"maren_chl_{str(day).replace('-', '')}.nc",
-                      encoding={"chlor": {"zlib": True, "complevel": 6, "_FillValue": np.float32(-999.0)}})
+        cds.to_netcdf(
+            out / "chl" / f"maren_chl_{str(day).replace('-', '')}.nc",
+            encoding={"chlor": {"zlib": True, "complevel": 6, "_FillValue": np.float32(-999.0)}},
+        )
 
         cloud_factor = 0.55 + 0.4 * (smooth_noise(rng, (ny, nx), 20) * 0.5 + 0.5).clip(0, 1)
         par = daily_par_mol(la, doy) * cloud_factor  # mol m-2 d-1
         par_umol = np.where(land, np.nan, par / 86400.0 * 1e6).astype("f4")
         par_umol = np.round(par_umol, 1)
         pds = xr.Dataset(
-            {"par": (("time", "lat", "lon"), par_umol[None], {
-                "standard_name": "surface_downwelling_photosynthetic_photon_flux_in_air",
-                "long_name": "daily mean PAR photon flux", "units": "umol m-2 s-1"})},
-            coords={"time": ("time", [day.astype("datetime64[ns]") + np.timedelta64(12, "h")]), **masks.coords},
+            {
+                "par": (
+                    ("time", "lat", "lon"),
+                    par_umol[None],
+                    {
+                        "standard_name": "surface_downwelling_photosynthetic_photon_flux_in_air",
+                        "long_name": "daily mean PAR photon flux",
+                        "units": "umol m-2 s-1",
+                    },
+                )
+            },
+            coords={
+                "time": ("time", [day.astype("datetime64[ns]") + np.timedelta64(12, "h")]),
+                **masks.coords,
+            },
             attrs={"title": "Maren Sea demo PAR (invented)", "Conventions": "CF-1.8"},
         )
-        pds.to_netcdf(out / "par" / f"maren_par_{day}.nc",
-                      encoding={"par": {"zlib": True, "complevel": 6, "_FillValue": np.float32(-1.0)},
-                                "time": {"units": "hours since 2025-01-01 00:00:00", "calendar": "standard"}})
+        pds.to_netcdf(
+            out / "par" / f"maren_par_{day}.nc",
+            encoding={
+                "par": {"zlib": True, "complevel": 6, "_FillValue": np.float32(-1.0)},
+                "time": {"units": "hours since 2025-01-01 00:00:00", "calendar": "standard"},
+            },
+        )
 
         sst = sst_base + 0.04 * d + 0.15 * smooth_noise(rng, (len(slat), len(slon)), 3)
         sst_k = np.where(sland, np.nan, sst + 273.15)
         sds = xr.Dataset(
-            {"sea_surface_temperature": (("time", "lat", "lon"), sst_k[None, ::-1, :], {
-                "standard_name": "sea_surface_temperature", "long_name": "sea surface temperature",
-                "units": "K"})},
-            coords={"time": ("time", [day.astype("datetime64[ns]")]),
-                    "lat": ("lat", slat[::-1], {"standard_name": "latitude", "units": "degrees_north"}),
-                    "lon": ("lon", slon % 360.0, {"standard_name": "longitude", "units": "degrees_east"})},
+            {
+                "sea_surface_temperature": (
+                    ("time", "lat", "lon"),
+                    sst_k[None, ::-1, :],
+                    {
+                        "standard_name": "sea_surface_temperature",
+                        "long_name": "sea surface temperature",
+                        "units": "K",
+                    },
+                )
+            },
+            coords={
+                "time": ("time", [day.astype("datetime64[ns]")]),
+                "lat": ("lat", slat[::-1], {"standard_name": "latitude", "units": "degrees_north"}),
+                "lon": (
+                    "lon",
+                    slon % 360.0,
+                    {"standard_name": "longitude", "units": "degrees_east"},
+                ),
+            },
             attrs={"title": "Maren Sea demo SST (invented)", "Conventions": "CF-1.8"},
         )
-        sds.to_netcdf(out / "sst" / f"maren_sst_{str(day).replace('-', '')}.nc", encoding={
-            "sea_surface_temperature": {"dtype": "int16", "scale_factor": 0.01, "add_offset": 273.15,
-                                        "_FillValue": np.int16(-32768), "zlib": True},
-            "time": {"units": "days since 1981-01-01", "calendar": "standard"}})
+        sds.to_netcdf(
+            out / "sst" / f"maren_sst_{str(day).replace('-', '')}.nc",
+            encoding={
+                "sea_surface_temperature": {
+                    "dtype": "int16",
+                    "scale_factor": 0.01,
+                    "add_offset": 273.15,
+                    "_FillValue": np.int16(-32768),
+                    "zlib": True,
+                },
+                "time": {"units": "days since 1981-01-01", "calendar": "standard"},
+            },
+        )
 
 
 if __name__ == "__main__":

@@ -18,13 +18,26 @@ def grid(lat0: float, lat1: float, lon0: float, lon1: float, res: float):
     return lat, lon
 
 
-def write_field(path: Path, name: str, std: str, units: str, values: np.ndarray, lat, lon, *,
-                start: str | None = None, end: str | None = None, time: str | None = None,
-                time_bounds: tuple[str, str] | None = None) -> Path:
+def write_field(
+    path: Path,
+    name: str,
+    std: str,
+    units: str,
+    values: np.ndarray,
+    lat,
+    lon,
+    *,
+    start: str | None = None,
+    end: str | None = None,
+    time: str | None = None,
+    time_bounds: tuple[str, str] | None = None,
+) -> Path:
     """One 2-D field; dated by ACDD attrs (start/end), a time stamp, or time bounds."""
     attrs = {"Conventions": "CF-1.8"}
-    coords = {"lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north"}),
-              "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east"})}
+    coords = {
+        "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north"}),
+        "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east"}),
+    }
     va = {"standard_name": std, "units": units}
     if time is not None or time_bounds is not None:
         t = np.datetime64(time or time_bounds[0], "ns")
@@ -37,7 +50,9 @@ def write_field(path: Path, name: str, std: str, units: str, values: np.ndarray,
     else:
         if start is not None:
             attrs.update(time_coverage_start=start, time_coverage_end=end)
-        ds = xr.Dataset({name: (("lat", "lon"), np.asarray(values, "f4"), va)}, coords=coords, attrs=attrs)
+        ds = xr.Dataset(
+            {name: (("lat", "lon"), np.asarray(values, "f4"), va)}, coords=coords, attrs=attrs
+        )
     enc = {name: {"_FillValue": np.float32(-999.0)}}
     if "time" in ds.coords:
         enc["time"] = {"units": "days since 2000-01-01"}

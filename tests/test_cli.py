@@ -32,18 +32,44 @@ box = [0.0, 0.0, 4.0, 4.0]
 """
 
 
-def _case(tmp: Path, *, chl_units="mg m-3", chl_std=CHL_STD, sst_res=1.0, acdd=True,
-          chl_glob="chl/*.nc", sst_days=("2024-03-01",)) -> Path:
+def _case(
+    tmp: Path,
+    *,
+    chl_units="mg m-3",
+    chl_std=CHL_STD,
+    sst_res=1.0,
+    acdd=True,
+    chl_glob="chl/*.nc",
+    sst_days=("2024-03-01",),
+) -> Path:
     lat, lon = grid(0.0, 4.0, 0.0, 4.0, 0.5)
     shape = (len(lat), len(lon))
     kw = {"start": "2024-03-01", "end": "2024-03-01"} if acdd else {}
-    write_field(tmp / "chl" / "c.nc", "chl", chl_std, chl_units, np.full(shape, 0.3), lat, lon, **kw)
-    write_field(tmp / "par" / "p.nc", "par", PAR_STD, "einstein m-2 day-1", np.full(shape, 30.0), lat, lon,
-                time="2024-03-01")
+    write_field(
+        tmp / "chl" / "c.nc", "chl", chl_std, chl_units, np.full(shape, 0.3), lat, lon, **kw
+    )
+    write_field(
+        tmp / "par" / "p.nc",
+        "par",
+        PAR_STD,
+        "einstein m-2 day-1",
+        np.full(shape, 30.0),
+        lat,
+        lon,
+        time="2024-03-01",
+    )
     slat, slon = grid(0.0, 4.0, 0.0, 4.0, sst_res)
     for i, d in enumerate(sst_days):
-        write_field(tmp / "sst" / f"s{i}.nc", "sst", SST_STD, "degC", np.full((len(slat), len(slon)), 15.0),
-                    slat, slon, time=d)
+        write_field(
+            tmp / "sst" / f"s{i}.nc",
+            "sst",
+            SST_STD,
+            "degC",
+            np.full((len(slat), len(slon)), 15.0),
+            slat,
+            slon,
+            time=d,
+        )
     return write_config(tmp / "run.toml", CONFIG.format(chl=chl_glob, sst="sst/*.nc"))
 
 

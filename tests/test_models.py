@@ -349,7 +349,6 @@ def test_incompatible_units_are_rejected():
 
 @pytest.mark.parametrize("name", ["vgpm", "eppley_vgpm"])
 def test_compiled_kernel_matches_numpy_formula(name):
-    from euphotic.models import eppley_vgpm as ep_mod  # noqa: F401  (registers modules)
     import importlib
 
     mod = importlib.import_module(f"euphotic.models.{name}")

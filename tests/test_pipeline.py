@@ -58,18 +58,54 @@ def _equator_case(tmp: Path, *, straddle=True) -> Path:
     shape = (len(lat), len(lon))
     # chlorophyll: two 8-day composites, 17-24 Jan (chl 0.2) and 25 Jan - 1 Feb (chl 1.0),
     # dated by ACDD attributes; the second straddles the month boundary (7 days Jan, 1 day Feb)
-    write_field(tmp / "chl" / "c1.nc", "chl", CHL_STD, "mg m-3", np.full(shape, 0.2), lat, lon,
-                start="2024-01-17", end="2024-01-24")
+    write_field(
+        tmp / "chl" / "c1.nc",
+        "chl",
+        CHL_STD,
+        "mg m-3",
+        np.full(shape, 0.2),
+        lat,
+        lon,
+        start="2024-01-17",
+        end="2024-01-24",
+    )
     if straddle:
-        write_field(tmp / "chl" / "c2.nc", "chl", CHL_STD, "mg m-3", np.full(shape, 1.0), lat, lon,
-                    start="2024-01-25T00:00:00Z", end="2024-02-02T00:00:00Z")
+        write_field(
+            tmp / "chl" / "c2.nc",
+            "chl",
+            CHL_STD,
+            "mg m-3",
+            np.full(shape, 1.0),
+            lat,
+            lon,
+            start="2024-01-25T00:00:00Z",
+            end="2024-02-02T00:00:00Z",
+        )
     # PAR and SST as monthly means (time bounds), covering Jan and Feb
     for m, (a, b) in enumerate((("2024-01-01", "2024-02-01"), ("2024-02-01", "2024-03-01"))):
-        write_field(tmp / "par" / f"p{m}.nc", "par", PAR_STD, "einstein m-2 day-1", np.full(shape, 40.0),
-                    lat, lon, time_bounds=(a, b))
-        write_field(tmp / "sst" / f"s{m}.nc", "sst", SST_STD, "degC", np.full(shape, 20.0), lat, lon,
-                    time_bounds=(a, b))
-    return write_config(tmp / "run.toml", """
+        write_field(
+            tmp / "par" / f"p{m}.nc",
+            "par",
+            PAR_STD,
+            "einstein m-2 day-1",
+            np.full(shape, 40.0),
+            lat,
+            lon,
+            time_bounds=(a, b),
+        )
+        write_field(
+            tmp / "sst" / f"s{m}.nc",
+            "sst",
+            SST_STD,
+            "degC",
+            np.full(shape, 20.0),
+            lat,
+            lon,
+            time_bounds=(a, b),
+        )
+    return write_config(
+        tmp / "run.toml",
+        """
 [run]
 models = ["vgpm"]
 output_dir = "out"
@@ -85,7 +121,8 @@ source = "temperature"
 [[regions]]
 name = "All"
 box = [10.0, -1.0, 12.0, 1.0]
-""")
+""",
+    )
 
 
 def test_eight_day_composite_straddling_month_boundary(tmp_path):
@@ -100,9 +137,13 @@ def test_eight_day_composite_straddling_month_boundary(tmp_path):
         jan_days = np.arange(np.datetime64("2024-01-17"), np.datetime64("2024-02-01"))
         dls = day_length(la, jan_days)
         # 8 days at chl 0.2 (17-24 Jan) and 7 days at chl 1.0 (25-31 Jan): mean over 15 days
-        rates = [vgpm_reference(0.2 if d < np.datetime64("2024-01-25") else 1.0, 40.0, 20.0, dl)
-                 for d, dl in zip(jan_days, dls, strict=True)]
-        np.testing.assert_allclose(jan["npp"].values[0, i], np.mean(rates), rtol=1e-6)  # float32 store
+        rates = [
+            vgpm_reference(0.2 if d < np.datetime64("2024-01-25") else 1.0, 40.0, 20.0, dl)
+            for d, dl in zip(jan_days, dls, strict=True)
+        ]
+        np.testing.assert_allclose(
+            jan["npp"].values[0, i], np.mean(rates), rtol=1e-6
+        )  # float32 store
         feb_rate = vgpm_reference(1.0, 40.0, 20.0, float(day_length(la, "2024-02-01")))
         np.testing.assert_allclose(feb["npp"].values[0, i], feb_rate, rtol=1e-6)
     # coverage: 15 of 31 days in January, 1 of 29 days in February 2024 (leap year)
@@ -128,12 +169,40 @@ def test_polar_night_counts_as_zero_production(tmp_path):
     chl = np.full(shape, np.nan)  # no chlorophyll at all (no light to see it by)
     for d in range(1, 32):
         day = f"2023-12-{d:02d}"
-        write_field(tmp_path / "chl" / f"c{d}.nc", "chl", CHL_STD, "mg m-3", chl, lat, lon, start=day, end=day)
-    write_field(tmp_path / "par" / "p.nc", "par", PAR_STD, "einstein m-2 day-1", np.zeros(shape), lat, lon,
-                time_bounds=("2023-12-01", "2024-01-01"))
-    write_field(tmp_path / "sst" / "s.nc", "sst", SST_STD, "degC", np.full(shape, -1.5), lat, lon,
-                time_bounds=("2023-12-01", "2024-01-01"))
-    cfg = write_config(tmp_path / "run.toml", """
+        write_field(
+            tmp_path / "chl" / f"c{d}.nc",
+            "chl",
+            CHL_STD,
+            "mg m-3",
+            chl,
+            lat,
+            lon,
+            start=day,
+            end=day,
+        )
+    write_field(
+        tmp_path / "par" / "p.nc",
+        "par",
+        PAR_STD,
+        "einstein m-2 day-1",
+        np.zeros(shape),
+        lat,
+        lon,
+        time_bounds=("2023-12-01", "2024-01-01"),
+    )
+    write_field(
+        tmp_path / "sst" / "s.nc",
+        "sst",
+        SST_STD,
+        "degC",
+        np.full(shape, -1.5),
+        lat,
+        lon,
+        time_bounds=("2023-12-01", "2024-01-01"),
+    )
+    cfg = write_config(
+        tmp_path / "run.toml",
+        """
 [run]
 output_dir = "out"
 figures = false
@@ -148,7 +217,8 @@ source = "temperature"
 [[regions]]
 name = "Arctic box"
 box = [0.0, 78.0, 4.0, 82.0]
-""")
+""",
+    )
     result = run(load_config(cfg), progress=False)
     ds = xr.open_dataset(tmp_path / "out" / "npp_vgpm_2023-12.nc")
     assert np.all(ds["npp"].values == 0.0)
@@ -162,9 +232,12 @@ def test_building_the_graph_computes_nothing(tmp_path):
     cfg = load_config(_equator_case(tmp_path))
     with RaiseOnCompute():
         prep = prepare(cfg)
-        maps = aggregate.monthly_npp(vgpm, "vgpm", prep.months[0], chl=prep.chl, par=prep.par,
-                                     sst=prep.sst, ocean=prep.ocean)
-        sums = aggregate.region_sums(maps, "All", np.ones(prep.area_m2.shape, bool), prep.ocean, prep.area_m2)
+        maps = aggregate.monthly_npp(
+            vgpm, "vgpm", prep.months[0], chl=prep.chl, par=prep.par, sst=prep.sst, ocean=prep.ocean
+        )
+        sums = aggregate.region_sums(
+            maps, "All", np.ones(prep.area_m2.shape, bool), prep.ocean, prep.area_m2
+        )
         assert isinstance(maps.npp.data, dask.array.Array)
         assert isinstance(sums.integral_mg_d.data, dask.array.Array)
     with pytest.raises(AssertionError, match="computed early"), RaiseOnCompute():
@@ -186,6 +259,7 @@ def test_failed_run_leaves_no_file_and_keeps_old_results(tmp_path, monkeypatch):
         raise RuntimeError("disk on fire")
 
     monkeypatch.setattr(vg, "vgpm_kernel", broken)
+    monkeypatch.setattr(vg, "vgpm_block", broken)
     with pytest.raises(RuntimeError, match="disk on fire"):
         run(cfg, progress=False)
     assert (out / "npp_vgpm_2024-01.nc").read_bytes() == good
@@ -200,7 +274,9 @@ def test_demo_run_end_to_end(tmp_path):
     from euphotic.cli import main
 
     root = Path(__file__).resolve().parents[1]
-    res = CliRunner().invoke(main, ["run", str(root / "configs" / "demo.toml"), "-o", str(tmp_path), "-q"])
+    res = CliRunner().invoke(
+        main, ["run", str(root / "configs" / "demo.toml"), "-o", str(tmp_path), "-q"]
+    )
     assert res.exit_code == 0, res.output
     assert "Caution" in res.output
     with open(tmp_path / "regional_totals.csv") as fh:
@@ -219,8 +295,18 @@ def test_demo_run_end_to_end(tmp_path):
     assert ds["npp"].attrs["units"] == "mg m-2 d-1"
     assert ds["npp"].attrs["cell_methods"] == "time: mean"
     assert ds["npp"].encoding["dtype"] == np.float32
-    for key in ("title", "summary", "time_coverage_start", "time_coverage_end", "history",
-                "references", "model", "model_citation", "geospatial_lat_min", "product_version"):
+    for key in (
+        "title",
+        "summary",
+        "time_coverage_start",
+        "time_coverage_end",
+        "history",
+        "references",
+        "model",
+        "model_citation",
+        "geospatial_lat_min",
+        "product_version",
+    ):
         assert ds.attrs[key], key
     assert CAUTION in ds.attrs["summary"]
     assert ds.attrs["time_coverage_start"] == "2025-04-01"
@@ -231,3 +317,39 @@ def test_demo_run_end_to_end(tmp_path):
 
     img = imread(tmp_path / "npp_vgpm_2025-04.png")
     assert img.shape[0] > 300 and img[..., :3].std() > 0.05
+
+
+def test_local_cluster_gives_identical_results(tmp_path):
+    """A 2-process dask.distributed LocalCluster reproduces the threaded run bit for bit."""
+    root = Path(__file__).resolve().parents[1]
+    cfg = load_config(root / "configs" / "demo.toml")
+    cfg.figures = False
+    cfg.models = ["vgpm"]
+    cfg.output_dir = tmp_path / "threads"
+    a = run(cfg, progress=False)
+    cfg.output_dir = tmp_path / "cluster"
+    b = run(cfg, progress=False, workers=2)
+    for fa, fb in zip(a.maps, b.maps, strict=True):
+        with xr.open_dataset(fa) as x, xr.open_dataset(fb) as y:
+            np.testing.assert_array_equal(x["npp"].values, y["npp"].values)
+            np.testing.assert_array_equal(x["coverage"].values, y["coverage"].values)
+    assert (tmp_path / "threads" / "regional_totals.csv").read_text() == (
+        tmp_path / "cluster" / "regional_totals.csv"
+    ).read_text()
+
+
+def test_zarr_output_matches_netcdf(tmp_path):
+    root = Path(__file__).resolve().parents[1]
+    cfg = load_config(root / "configs" / "demo.toml")
+    cfg.figures = False
+    cfg.models = ["vgpm"]
+    cfg.output_dir = tmp_path / "nc"
+    a = run(cfg, progress=False)
+    cfg.output_dir = tmp_path / "zarr"
+    cfg.output_format = "zarr"
+    b = run(cfg, progress=False)
+    assert b.maps[0].suffix == ".zarr" and b.maps[0].is_dir()
+    with xr.open_dataset(a.maps[0]) as x, xr.open_zarr(b.maps[0]) as y:
+        np.testing.assert_array_equal(x["npp"].values, y["npp"].values)
+        assert y["npp"].attrs["units"] == "mg m-2 d-1"
+    assert not [p for p in (tmp_path / "zarr").iterdir() if ".part-" in p.name]

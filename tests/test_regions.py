@@ -55,14 +55,42 @@ def test_box_crossing_antimeridian_on_both_longitude_conventions():
 
 def test_geojson_antimeridian_split_multipolygon(tmp_path):
     # RFC 7946 section 3.1.9: a geometry crossing the antimeridian is cut into two parts
-    gj = {"type": "FeatureCollection", "features": [{
-        "type": "Feature", "properties": {"label": "Dateline Strait"},
-        "geometry": {"type": "MultiPolygon", "coordinates": [
-            [[[175.0, 50.0], [180.0, 50.0], [180.0, 55.0], [175.0, 55.0], [175.0, 50.0]]],
-            [[[-180.0, 50.0], [-172.0, 50.0], [-172.0, 55.0], [-180.0, 55.0], [-180.0, 50.0]]],
-        ]}}]}
+    gj = {
+        "type": "FeatureCollection",
+        "features": [
+            {
+                "type": "Feature",
+                "properties": {"label": "Dateline Strait"},
+                "geometry": {
+                    "type": "MultiPolygon",
+                    "coordinates": [
+                        [
+                            [
+                                [175.0, 50.0],
+                                [180.0, 50.0],
+                                [180.0, 55.0],
+                                [175.0, 55.0],
+                                [175.0, 50.0],
+                            ]
+                        ],
+                        [
+                            [
+                                [-180.0, 50.0],
+                                [-172.0, 50.0],
+                                [-172.0, 55.0],
+                                [-180.0, 55.0],
+                                [-180.0, 50.0],
+                            ]
+                        ],
+                    ],
+                },
+            }
+        ],
+    }
     (tmp_path / "r.geojson").write_text(json.dumps(gj))
-    (region,) = regions_from_config([{"geojson": "r.geojson", "name_property": "label"}], tmp_path, "t")
+    (region,) = regions_from_config(
+        [{"geojson": "r.geojson", "name_property": "label"}], tmp_path, "t"
+    )
     assert region.name == "Dateline Strait"
     lat, lon = _centres(0.25)
     m = region.mask(lat, lon)
@@ -76,10 +104,12 @@ def test_netcdf_mask_region(tmp_path):
     basin = np.zeros((lat.size, lon.size), "i2")
     basin[100:110, 50:60] = 3
     basin[0:5, :] = 7
-    xr.Dataset({"basin": (("lat", "lon"), basin[::-1])},
-               coords={"lat": lat[::-1], "lon": lon % 360}).to_netcdf(tmp_path / "m.nc")
-    (r,) = regions_from_config([{"name": "B3", "mask": "m.nc", "variable": "basin", "value": 3}],
-                               tmp_path, "t")
+    xr.Dataset(
+        {"basin": (("lat", "lon"), basin[::-1])}, coords={"lat": lat[::-1], "lon": lon % 360}
+    ).to_netcdf(tmp_path / "m.nc")
+    (r,) = regions_from_config(
+        [{"name": "B3", "mask": "m.nc", "variable": "basin", "value": 3}], tmp_path, "t"
+    )
     np.testing.assert_array_equal(r.mask(lat, lon), basin == 3)
 
 
@@ -89,8 +119,11 @@ def test_config_region_errors(tmp_path):
     with pytest.raises(ConfigError, match="exactly one of"):
         regions_from_config([{"name": "x"}], tmp_path, "cfg.toml")
     with pytest.raises(ConfigError, match="unique"):
-        regions_from_config([{"name": "a", "box": [0, 0, 1, 1]}, {"name": "a", "box": [0, 0, 2, 2]}],
-                            tmp_path, "cfg.toml")
+        regions_from_config(
+            [{"name": "a", "box": [0, 0, 1, 1]}, {"name": "a", "box": [0, 0, 2, 2]}],
+            tmp_path,
+            "cfg.toml",
+        )
     with pytest.raises(ConfigError, match="west, south, east, north"):
         regions_from_config([{"name": "a", "box": [0, 0, 1]}], tmp_path, "cfg.toml")
 
@@ -119,11 +152,18 @@ def test_totals_arithmetic_hand_worked():
     total 600e6 * 30 / 1e3 / 1e12 = 1.8e-5 Tg C; filled 200 * 4e6 * 30 / 1e15 = 2.4e-5 Tg C."""
     npp = xr.DataArray([[100.0, 200.0], [300.0, np.nan]], dims=("lat", "lon"))
     cov = xr.DataArray([[0.5, 0.5], [1.0, 0.0]], dims=("lat", "lon"))
-    maps = aggregate.MonthlyMaps(month=np.datetime64("2024-04"), model="vgpm", npp=npp, coverage=cov, n_days=30)
+    maps = aggregate.MonthlyMaps(
+        month=np.datetime64("2024-04"), model="vgpm", npp=npp, coverage=cov, n_days=30
+    )
     ocean = xr.DataArray(np.ones((2, 2), bool), dims=("lat", "lon"))
     z = aggregate.region_sums(maps, "R", np.ones((2, 2), bool), ocean, np.full((2, 2), 1e6))
-    row = aggregate.finish_totals(z, float(z.observed_area_m2), float(z.integral_mg_d),
-                                  float(z.coverage_area_m2), float(z.ocean_area_m2))
+    row = aggregate.finish_totals(
+        z,
+        float(z.observed_area_m2),
+        float(z.integral_mg_d),
+        float(z.coverage_area_m2),
+        float(z.ocean_area_m2),
+    )
     assert row["mean_npp_mg_m2_d"] == pytest.approx(200.0)
     assert row["observed_area_km2"] == pytest.approx(3.0)
     assert row["ocean_area_km2"] == pytest.approx(4.0)
@@ -136,4 +176,9 @@ def test_demo_config_loads_all_region_kinds():
     from pathlib import Path
 
     cfg = load_config(Path(__file__).resolve().parents[1] / "configs" / "demo.toml")
-    assert [r.name for r in cfg.regions] == ["Skerrow Shelf", "Outer Maren Gyre", "Tollan Bank", "Whole Maren Sea"]
+    assert [r.name for r in cfg.regions] == [
+        "Skerrow Shelf",
+        "Outer Maren Gyre",
+        "Tollan Bank",
+        "Whole Maren Sea",
+    ]

@@ -32,7 +32,9 @@ def month_days(month: np.datetime64) -> np.ndarray:
 def months_touched(starts: np.ndarray, ends: np.ndarray) -> list[np.datetime64]:
     """Calendar months (datetime64[M]) overlapped by any period [start, end)."""
     out: set = set()
-    for s, e in zip(np.asarray(starts, "datetime64[D]"), np.asarray(ends, "datetime64[D]"), strict=True):
+    for s, e in zip(
+        np.asarray(starts, "datetime64[D]"), np.asarray(ends, "datetime64[D]"), strict=True
+    ):
         out.update(np.arange(s.astype("datetime64[M]"), (e - 1).astype("datetime64[M]") + 1))
     return sorted(out)
 
@@ -61,7 +63,9 @@ def daily_stack(da: xr.DataArray, days: np.ndarray) -> xr.DataArray:
     """The input values that stand for each day, dims ``(day, lat, lon)``; NaN where uncovered."""
     idx = day_to_period(da["period_start"].values, da["period_end"].values, days)
     taken = da.isel(time=xr.DataArray(np.clip(idx, 0, None), dims="day"))
-    taken = taken.drop_vars([c for c in ("time", "period_start", "period_end") if c in taken.coords])
+    taken = taken.drop_vars(
+        [c for c in ("time", "period_start", "period_end") if c in taken.coords]
+    )
     taken = taken.assign_coords(day=("day", np.asarray(days, "datetime64[ns]")))
     if (idx < 0).any():
         taken = taken.where(xr.DataArray(idx >= 0, dims="day", coords={"day": taken.day}))
@@ -117,7 +121,9 @@ def monthly_npp(
     valid = npp_daily.notnull()
     npp = npp_daily.mean("day", skipna=True)
     coverage = (valid.sum("day") / n).where(ocean)
-    return MonthlyMaps(month=np.datetime64(month, "M"), model=model_name, npp=npp, coverage=coverage, n_days=n)
+    return MonthlyMaps(
+        month=np.datetime64(month, "M"), model=model_name, npp=npp, coverage=coverage, n_days=n
+    )
 
 
 @dataclass

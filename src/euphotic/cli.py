@@ -26,6 +26,17 @@ def _fail(exc: BaseException, debug: bool) -> None:
     sys.exit(1)
 
 
+def _log_warnings() -> None:
+    """Show the tool's own warnings as one line each (not other libraries' logs)."""
+    log = logging.getLogger("euphotic")
+    if not log.handlers:
+        handler = logging.StreamHandler()
+        handler.setFormatter(logging.Formatter("euphotic: warning: %(message)s"))
+        log.addHandler(handler)
+        log.setLevel(logging.WARNING)
+        log.propagate = False
+
+
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="euphotic")
 def main() -> None:
@@ -38,14 +49,37 @@ def main() -> None:
 
 @main.command()
 @click.argument("config", type=click.Path(dir_okay=False, path_type=Path))
-@click.option("--output-dir", "-o", type=click.Path(file_okay=False, path_type=Path),
-              help="Write here instead of the config's [run] output_dir.")
+@click.option(
+    "--output-dir",
+    "-o",
+    type=click.Path(file_okay=False, path_type=Path),
+    help="Write here instead of the config's [run] output_dir.",
+)
 @click.option("--no-figures", is_flag=True, help="Skip the PNG maps and the totals chart.")
 @click.option("--quiet", "-q", is_flag=True, help="No progress bar; print only the totals.")
+@click.option(
+    "--scheduler",
+    metavar="ADDRESS",
+    help="Run on an existing dask.distributed scheduler (e.g. tcp://10.0.0.5:8786).",
+)
+@click.option(
+    "--workers",
+    type=click.IntRange(min=1),
+    metavar="N",
+    help="Start a local dask.distributed cluster of N worker processes for this run.",
+)
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
-def run(config: Path, output_dir: Path | None, no_figures: bool, quiet: bool, debug: bool) -> None:
+def run(
+    config: Path,
+    output_dir: Path | None,
+    no_figures: bool,
+    quiet: bool,
+    scheduler: str | None,
+    workers: int | None,
+    debug: bool,
+) -> None:
     """Run the models for CONFIG (a TOML file) and write maps and regional totals."""
-    logging.basicConfig(level=logging.WARNING, format="euphotic: warning: %(message)s")
+    _log_warnings()
     try:
         from euphotic.config import load_config
         from euphotic.pipeline import run as run_pipeline
@@ -56,7 +90,11 @@ def run(config: Path, output_dir: Path | None, no_figures: bool, quiet: bool, de
         if no_figures:
             cfg.figures = False
         command = "euphotic run " + " ".join(shlex.quote(a) for a in sys.argv[2:])
-        result = run_pipeline(cfg, progress=not quiet, command=command)
+        if scheduler and workers:
+            raise EuphoticError("give --scheduler or --workers, not both")
+        result = run_pipeline(
+            cfg, progress=not quiet, command=command, scheduler=scheduler, workers=workers
+        )
     except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
         _fail(exc, debug)
         return
@@ -78,12 +116,39 @@ def run(config: Path, output_dir: Path | None, no_figures: bool, quiet: bool, de
 
 def format_totals(rows: list[dict]) -> str:
     """The totals table as aligned text."""
-    head = ["region", "month", "model", "mean mgC/m2/d", "observed km2", "ocean km2",
-            "coverage", "total TgC", "filled TgC"]
-    keys = ["region", "month", "model", "mean_npp_mg_m2_d", "observed_area_km2", "ocean_area_km2",
-            "coverage", "total_TgC", "total_filled_TgC"]
-    fmts = [str, str, str, "{:.1f}".format, "{:,.0f}".format, "{:,.0f}".format, "{:.0%}".format,
-            "{:.3g}".format, "{:.3g}".format]
+    head = [
+        "region",
+        "month",
+        "model",
+        "mean mgC/m2/d",
+        "observed km2",
+        "ocean km2",
+        "coverage",
+        "total TgC",
+        "filled TgC",
+    ]
+    keys = [
+        "region",
+        "month",
+        "model",
+        "mean_npp_mg_m2_d",
+        "observed_area_km2",
+        "ocean_area_km2",
+        "coverage",
+        "total_TgC",
+        "total_filled_TgC",
+    ]
+    fmts = [
+        str,
+        str,
+        str,
+        "{:.1f}".format,
+        "{:,.0f}".format,
+        "{:,.0f}".format,
+        "{:.0%}".format,
+        "{:.3g}".format,
+        "{:.3g}".format,
+    ]
     table = [head]
     for r in rows:
         cells = []
@@ -97,7 +162,12 @@ def format_totals(rows: list[dict]) -> str:
     widths = [max(len(row[i]) for row in table) for i in range(len(head))]
     lines = []
     for j, row in enumerate(table):
-        lines.append("  ".join(c.ljust(w) if i < 3 else c.rjust(w) for i, (c, w) in enumerate(zip(row, widths, strict=True))))
+        lines.append(
+            "  ".join(
+                c.ljust(w) if i < 3 else c.rjust(w)
+                for i, (c, w) in enumerate(zip(row, widths, strict=True))
+            )
+        )
         if j == 0:
             lines.append("  ".join("-" * w for w in widths))
     return "\n".join(lines)
@@ -105,9 +175,16 @@ def format_totals(rows: list[dict]) -> str:
 
 @main.command()
 @click.argument("files", nargs=-1, required=True)
-@click.option("--as", "role", type=click.Choice(["chl", "par", "sst", "day_length"]), default=None,
-              help="Which input the files are (default: try each).")
-@click.option("--variable", default=None, help="Variable name, when no CF standard_name identifies it.")
+@click.option(
+    "--as",
+    "role",
+    type=click.Choice(["chl", "par", "sst", "day_length"]),
+    default=None,
+    help="Which input the files are (default: try each).",
+)
+@click.option(
+    "--variable", default=None, help="Variable name, when no CF standard_name identifies it."
+)
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
 def inspect(files: tuple[str, ...], role: str | None, variable: str | None, debug: bool) -> None:
     """Show how FILES would be read: variable, units, periods and grid."""
@@ -118,7 +195,9 @@ def inspect(files: tuple[str, ...], role: str | None, variable: str | None, debu
     last: Exception | None = None
     for r in roles:
         try:
-            da = open_input(InputSpec(role=r, files=list(files), variable=variable, base_dir=Path.cwd()))
+            da = open_input(
+                InputSpec(role=r, files=list(files), variable=variable, base_dir=Path.cwd())
+            )
         except InputFileError as exc:
             last = exc
             if role is None and "no " in exc.problem and "variable" in exc.problem:
@@ -133,8 +212,10 @@ def inspect(files: tuple[str, ...], role: str | None, variable: str | None, debu
         click.echo(f"input:     {r} ({da.attrs['long_name']})")
         click.echo(f"variable:  {da.attrs['source_variable']} -> converted to {da.attrs['units']}")
         click.echo(f"files:     {len(da.attrs['files'])}")
-        click.echo(f"periods:   {len(starts)}, {starts.min()} .. {ends.max() - 1}"
-                   f" (lengths {sorted(set((ends - starts).astype(int).tolist()))} days)")
+        click.echo(
+            f"periods:   {len(starts)}, {starts.min()} .. {ends.max() - 1}"
+            f" (lengths {sorted(set((ends - starts).astype(int).tolist()))} days)"
+        )
         click.echo(f"grid:      {grid_summary(da)}")
         click.echo(f"chunks:    {da.data.chunksize}")
         return

@@ -14,7 +14,17 @@ from euphotic.readers import InputSpec
 from euphotic.regions import Region, regions_from_config
 
 _INPUT_KEYS = {"files", "variable", "units", "date_pattern", "date_format", "period"}
-_RUN_KEYS = {"models", "model", "output_dir", "start", "end", "earth", "figures", "title"}
+_RUN_KEYS = {
+    "models",
+    "model",
+    "output_dir",
+    "start",
+    "end",
+    "earth",
+    "figures",
+    "title",
+    "output_format",
+}
 _OCEAN_KEYS = {"source", "land_mask", "variable"}
 
 
@@ -32,6 +42,7 @@ class RunConfig:
     earth: str = "sphere"
     figures: bool = True
     title: str = "Ocean net primary production"
+    output_format: str = "netcdf"  # "netcdf" or "zarr"
     ocean_source: str = "package"  # "package", "file" or "temperature"
     land_mask: Path | None = None
     land_mask_variable: str | None = None
@@ -47,7 +58,9 @@ def _date(value, where: str, key: str) -> np.datetime64:
 def _check_keys(table: dict, allowed: set, where: str) -> None:
     unknown = sorted(set(table) - allowed)
     if unknown:
-        raise ConfigError(where, f"unknown key(s) {', '.join(unknown)}; allowed: {', '.join(sorted(allowed))}")
+        raise ConfigError(
+            where, f"unknown key(s) {', '.join(unknown)}; allowed: {', '.join(sorted(allowed))}"
+        )
 
 
 def load_config(path: str | Path) -> RunConfig:
@@ -71,7 +84,14 @@ def load_config(path: str | Path) -> RunConfig:
         models = [models]
     for m in models:
         if m not in MODELS:
-            raise ConfigError(f"{path} [run]", f"unknown model {m!r}; choose from {', '.join(sorted(MODELS))}")
+            raise ConfigError(
+                f"{path} [run]", f"unknown model {m!r}; choose from {', '.join(sorted(MODELS))}"
+            )
+    output_format = run.get("output_format", "netcdf")
+    if output_format not in ("netcdf", "zarr"):
+        raise ConfigError(
+            f"{path} [run]", f"`output_format` must be 'netcdf' or 'zarr', not {output_format!r}"
+        )
     earth = run.get("earth", "sphere")
     if earth not in ("sphere", "wgs84"):
         raise ConfigError(f"{path} [run]", f"`earth` must be 'sphere' or 'wgs84', not {earth!r}")
@@ -108,7 +128,10 @@ def load_config(path: str | Path) -> RunConfig:
     land_mask = ocean.get("land_mask")
     source = ocean.get("source", "file" if land_mask else "package")
     if source not in ("file", "package", "temperature"):
-        raise ConfigError(f"{path} [ocean]", f"`source` must be 'file', 'package' or 'temperature', not {source!r}")
+        raise ConfigError(
+            f"{path} [ocean]",
+            f"`source` must be 'file', 'package' or 'temperature', not {source!r}",
+        )
     if source == "file" and not land_mask:
         raise ConfigError(f"{path} [ocean]", "source = 'file' needs `land_mask`")
 
@@ -126,6 +149,7 @@ def load_config(path: str | Path) -> RunConfig:
         earth=earth,
         figures=bool(run.get("figures", True)),
         title=str(run.get("title", "Ocean net primary production")),
+        output_format=output_format,
         ocean_source=source,
         land_mask=(base / land_mask).resolve() if land_mask else None,
         land_mask_variable=ocean.get("variable"),

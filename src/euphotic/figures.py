@@ -18,7 +18,9 @@ def _stride(n: int) -> int:
     return max(1, int(np.ceil(n / MAX_CELLS_DRAWN)))
 
 
-def map_figure(nc_path: Path, png_path: Path, region_masks: dict[str, np.ndarray] | None = None) -> Path:
+def map_figure(
+    nc_path: Path, png_path: Path, region_masks: dict[str, np.ndarray] | None = None
+) -> Path:
     """Draw a monthly NPP map (log colour scale) with region outlines; returns ``png_path``."""
     import matplotlib
 
@@ -31,10 +33,16 @@ def map_figure(nc_path: Path, png_path: Path, region_masks: dict[str, np.ndarray
     with xr.open_dataset(nc_path) as ds:
         sy, sx = _stride(ds.sizes["lat"]), _stride(ds.sizes["lon"])
         npp = ds["npp"].isel(time=0, lat=slice(None, None, sy), lon=slice(None, None, sx)).load()
-        cov = ds["coverage"].isel(time=0, lat=slice(None, None, sy), lon=slice(None, None, sx)).load()
+        cov = (
+            ds["coverage"].isel(time=0, lat=slice(None, None, sy), lon=slice(None, None, sx)).load()
+        )
         title = ds.attrs.get("title", "")
     lat, lon = npp["lat"].values, npp["lon"].values
-    aspect = (lat.max() - lat.min()) / max(lon.max() - lon.min(), 1e-9) / np.cos(np.deg2rad(np.clip(np.mean(lat), -80, 80)))
+    aspect = (
+        (lat.max() - lat.min())
+        / max(lon.max() - lon.min(), 1e-9)
+        / np.cos(np.deg2rad(np.clip(np.mean(lat), -80, 80)))
+    )
     width = 8.0
     height = float(np.clip(width * aspect * 0.85 + 1.4, 3.5, 9.0))
     fig, ax = plt.subplots(figsize=(width, height))
@@ -48,8 +56,14 @@ def map_figure(nc_path: Path, png_path: Path, region_masks: dict[str, np.ndarray
         hi = max(hi, lo * 10)
     else:
         lo, hi = 10.0, 3000.0
-    mesh = ax.pcolormesh(lon, lat, np.where(vals > 0, vals, np.nan), norm=LogNorm(lo, hi),
-                         cmap="viridis", shading="nearest")
+    mesh = ax.pcolormesh(
+        lon,
+        lat,
+        np.where(vals > 0, vals, np.nan),
+        norm=LogNorm(lo, hi),
+        cmap="viridis",
+        shading="nearest",
+    )
     zero = np.where(vals == 0, 1.0, np.nan)
     if np.isfinite(zero).any():
         ax.pcolormesh(lon, lat, zero, cmap="Greys", vmin=0, vmax=2, shading="nearest")
@@ -65,14 +79,17 @@ def map_figure(nc_path: Path, png_path: Path, region_masks: dict[str, np.ndarray
                 if m.mean() > 0.5:  # a region covering most of the map: outline only
                     continue
                 iy, ix = np.argwhere(m > 0).mean(axis=0).astype(int)
-                ax.annotate(name, (lon[ix], lat[iy]), color=c, fontsize=8, ha="center",
-                            fontweight="bold")
+                ax.annotate(
+                    name, (lon[ix], lat[iy]), color=c, fontsize=8, ha="center", fontweight="bold"
+                )
     mean_cov = float(np.nanmean(cov.values)) if np.isfinite(cov.values).any() else 0.0
     ax.set_title(f"{title}\nmean coverage {mean_cov:.0%} of days", fontsize=10)
     ax.set_xlabel("longitude (degrees east)")
     ax.set_ylabel("latitude (degrees north)")
     ax.set_aspect(1.0 / np.cos(np.deg2rad(np.clip(np.mean(lat), -80, 80))))
-    fig.text(0.01, 0.005, "Caution: " + CAUTION, fontsize=6, wrap=True, va="bottom", color="#444444")
+    fig.text(
+        0.01, 0.005, "Caution: " + CAUTION, fontsize=6, wrap=True, va="bottom", color="#444444"
+    )
     fig.savefig(png_path, dpi=110)
     plt.close(fig)
     return png_path
@@ -94,18 +111,40 @@ def totals_figure(rows: list[dict], png_path: Path) -> Path:
     width = 0.8 / max(len(series), 1)
     x = np.arange(len(regions))
     for k, (model, month) in enumerate(series):
-        vals = [next((r["total_TgC"] for r in rows if r["region"] == g and r["model"] == model
-                      and r["month"] == month), np.nan) for g in regions]
-        filled = [next((r["total_filled_TgC"] for r in rows if r["region"] == g and r["model"] == model
-                        and r["month"] == month), np.nan) for g in regions]
+        vals = [
+            next(
+                (
+                    r["total_TgC"]
+                    for r in rows
+                    if r["region"] == g and r["model"] == model and r["month"] == month
+                ),
+                np.nan,
+            )
+            for g in regions
+        ]
+        filled = [
+            next(
+                (
+                    r["total_filled_TgC"]
+                    for r in rows
+                    if r["region"] == g and r["model"] == model and r["month"] == month
+                ),
+                np.nan,
+            )
+            for g in regions
+        ]
         pos = x + (k - (len(series) - 1) / 2) * width
         ax.bar(pos, filled, width * 0.95, color="none", edgecolor=f"C{k}", linestyle="--")
         ax.bar(pos, vals, width * 0.95, color=f"C{k}", label=f"{model} {month}")
     ax.set_xticks(x, regions, rotation=15, ha="right")
     ax.set_ylabel("carbon fixed in the month (Tg C)")
-    ax.set_title("Regional totals (solid: observed cells; dashed: scaled to whole ocean area)", fontsize=10)
+    ax.set_title(
+        "Regional totals (solid: observed cells; dashed: scaled to whole ocean area)", fontsize=10
+    )
     ax.legend(fontsize=8)
-    fig.text(0.01, 0.005, "Caution: " + CAUTION, fontsize=6, wrap=True, va="bottom", color="#444444")
+    fig.text(
+        0.01, 0.005, "Caution: " + CAUTION, fontsize=6, wrap=True, va="bottom", color="#444444"
+    )
     fig.savefig(png_path, dpi=110)
     plt.close(fig)
     return png_path
@@ -117,5 +156,7 @@ def figures_for_run(result, cfg, region_masks) -> list[Path]:
     for nc in result.maps:
         out.append(map_figure(nc, nc.with_suffix(".png"), region_masks))
     if result.rows:
-        out.append(totals_figure(result.rows, Path(result.totals_csv).with_name("regional_totals.png")))
+        out.append(
+            totals_figure(result.rows, Path(result.totals_csv).with_name("regional_totals.png"))
+        )
     return out

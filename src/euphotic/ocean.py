@@ -31,8 +31,11 @@ def packaged_ocean_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
     with zipfile.ZipFile(path) as z:
         with z.open("mask.npy") as f:
             version = np.lib.format.read_magic(f)
-            read_header = (np.lib.format.read_array_header_1_0 if version == (1, 0)
-                           else np.lib.format.read_array_header_2_0)
+            read_header = (
+                np.lib.format.read_array_header_1_0
+                if version == (1, 0)
+                else np.lib.format.read_array_header_2_0
+            )
             shape, fortran, dtype = read_header(f)
             if fortran or dtype != np.bool_ or len(shape) != 2:
                 raise RuntimeError(f"{path}: unexpected land mask layout {shape} {dtype}")
@@ -58,7 +61,9 @@ def packaged_ocean_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
     return out
 
 
-def file_ocean_mask(path: str, variable: str | None, lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
+def file_ocean_mask(
+    path: str, variable: str | None, lat: np.ndarray, lon: np.ndarray
+) -> np.ndarray:
     """Ocean where a land-mask file's value is below 0.5 (a 0/1 land flag or a land fraction)."""
     from euphotic.regions import netcdf_on_grid
 

@@ -27,8 +27,15 @@ CAUTION = (
 )
 
 TOTALS_COLUMNS = [
-    "region", "month", "model", "mean_npp_mg_m2_d", "observed_area_km2", "ocean_area_km2",
-    "coverage", "total_TgC", "total_filled_TgC",
+    "region",
+    "month",
+    "model",
+    "mean_npp_mg_m2_d",
+    "observed_area_km2",
+    "ocean_area_km2",
+    "coverage",
+    "total_TgC",
+    "total_filled_TgC",
 ]
 
 
@@ -82,13 +89,39 @@ def month_dataset(
     ds = xr.Dataset(
         {"npp": npp, "coverage": cov},
         coords={
-            "time": ("time", [mid.astype("datetime64[ns]")], {"standard_name": "time", "axis": "T", "bounds": "time_bnds", "long_name": "time"}),
-            "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north", "axis": "Y", "bounds": "lat_bnds", "long_name": "latitude"}),
-            "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east", "axis": "X", "bounds": "lon_bnds", "long_name": "longitude"}),
+            "time": (
+                "time",
+                [mid.astype("datetime64[ns]")],
+                {"standard_name": "time", "axis": "T", "bounds": "time_bnds", "long_name": "time"},
+            ),
+            "lat": (
+                "lat",
+                lat,
+                {
+                    "standard_name": "latitude",
+                    "units": "degrees_north",
+                    "axis": "Y",
+                    "bounds": "lat_bnds",
+                    "long_name": "latitude",
+                },
+            ),
+            "lon": (
+                "lon",
+                lon,
+                {
+                    "standard_name": "longitude",
+                    "units": "degrees_east",
+                    "axis": "X",
+                    "bounds": "lon_bnds",
+                    "long_name": "longitude",
+                },
+            ),
         },
     )
     ds["npp"].attrs["cell_methods"] = "time: mean"
-    ds["npp"].attrs["comment"] += " Mean over the days of the month with a valid estimate (see coverage)."
+    ds["npp"].attrs["comment"] += (
+        " Mean over the days of the month with a valid estimate (see coverage)."
+    )
     ds["time_bnds"] = (("time", "nv"), np.array([[start, end]], dtype="datetime64[ns]"))
     ds["lat_bnds"] = (("lat", "nv"), _bounds(lat))
     ds["lon_bnds"] = (("lon", "nv"), _bounds(lon))
@@ -144,15 +177,63 @@ def encoding_for(ds: xr.Dataset) -> dict:
     """Compressed float32 storage chunked like the map (CF time units in days)."""
     chunks = (1, min(ds.sizes["lat"], 1024), min(ds.sizes["lon"], 1024))
     enc = {
-        v: {"zlib": True, "complevel": 4, "shuffle": True, "dtype": "float32",
-            "_FillValue": np.float32(np.nan), "chunksizes": chunks}
+        v: {
+            "zlib": True,
+            "complevel": 4,
+            "shuffle": True,
+            "dtype": "float32",
+            "_FillValue": np.float32(np.nan),
+            "chunksizes": chunks,
+        }
         for v in ("npp", "coverage")
     }
     enc["time"] = {"units": "days since 1970-01-01", "calendar": "standard", "dtype": "float64"}
-    enc["time_bnds"] = {"units": "days since 1970-01-01", "calendar": "standard", "dtype": "float64"}
+    enc["time_bnds"] = {
+        "units": "days since 1970-01-01",
+        "calendar": "standard",
+        "dtype": "float64",
+    }
     for c in ("lat", "lon", "lat_bnds", "lon_bnds"):
         enc[c] = {"_FillValue": None}
     return enc
+
+
+def write_lazy(ds: xr.Dataset, tmp: Path, fmt: str):
+    """Start writing ``ds`` to ``tmp`` and return the delayed computation that fills it.
+
+    ``"netcdf"``: one NetCDF-4 file. ``"zarr"``: a Zarr store chunked like the map, so that
+    workers of a cluster write chunks in parallel (suited to multi-year runs).
+    """
+    if fmt == "zarr":
+        enc = {v: {"chunks": ds[v].data.chunksize} for v in ("npp", "coverage")}
+        for v in ("npp", "coverage"):
+            ds[v].encoding = {}
+        return ds.to_zarr(tmp, mode="w", compute=False, encoding=enc, consolidated=True)
+    return ds.to_netcdf(tmp, engine="netcdf4", encoding=encoding_for(ds), compute=False)
+
+
+def remove_path(path: Path) -> None:
+    """Delete a temporary file or Zarr directory if it exists."""
+    import shutil
+
+    p = Path(path)
+    if p.is_dir():
+        shutil.rmtree(p, ignore_errors=True)
+    elif p.exists():
+        p.unlink()
+
+
+def move_into_place(tmp: Path, final: Path) -> None:
+    """Rename a finished temporary output onto its final name (replacing an older result)."""
+    final = Path(final)
+    if Path(tmp).is_dir():
+        old = final.with_name(f".{final.name}.old-{os.getpid()}")
+        if final.exists():
+            os.replace(final, old)
+        os.replace(tmp, final)
+        remove_path(old)
+    else:
+        os.replace(tmp, final)
 
 
 def write_totals_csv(rows: list[dict], final: Path) -> None:

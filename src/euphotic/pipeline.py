@@ -6,7 +6,7 @@ from __future__ import annotations
 
 import contextlib
 import logging
-import os
+import sys
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -83,7 +83,10 @@ def prepare(cfg: RunConfig) -> Prepared:
         days = aggregate.month_days(m)
         covered = np.ones(len(days), bool)
         for da in (chl, par, sst):
-            covered &= aggregate.day_to_period(da["period_start"].values, da["period_end"].values, days) >= 0
+            covered &= (
+                aggregate.day_to_period(da["period_start"].values, da["period_end"].values, days)
+                >= 0
+            )
         (keep if covered.any() else skipped).append(m)
     if not keep:
         raise NoOverlapError(
@@ -104,32 +107,93 @@ def prepare(cfg: RunConfig) -> Prepared:
     for name, m in masks.items():
         if not m.any():
             log.warning("region %r contains no cell centre of the grid", name)
-    return Prepared(chl=chl, par=par, sst=sst, day_length=others.get("day_length"), ocean=ocean_da,
-                    area_m2=area, months=keep, region_masks=masks, skipped_months=skipped)
+    return Prepared(
+        chl=chl,
+        par=par,
+        sst=sst,
+        day_length=others.get("day_length"),
+        ocean=ocean_da,
+        area_m2=area,
+        months=keep,
+        region_masks=masks,
+        skipped_months=skipped,
+    )
 
 
-def _progress_context(progress: bool):
-    if not progress:
-        return contextlib.nullcontext()
-    try:
-        from distributed import get_client
+@contextlib.contextmanager
+def compute_engine(
+    scheduler: str | None = None, workers: int | None = None, threads_per_worker: int | None = None
+):
+    """Where the one compute runs: the local threaded scheduler (default), an existing
+    dask.distributed scheduler at ``scheduler`` (e.g. ``tcp://host:8786``), or a LocalCluster
+    of ``workers`` processes started for this run. Yields the distributed Client or None."""
+    if scheduler and workers:
+        raise ValueError("give either a scheduler address or a number of workers, not both")
+    if not scheduler and not workers:
+        yield None
+        return
+    from distributed import Client, LocalCluster
 
-        get_client()
-        return contextlib.nullcontext()  # a distributed client reports its own progress
-    except (ImportError, ValueError):
-        pass
-    from dask.diagnostics import ProgressBar
+    if scheduler:
+        with Client(scheduler, set_as_default=True) as client:
+            yield client
+        return
+    with (
+        LocalCluster(
+            n_workers=int(workers),
+            threads_per_worker=threads_per_worker or 1,
+            processes=True,
+            dashboard_address=None,
+        ) as cluster,
+        Client(cluster, set_as_default=True) as client,
+    ):
+        yield client
 
-    return ProgressBar(minimum=1.0, dt=0.5)
+
+def _compute(objs, *, client, progress: bool):
+    """Compute ``objs`` once, with a progress bar when asked."""
+    if client is not None:
+        futures = client.compute(objs)
+        if progress:
+            from distributed import progress as dist_progress
+
+            dist_progress(futures)
+            print(file=sys.stderr)
+        return client.gather(futures)
+    if progress:
+        from dask.diagnostics import ProgressBar
+
+        with ProgressBar(minimum=1.0, dt=0.5):
+            return dask.compute(*objs)
+    return dask.compute(*objs)
 
 
-def run(cfg: RunConfig, *, progress: bool = True, command: str = "euphotic run") -> RunResult:
-    """Produce monthly maps, the regional totals table and figures for a configuration."""
+def run(
+    cfg: RunConfig,
+    *,
+    progress: bool = True,
+    command: str = "euphotic run",
+    scheduler: str | None = None,
+    workers: int | None = None,
+) -> RunResult:
+    """Produce monthly maps, the regional totals table and figures for a configuration.
+
+    ``scheduler`` / ``workers`` choose a dask.distributed engine (see :func:`compute_engine`);
+    by default the local threaded scheduler runs the graph.
+    """
+    with compute_engine(scheduler, workers) as client:
+        return _run(cfg, progress=progress, command=command, client=client)
+
+
+def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
     prep = prepare(cfg)
     out_dir = Path(cfg.output_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
-    input_files = {"chl": prep.chl.attrs["files"], "par": prep.par.attrs["files"],
-                   "sst": prep.sst.attrs["files"]}
+    input_files = {
+        "chl": prep.chl.attrs["files"],
+        "par": prep.par.attrs["files"],
+        "sst": prep.sst.attrs["files"],
+    }
     if prep.day_length is not None:
         input_files["day_length"] = prep.day_length.attrs["files"]
 
@@ -139,37 +203,52 @@ def run(cfg: RunConfig, *, progress: bool = True, command: str = "euphotic run")
         model = get_model(model_name)
         for month in prep.months:
             maps = aggregate.monthly_npp(
-                model, model_name, month, chl=prep.chl, par=prep.par, sst=prep.sst,
-                ocean=prep.ocean, day_length=prep.day_length,
+                model,
+                model_name,
+                month,
+                chl=prep.chl,
+                par=prep.par,
+                sst=prep.sst,
+                ocean=prep.ocean,
+                day_length=prep.day_length,
             )
-            ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command)
-            final = out_dir / f"{outputs.month_stem(maps)}.nc"
+            ds = outputs.month_dataset(
+                maps, title=cfg.title, input_files=input_files, command=command
+            )
+            final = (
+                out_dir
+                / f"{outputs.month_stem(maps)}.{'zarr' if cfg.output_format == 'zarr' else 'nc'}"
+            )
             tmp = outputs.temp_path(final)
             temps.append(tmp)
-            writes.append(ds.to_netcdf(tmp, engine="netcdf4", encoding=outputs.encoding_for(ds), compute=False))
+            writes.append(outputs.write_lazy(ds, tmp, cfg.output_format))
             finals.append((tmp, final))
             for name, mask in prep.region_masks.items():
                 lazies.append(aggregate.region_sums(maps, name, mask, ocean_w, prep.area_m2))
 
-    sums = [(z.observed_area_m2, z.integral_mg_d, z.coverage_area_m2, z.ocean_area_m2) for z in lazies]
+    sums = [
+        (z.observed_area_m2, z.integral_mg_d, z.coverage_area_m2, z.ocean_area_m2) for z in lazies
+    ]
     try:
-        with _progress_context(progress):
-            _, computed = dask.compute(writes, sums)
+        _, computed = _compute([writes, sums], client=client, progress=progress)
     except BaseException:
         for t in temps:
-            with contextlib.suppress(FileNotFoundError):
-                os.unlink(t)
+            outputs.remove_path(t)
         raise
     for tmp, final in finals:
-        os.replace(tmp, final)
+        outputs.move_into_place(tmp, final)
     rows = [
         aggregate.finish_totals(z, float(o), float(i), float(c), float(a))
         for z, (o, i, c, a) in zip(lazies, computed, strict=True)
     ]
     totals = out_dir / "regional_totals.csv"
     outputs.write_totals_csv(rows, totals)
-    result = RunResult(maps=[f for _, f in finals], totals_csv=totals, rows=rows,
-                       skipped_months=prep.skipped_months)
+    result = RunResult(
+        maps=[f for _, f in finals],
+        totals_csv=totals,
+        rows=rows,
+        skipped_months=prep.skipped_months,
+    )
     if cfg.figures:
         from euphotic import figures
 

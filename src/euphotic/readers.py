@@ -40,8 +40,12 @@ STANDARD_NAMES: dict[str, tuple[str, ...]] = {
         "downwelling_photosynthetic_photon_flux_in_sea_water",
         "downwelling_photosynthetic_radiative_flux_in_sea_water",
     ),
-    "sst": ("sea_surface_temperature", "sea_surface_skin_temperature",
-            "sea_surface_subskin_temperature", "sea_surface_foundation_temperature"),
+    "sst": (
+        "sea_surface_temperature",
+        "sea_surface_skin_temperature",
+        "sea_surface_subskin_temperature",
+        "sea_surface_foundation_temperature",
+    ),
     "day_length": ("day_length",),
 }
 
@@ -104,7 +108,18 @@ def _to_day(value) -> np.datetime64:
     """A cftime/datetime/date -> numpy datetime64[D] (calendar date as written)."""
     if isinstance(value, np.datetime64):
         return value.astype("datetime64[D]")
-    return np.datetime64(dt.date(value.year, value.month, value.day), "D")
+    try:
+        return np.datetime64(dt.date(value.year, value.month, value.day), "D")
+    except ValueError:
+        cal = getattr(value, "calendar", "") or "non-standard"
+        raise _CalendarDateError(
+            f"date {value.year:04d}-{value.month:02d}-{value.day:02d} of the {cal!r} calendar has "
+            "no day in the real calendar; give dates with `date_pattern` in the config"
+        ) from None
+
+
+class _CalendarDateError(ValueError):
+    """A model-calendar date (e.g. 30 February of a 360-day year) with no real day."""
 
 
 def _ceil_day(value) -> np.datetime64:
@@ -112,14 +127,19 @@ def _ceil_day(value) -> np.datetime64:
     day = _to_day(value)
     if isinstance(value, np.datetime64):
         return day if value == day.astype(value.dtype) else day + 1
-    midnight = (value.hour, value.minute, value.second, getattr(value, "microsecond", 0)) == (0, 0, 0, 0)
+    midnight = (value.hour, value.minute, value.second, getattr(value, "microsecond", 0)) == (
+        0,
+        0,
+        0,
+        0,
+    )
     return day if midnight else day + 1
 
 
 def _parse_iso(text: str, path: str, key: str):
     t = str(text).strip()
     try:
-        if re.fullmatch(r"\d{4}-\d{2}-\d{2}", t):
+        if re.fullmatch(r"\d{4}-\d{2}-\d{2}|\d{8}", t):  # extended or basic ISO 8601 date
             return dt.date.fromisoformat(t), True
         t = t.replace("Z", "+00:00")
         value = dt.datetime.fromisoformat(t)
@@ -127,7 +147,9 @@ def _parse_iso(text: str, path: str, key: str):
             value = value.astimezone(dt.UTC).replace(tzinfo=None)
         return value, False
     except ValueError:
-        raise InputFileError(path, f"global attribute {key}={text!r} is not an ISO 8601 date") from None
+        raise InputFileError(
+            path, f"global attribute {key}={text!r} is not an ISO 8601 date"
+        ) from None
 
 
 def _month_end(day: np.datetime64) -> np.datetime64:
@@ -143,7 +165,9 @@ def _period_length(period, start: np.datetime64, path: str) -> np.datetime64:
     try:
         n = int(str(period).removesuffix("-day").removesuffix("D").removesuffix("d"))
     except ValueError:
-        raise InputFileError(path, f"period {period!r} is not 'day', 'month' or a number of days") from None
+        raise InputFileError(
+            path, f"period {period!r} is not 'day', 'month' or a number of days"
+        ) from None
     return start + n
 
 
@@ -154,11 +178,16 @@ def _dates_from_name(spec: InputSpec, path: str):
     try:
         start = np.datetime64(dt.datetime.strptime(m.group("start"), spec.date_format).date(), "D")
         if m.groupdict().get("end"):
-            end = np.datetime64(dt.datetime.strptime(m.group("end"), spec.date_format).date(), "D") + 1
+            end = (
+                np.datetime64(dt.datetime.strptime(m.group("end"), spec.date_format).date(), "D")
+                + 1
+            )
         else:
             end = _period_length(spec.period, start, path)
     except ValueError as exc:
-        raise InputFileError(path, f"date in file name does not fit date_format {spec.date_format!r}: {exc}") from None
+        raise InputFileError(
+            path, f"date in file name does not fit date_format {spec.date_format!r}: {exc}"
+        ) from None
     return np.array([start]), np.array([end])
 
 
@@ -171,7 +200,9 @@ def _dates_from_acdd(ds: xr.Dataset, path: str):
     s = _to_day(start)
     e = _to_day(end) + 1 if date_only else _ceil_day(end)
     if e <= s:
-        raise InputFileError(path, f"time_coverage_end {b!r} is not after time_coverage_start {a!r}")
+        raise InputFileError(
+            path, f"time_coverage_end {b!r} is not after time_coverage_start {a!r}"
+        )
     return np.array([s]), np.array([e])
 
 
@@ -181,7 +212,9 @@ def _decode_time(var: xr.Variable, path: str, name: str):
         raise InputFileError(path, f"time variable {name!r} has no 'UNITS since DATE' units")
     cal = var.attrs.get("calendar", "standard")
     try:
-        return cftime.num2date(np.asarray(var.values), units_, calendar=cal, only_use_cftime_datetimes=True)
+        return cftime.num2date(
+            np.asarray(var.values), units_, calendar=cal, only_use_cftime_datetimes=True
+        )
     except Exception as exc:
         raise InputFileError(path, f"cannot decode time variable {name!r}: {exc}") from None
 
@@ -204,7 +237,8 @@ def _find_variable(ds: xr.Dataset, spec: InputSpec, path: str) -> str:
     if spec.variable:
         if spec.variable not in ds.data_vars:
             raise InputFileError(
-                path, f"no variable {spec.variable!r} (data variables: {', '.join(ds.data_vars) or 'none'})"
+                path,
+                f"no variable {spec.variable!r} (data variables: {', '.join(ds.data_vars) or 'none'})",
             )
         return spec.variable
     for std in STANDARD_NAMES[spec.role]:
@@ -221,9 +255,14 @@ def _find_variable(ds: xr.Dataset, spec: InputSpec, path: str) -> str:
 
 def _find_axis(ds: xr.Dataset, da: xr.DataArray, axis: str, path: str) -> str:
     std = {"lat": "latitude", "lon": "longitude"}[axis]
-    unit_ok = {"lat": ("degrees_north", "degree_north", "degree_N", "degrees_N", "degreeN", "degreesN"),
-               "lon": ("degrees_east", "degree_east", "degree_E", "degrees_E", "degreeE", "degreesE")}[axis]
-    names = {"lat": ("lat", "latitude", "y", "nav_lat"), "lon": ("lon", "longitude", "x", "nav_lon")}[axis]
+    unit_ok = {
+        "lat": ("degrees_north", "degree_north", "degree_N", "degrees_N", "degreeN", "degreesN"),
+        "lon": ("degrees_east", "degree_east", "degree_E", "degrees_E", "degreeE", "degreesE"),
+    }[axis]
+    names = {
+        "lat": ("lat", "latitude", "y", "nav_lat"),
+        "lon": ("lon", "longitude", "x", "nav_lon"),
+    }[axis]
     for d in da.dims:
         c = ds[d] if d in ds.variables else None
         attrs = c.attrs if c is not None else {}
@@ -231,7 +270,9 @@ def _find_axis(ds: xr.Dataset, da: xr.DataArray, axis: str, path: str) -> str:
             if c is None:
                 raise InputFileError(path, f"dimension {d!r} has no {std} coordinate values")
             if c.ndim != 1:
-                raise GridMismatchError(path, f"{std} is not one-dimensional: only regular lat-lon grids are read")
+                raise GridMismatchError(
+                    path, f"{std} is not one-dimensional: only regular lat-lon grids are read"
+                )
             return d
     raise InputFileError(path, f"variable {da.name!r} has no {std} dimension (dims: {da.dims})")
 
@@ -247,12 +288,14 @@ def _apply_valid_range(da: xr.DataArray, enc: dict, attrs: dict) -> xr.DataArray
     scale = enc.get("scale_factor", 1.0)
     offset = enc.get("add_offset", 0.0)
     packed_dtype = np.dtype(enc.get("dtype", da.dtype))
-    packed = ("scale_factor" in enc or "add_offset" in enc)
+    packed = "scale_factor" in enc or "add_offset" in enc
 
     def unpack(v):
         v = np.asarray(v)
         # NUG/CF: on packed data the valid range is stated in the packed (stored) type.
-        if packed and (v.dtype == packed_dtype or packed_dtype.kind in "iu" and v.dtype.kind in "iu"):
+        if packed and (
+            v.dtype == packed_dtype or packed_dtype.kind in "iu" and v.dtype.kind in "iu"
+        ):
             return float(v) * float(scale) + float(offset)
         return float(v)
 
@@ -269,8 +312,12 @@ def _convert_units(da: xr.DataArray, spec: InputSpec, path: str, name: str) -> x
     given = spec.units or da.attrs.get("units")
     if given is None or not str(given).strip():
         if spec.role == "chl":
-            raise InputFileError(path, f"variable {name!r} has no units attribute; set `units` in the config")
-        raise InputFileError(path, f"variable {name!r} has no units attribute; set `units` in the config")
+            raise InputFileError(
+                path, f"variable {name!r} has no units attribute; set `units` in the config"
+            )
+        raise InputFileError(
+            path, f"variable {name!r} has no units attribute; set `units` in the config"
+        )
     try:
         if spec.role == "par":
             factor, _kind = units.par_factors(given)
@@ -284,8 +331,9 @@ def _convert_units(da: xr.DataArray, spec: InputSpec, path: str, name: str) -> x
             if b != 0.0:
                 out = out + b
     except units.UnitError as exc:
-        raise InputFileError(path, f"variable {name!r}: {exc} (expected units like "
-                             f"{TARGET_UNITS[spec.role]!r})") from None
+        raise InputFileError(
+            path, f"variable {name!r}: {exc} (expected units like {TARGET_UNITS[spec.role]!r})"
+        ) from None
     return out
 
 
@@ -301,7 +349,9 @@ def normalize_lon(da: xr.DataArray, path: str, convention: str | None = None) ->
             if not np.all(order == np.arange(len(order))):
                 out = out.isel(lon=order)
             return out
-    raise GridMismatchError(path, "longitudes are not a regular axis (after wrapping to -180..180 and 0..360)")
+    raise GridMismatchError(
+        path, "longitudes are not a regular axis (after wrapping to -180..180 and 0..360)"
+    )
 
 
 def _open_one(spec: InputSpec, path: str) -> _Piece:
@@ -315,7 +365,9 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
             cache=False,
         )
     except (OSError, ValueError) as exc:
-        raise InputFileError(path, f"cannot be opened as NetCDF ({exc.__class__.__name__}: {exc})") from None
+        raise InputFileError(
+            path, f"cannot be opened as NetCDF ({exc.__class__.__name__}: {exc})"
+        ) from None
     name = _find_variable(ds, spec, path)
     da = ds[name]
     enc = dict(da.encoding)
@@ -329,15 +381,19 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
     for d in other:
         c = ds[d] if d in ds.variables else None
         is_time = c is not None and (
-            c.attrs.get("standard_name") == "time" or c.attrs.get("axis") == "T"
-            or "since" in str(c.attrs.get("units", "")) or d.lower() in ("time", "t")
+            c.attrs.get("standard_name") == "time"
+            or c.attrs.get("axis") == "T"
+            or "since" in str(c.attrs.get("units", ""))
+            or d.lower() in ("time", "t")
         )
         if is_time and time_d is None:
             time_d = d
         elif da.sizes[d] == 1:
             da = da.isel({d: 0}, drop=True)
         else:
-            raise InputFileError(path, f"variable {name!r} has an extra dimension {d!r} of size {da.sizes[d]}")
+            raise InputFileError(
+                path, f"variable {name!r} has an extra dimension {d!r} of size {da.sizes[d]}"
+            )
     da = da.rename({lat_d: "lat", lon_d: "lon"})
 
     # --- dates
@@ -345,14 +401,19 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
     if spec.date_pattern:
         start, end = _dates_from_name(spec, path)
         if time_d is not None and da.sizes[time_d] != 1:
-            raise InputFileError(path, "date_pattern dates one period per file, but the file has "
-                                       f"{da.sizes[time_d]} time steps")
+            raise InputFileError(
+                path,
+                "date_pattern dates one period per file, but the file has "
+                f"{da.sizes[time_d]} time steps",
+            )
     elif time_d is not None:
         tvar = ds[time_d].variable
         bname = ds[time_d].attrs.get("bounds")
         if bname and bname in ds.variables:
             b = _decode_time(
-                xr.Variable(ds[bname].dims, ds[bname].values, {**tvar.attrs, **ds[bname].attrs}), path, bname
+                xr.Variable(ds[bname].dims, ds[bname].values, {**tvar.attrs, **ds[bname].attrs}),
+                path,
+                bname,
             )
             b = np.asarray(b).reshape(-1, 2)
             start = np.array([_to_day(x) for x in b[:, 0]])
@@ -365,13 +426,18 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
     else:
         acdd = _dates_from_acdd(ds, path)
         if acdd is None:
-            scalar = [c for c in ds.coords if ds[c].ndim == 0 and "since" in str(ds[c].attrs.get("units", ""))]
+            scalar = [
+                c
+                for c in ds.coords
+                if ds[c].ndim == 0 and "since" in str(ds[c].attrs.get("units", ""))
+            ]
             if scalar:
                 stamps = np.atleast_1d(_decode_time(ds[scalar[0]].variable, path, scalar[0]))
             else:
                 raise InputFileError(
-                    path, "no time information: no time coordinate, no time_coverage_start/end "
-                          "attributes, and no date_pattern in the config"
+                    path,
+                    "no time information: no time coordinate, no time_coverage_start/end "
+                    "attributes, and no date_pattern in the config",
                 )
         else:
             start, end = acdd
@@ -391,12 +457,18 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
     # --- grid
     lat = da["lat"].values.astype(np.float64)
     if lat.size > 1 and not is_regular(lat):
-        raise GridMismatchError(path, "latitudes are not a regular axis: only regular lat-lon grids are read")
+        raise GridMismatchError(
+            path, "latitudes are not a regular axis: only regular lat-lon grids are read"
+        )
     if lat.size > 1 and lat[1] < lat[0]:
         da = da.isel(lat=slice(None, None, -1))
     da = da.assign_coords(lat=da["lat"].values.astype(np.float64))
     da = normalize_lon(da, path)
-    da.attrs = {"units": TARGET_UNITS[spec.role], "long_name": LONG_NAMES[spec.role], "source_variable": name}
+    da.attrs = {
+        "units": TARGET_UNITS[spec.role],
+        "long_name": LONG_NAMES[spec.role],
+        "source_variable": name,
+    }
     return _Piece(path=path, data=da, start=start, end=end, stamps=stamps)
 
 
@@ -446,19 +518,42 @@ def open_input(spec: InputSpec) -> xr.DataArray:
     """
     paths = spec.paths()
     _small_chunk_cache()
-    pieces = [_open_one(spec, p) for p in paths]
-    _resolve_stamps(pieces, spec)
+    pieces = []
+    for p in paths:
+        try:
+            pieces.append(_open_one(spec, p))
+        except _CalendarDateError as exc:
+            raise InputFileError(p, str(exc)) from None
+    try:
+        _resolve_stamps(pieces, spec)
+    except _CalendarDateError as exc:
+        bad = next((p.path for p in pieces if p.stamps is not None), paths[0])
+        raise InputFileError(bad, str(exc)) from None
     ref = pieces[0].data
     arrays = []
     for p in pieces:
         d = p.data
-        if not (same_axis(d.lat.values, ref.lat.values) and same_axis(d.lon.values, ref.lon.values)):
-            raise GridMismatchError(p.path, f"grid differs from the first {spec.role} file {pieces[0].path}")
+        if not (
+            same_axis(d.lat.values, ref.lat.values) and same_axis(d.lon.values, ref.lon.values)
+        ):
+            raise GridMismatchError(
+                p.path, f"grid differs from the first {spec.role} file {pieces[0].path}"
+            )
         arrays.append(d.assign_coords(lat=ref.lat.values, lon=ref.lon.values))
     starts = np.concatenate([p.start for p in pieces]).astype("datetime64[D]")
     ends = np.concatenate([p.end for p in pieces]).astype("datetime64[D]")
-    out = xr.concat(arrays, dim="time", coords="minimal", compat="override", join="override",
-                    combine_attrs="override") if len(arrays) > 1 else arrays[0]
+    out = (
+        xr.concat(
+            arrays,
+            dim="time",
+            coords="minimal",
+            compat="override",
+            join="override",
+            combine_attrs="override",
+        )
+        if len(arrays) > 1
+        else arrays[0]
+    )
     out = out.assign_coords(
         time=("time", starts.astype("datetime64[ns]")),
         period_start=("time", starts.astype("datetime64[ns]")),
@@ -486,6 +581,8 @@ def match_grid(da: xr.DataArray, target: xr.DataArray, path: str) -> xr.DataArra
 
 def grid_summary(da: xr.DataArray) -> str:
     """One line describing a grid, for messages and `euphotic inspect`."""
-    return (f"{da.sizes['lat']} x {da.sizes['lon']} cells, lat {float(da.lat[0]):g}..{float(da.lat[-1]):g} "
-            f"step {abs(axis_step(da.lat.values)):g}, lon {float(da.lon[0]):g}..{float(da.lon[-1]):g} "
-            f"step {abs(axis_step(da.lon.values)):g}")
+    return (
+        f"{da.sizes['lat']} x {da.sizes['lon']} cells, lat {float(da.lat[0]):g}..{float(da.lat[-1]):g} "
+        f"step {abs(axis_step(da.lat.values)):g}, lon {float(da.lon[0]):g}..{float(da.lon[-1]):g} "
+        f"step {abs(axis_step(da.lon.values)):g}"
+    )

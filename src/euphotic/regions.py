@@ -38,7 +38,9 @@ def box_geometry(west: float, south: float, east: float, north: float):
     from shapely.geometry import MultiPolygon, box
 
     if not (-90.0 <= south < north <= 90.0):
-        raise ValueError(f"box south {south} / north {north} must satisfy -90 <= south < north <= 90")
+        raise ValueError(
+            f"box south {south} / north {north} must satisfy -90 <= south < north <= 90"
+        )
     if west > east:  # crosses the antimeridian, as in RFC 7946 bbox
         return MultiPolygon([box(west, south, 180.0, north), box(-180.0, south, east, north)])
     return box(west, south, east, north)
@@ -86,10 +88,14 @@ def netcdf_on_grid(path, variable, lat, lon, *, what: str) -> np.ndarray:
         if variable is None:
             candidates = [v for v in ds.data_vars if ds[v].ndim == 2]
             if len(candidates) != 1:
-                raise InputFileError(path, f"give the {what} `variable`: candidates are {candidates}")
+                raise InputFileError(
+                    path, f"give the {what} `variable`: candidates are {candidates}"
+                )
             variable = candidates[0]
         if variable not in ds:
-            raise InputFileError(path, f"no variable {variable!r} in {what} (has {list(ds.data_vars)})")
+            raise InputFileError(
+                path, f"no variable {variable!r} in {what} (has {list(ds.data_vars)})"
+            )
         da = _to_lat_lon(ds[variable], path)
         conv = "0to360" if float(np.max(lon)) > 180.0 else "pm180"
         da = normalize_lon(da, str(path), convention=conv)
@@ -98,10 +104,16 @@ def netcdf_on_grid(path, variable, lat, lon, *, what: str) -> np.ndarray:
         if not (same_axis(da.lat.values, lat) and same_axis(da.lon.values, lon)):
             step = abs(float(lat[1] - lat[0])) if len(lat) > 1 else 1.0
             try:
-                da = da.sel(lat=xr.DataArray(lat, dims="lat"), lon=xr.DataArray(lon, dims="lon"),
-                            method="nearest", tolerance=0.5 * step + 1e-9)
+                da = da.sel(
+                    lat=xr.DataArray(lat, dims="lat"),
+                    lon=xr.DataArray(lon, dims="lon"),
+                    method="nearest",
+                    tolerance=0.5 * step + 1e-9,
+                )
             except KeyError:
-                raise InputFileError(path, f"{what} grid does not cover the chlorophyll grid") from None
+                raise InputFileError(
+                    path, f"{what} grid does not cover the chlorophyll grid"
+                ) from None
         return np.asarray(da.values, dtype=np.float64)
 
 
@@ -114,7 +126,9 @@ def _to_lat_lon(da: xr.DataArray, path) -> xr.DataArray:
         elif low in ("lon", "longitude", "x"):
             names[d] = "lon"
     if sorted(names.values()) != ["lat", "lon"]:
-        raise InputFileError(path, f"region mask {da.name!r} must have lat and lon dimensions, has {da.dims}")
+        raise InputFileError(
+            path, f"region mask {da.name!r} must have lat and lon dimensions, has {da.dims}"
+        )
     return da.rename(names).transpose("lat", "lon")
 
 
@@ -133,7 +147,9 @@ def _geojson_geometries(path: Path, name_property: str | None):
     elif kind in ("Polygon", "MultiPolygon", "GeometryCollection"):
         feats = [{"type": "Feature", "geometry": obj, "properties": {}}]
     else:
-        raise InputFileError(path, f"GeoJSON type {kind!r} is not a Feature, FeatureCollection or Polygon")
+        raise InputFileError(
+            path, f"GeoJSON type {kind!r} is not a Feature, FeatureCollection or Polygon"
+        )
     out = []
     for i, f in enumerate(feats):
         geom = f.get("geometry")
@@ -165,7 +181,9 @@ def regions_from_config(items: list[dict], base_dir: Path, source: str) -> list[
         name = item.get("name")
         if kind == "box":
             b = item["box"]
-            if not (isinstance(b, list) and len(b) == 4 and all(isinstance(x, int | float) for x in b)):
+            if not (
+                isinstance(b, list) and len(b) == 4 and all(isinstance(x, int | float) for x in b)
+            ):
                 raise ConfigError(where, "`box` must be [west, south, east, north] in degrees")
             if not name:
                 raise ConfigError(where, "a box region needs a `name`")
@@ -192,9 +210,14 @@ def regions_from_config(items: list[dict], base_dir: Path, source: str) -> list[
             vals = item.get("values", item.get("value"))
             if vals is not None and not isinstance(vals, list):
                 vals = [vals]
-            regions.append(Region(name, mask_file=str((base_dir / item["mask"]).resolve()),
-                                  mask_variable=item.get("variable"),
-                                  mask_values=tuple(vals) if vals is not None else None))
+            regions.append(
+                Region(
+                    name,
+                    mask_file=str((base_dir / item["mask"]).resolve()),
+                    mask_variable=item.get("variable"),
+                    mask_values=tuple(vals) if vals is not None else None,
+                )
+            )
     names = [r.name for r in regions]
     dupes = sorted({n for n in names if names.count(n) > 1})
     if dupes:

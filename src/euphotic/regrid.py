@@ -52,16 +52,18 @@ def _coarsen_axis(da: xr.DataArray, dim: str, target: np.ndarray, path: str) -> 
     r = int(round(ratio))
     if abs(ratio - r) > COORD_RTOL * r:
         raise GridMismatchError(
-            path, f"{dim} spacing {s_step:g} is finer than the target {t_step:g} by a "
-            f"non-whole ratio {ratio:.3f}; cannot area-average onto the target grid"
+            path,
+            f"{dim} spacing {s_step:g} is finer than the target {t_step:g} by a "
+            f"non-whole ratio {ratio:.3f}; cannot area-average onto the target grid",
         )
     first_edge = target[0] - 0.5 * t_step
     start = (first_edge + 0.5 * s_step - src[0]) / s_step
     i0 = int(round(start))
     if abs(start - i0) > 0.05 or i0 < 0 or i0 + r * len(target) > len(src):
         raise GridMismatchError(
-            path, f"{dim} cells do not line up with or do not cover the target grid "
-            f"({src[0]:g}..{src[-1]:g} step {s_step:g} vs {target[0]:g}..{target[-1]:g} step {t_step:g})"
+            path,
+            f"{dim} cells do not line up with or do not cover the target grid "
+            f"({src[0]:g}..{src[-1]:g} step {s_step:g} vs {target[0]:g}..{target[-1]:g} step {t_step:g})",
         )
     sub = da.isel({dim: slice(i0, i0 + r * len(target))})
     if dim == "lat":
@@ -75,7 +77,9 @@ def _coarsen_axis(da: xr.DataArray, dim: str, target: np.ndarray, path: str) -> 
     return out.assign_coords({dim: target})
 
 
-def _interp_axis(da: xr.DataArray, dim: str, target: np.ndarray, path: str, cyclic: bool) -> xr.DataArray:
+def _interp_axis(
+    da: xr.DataArray, dim: str, target: np.ndarray, path: str, cyclic: bool
+) -> xr.DataArray:
     src = da[dim].values.astype(np.float64)
     step = axis_step(src)
     n = len(src)
@@ -89,8 +93,9 @@ def _interp_axis(da: xr.DataArray, dim: str, target: np.ndarray, path: str, cycl
         half = 0.5 * step + COORD_RTOL * step
         if target[0] < src[0] - half or target[-1] > src[-1] + half:
             raise GridMismatchError(
-                path, f"{dim} {src[0]:g}..{src[-1]:g} does not cover the target "
-                f"{target[0]:g}..{target[-1]:g}"
+                path,
+                f"{dim} {src[0]:g}..{src[-1]:g} does not cover the target "
+                f"{target[0]:g}..{target[-1]:g}",
             )
         pos = np.clip((target - src[0]) / step, 0.0, n - 1.0)
         i0 = np.clip(np.floor(pos).astype(np.int64), 0, max(n - 2, 0))

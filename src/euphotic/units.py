@@ -19,9 +19,29 @@ from euphotic.constants import PAR_UMOL_PER_J, SECONDS_PER_DAY
 if "einstein" not in ureg:
     ureg.define("einstein = mole = E")
 # Temperature spellings seen in gridded products that the registry does not know.
-for _alias in ("degrees_C", "degrees_Celsius", "deg_Celsius"):
+# (UDUNITS-2 lib/udunits2-common.xml lists these spellings.)
+for _alias in (
+    "degrees_C",
+    "degrees_Celsius",
+    "deg_Celsius",
+    "degree_C",
+    "degreesC",
+    "degs_C",
+    "degsC",
+):
     if _alias not in ureg:
         ureg.define(f"@alias degree_Celsius = {_alias}")
+for _alias in (
+    "degree_K",
+    "degrees_K",
+    "degree_kelvin",
+    "degrees_kelvin",
+    "degreesK",
+    "degs_K",
+    "degsK",
+):
+    if _alias not in ureg:
+        ureg.define(f"@alias kelvin = {_alias}")
 
 _PHOTON_WORDS = re.compile(r"\b(photons?|quanta)\b", re.IGNORECASE)
 
@@ -41,7 +61,7 @@ def parse_units(text: str) -> pint.Unit:
     """Parse a CF/UDUNITS units string (e.g. ``"mg m-3"``, ``"einstein m-2 day-1"``)."""
     if text is None or not str(text).strip():
         raise UnitError("has no units attribute")
-    cleaned = _PHOTON_WORDS.sub("", str(text)).strip()
+    cleaned = _PHOTON_WORDS.sub("", str(text)).replace("\u2103", "degC").strip()
     cleaned = re.sub(r"\s+", " ", cleaned)
     # "ug/L", "umol/m^2/s" and "mg.m-3" are all in use.
     if re.fullmatch(r"[A-Za-z]+(\.[A-Za-z0-9^-]+)+", cleaned):

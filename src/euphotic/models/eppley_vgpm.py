@@ -68,5 +68,7 @@ def eppley_vgpm(chl, par, sst, day_length):
     par = as_units(par, "mol m-2 d-1", "par")
     sst = as_units(sst, "degC", "sst")
     day_length = as_units(day_length, "h", "day_length")
-    kernel = eppley_vgpm_block if (eppley_vgpm_block is not None and use_compiled()) else _eppley_kernel
+    kernel = (
+        eppley_vgpm_block if (eppley_vgpm_block is not None and use_compiled()) else _eppley_kernel
+    )
     return apply_kernel(kernel, chl, par, sst, day_length, name="npp", attrs=_OUTPUT_ATTRS)
