@@ -149,27 +149,34 @@ def test_packaged_ocean_mask_known_places():
 def test_totals_arithmetic_hand_worked():
     """2 x 2 cells of 1e6 m2 each in a 30-day month, one cell never observed (hand-worked):
     rates 100, 200, 300 mg C m-2 d-1 -> integral 600e6 mg/d; observed 3e6 m2; mean 200;
-    total 600e6 * 30 / 1e3 / 1e12 = 1.8e-5 Tg C; filled 200 * 4e6 * 30 / 1e15 = 2.4e-5 Tg C."""
+    total 600e6 * 30 / 1e3 / 1e12 = 1.8e-5 Tg C; filled 200 * 4e6 * 30 / 1e15 = 2.4e-5 Tg C.
+    A second, overlapping region holds only the top-left cell: total 100e6 * 30 / 1e15."""
     npp = xr.DataArray([[100.0, 200.0], [300.0, np.nan]], dims=("lat", "lon"))
     cov = xr.DataArray([[0.5, 0.5], [1.0, 0.0]], dims=("lat", "lon"))
     maps = aggregate.MonthlyMaps(
         month=np.datetime64("2024-04"), model="vgpm", npp=npp, coverage=cov, n_days=30
     )
     ocean = xr.DataArray(np.ones((2, 2), bool), dims=("lat", "lon"))
-    z = aggregate.region_sums(maps, "R", np.ones((2, 2), bool), ocean, np.full((2, 2), 1e6))
-    row = aggregate.finish_totals(
-        z,
-        float(z.observed_area_m2),
-        float(z.integral_mg_d),
-        float(z.coverage_area_m2),
-        float(z.ocean_area_m2),
-    )
+    bits = aggregate.region_bits([np.ones((2, 2), bool), np.array([[True, False], [False, False]])])
+    z = aggregate.region_sums(maps, ["R", "corner"], bits, ocean, np.full(2, 1e6))
+    row, corner = aggregate.finish_totals(z, np.asarray(z.sums.compute()))
     assert row["mean_npp_mg_m2_d"] == pytest.approx(200.0)
     assert row["observed_area_km2"] == pytest.approx(3.0)
     assert row["ocean_area_km2"] == pytest.approx(4.0)
     assert row["coverage"] == pytest.approx(0.5)
     assert row["total_TgC"] == pytest.approx(1.8e-5)
     assert row["total_filled_TgC"] == pytest.approx(2.4e-5)
+    assert corner["total_TgC"] == pytest.approx(3.0e-6)
+    assert corner["ocean_area_km2"] == pytest.approx(1.0)
+
+
+def test_region_bits_many_overlapping():
+    rng = np.random.default_rng(3)
+    masks = [rng.random((5, 7)) > 0.5 for _ in range(40)]
+    bits = aggregate.region_bits(masks)
+    assert bits.dtype == np.uint64
+    for r, m in enumerate(masks):
+        np.testing.assert_array_equal(((bits >> np.uint64(r)) & np.uint64(1)).astype(bool), m)
 
 
 def test_demo_config_loads_all_region_kinds():

@@ -126,69 +126,131 @@ def monthly_npp(
     )
 
 
-@dataclass
-class RegionTotalsLazy:
-    """Lazy sums for one region and month; finish with :func:`finish_totals` once computed."""
+#: Quantities summed per region, in this order.
+SUM_FIELDS = ("ocean_area_m2", "observed_area_m2", "integral_mg_d", "coverage_area_m2")
 
-    region: str
+
+def region_bits(masks: list[np.ndarray]) -> np.ndarray:
+    """Pack up to 64 boolean (lat, lon) masks into one integer array (bit r = region r).
+
+    One small array stands for every region, overlapping ones included, so a single pass over
+    the map computes all regional sums.
+    """
+    n = len(masks)
+    if n > 64:
+        raise ValueError("at most 64 regions per bit array")
+    dtype = np.uint8 if n <= 8 else np.uint16 if n <= 16 else np.uint32 if n <= 32 else np.uint64
+    out = np.zeros(np.shape(masks[0]) if masks else (0, 0), dtype=dtype)
+    for r, m in enumerate(masks):
+        out |= np.asarray(m, bool).astype(dtype) << dtype(r)
+    return out
+
+
+def _block_sums(npp, cov, ocean, bits, area_rows, n_regions):
+    """Per-block partial sums, shape (1, 1, n_regions, 4) (see :data:`SUM_FIELDS`)."""
+    w = np.broadcast_to(area_rows, npp.shape) * np.asarray(ocean, bool)
+    observed = np.isfinite(npp)
+    rate = np.where(observed, npp, 0.0)
+    cv = np.where(np.isfinite(cov), cov, 0.0)
+    out = np.zeros((1, 1, n_regions, len(SUM_FIELDS)))
+    for r in range(n_regions):
+        wr = np.where((bits >> bits.dtype.type(r)) & 1, w, 0.0)
+        out[0, 0, r, 0] = wr.sum()
+        out[0, 0, r, 1] = (wr * observed).sum()
+        out[0, 0, r, 2] = (wr * rate).sum()
+        out[0, 0, r, 3] = (wr * cv).sum()
+    return out
+
+
+@dataclass
+class RegionSumsLazy:
+    """Lazy regional sums for one month and model; finish with :func:`finish_totals`."""
+
+    regions: list[str]
     month: np.datetime64
     model: str
     n_days: int
-    ocean_area_m2: xr.DataArray
-    observed_area_m2: xr.DataArray
-    integral_mg_d: xr.DataArray  # sum of rate * area over observed cells, mg C d-1
-    coverage_area_m2: xr.DataArray  # sum of coverage * area over ocean cells
+    sums: object  # dask or numpy array (n_regions, 4), fields as SUM_FIELDS
 
 
 def region_sums(
-    maps: MonthlyMaps, region: str, mask: np.ndarray, ocean: xr.DataArray, area_m2: np.ndarray
-) -> RegionTotalsLazy:
-    """Lazy area integrals of one monthly map over one region's ocean cells.
+    maps: MonthlyMaps,
+    regions: list[str],
+    bits: np.ndarray,
+    ocean: xr.DataArray,
+    area_rows_m2: np.ndarray,
+) -> RegionSumsLazy:
+    """Lazy area integrals of a monthly map over every region's ocean cells, in one pass.
 
-    ``ocean`` is a boolean (lat, lon) DataArray (lazy when taken from temperature).
+    Parameters
+    ----------
+    bits : integer (lat, lon) array from :func:`region_bits` (bit r set: in ``regions[r]``)
+    ocean : boolean (lat, lon) DataArray (lazy when taken from temperature)
+    area_rows_m2 : (lat,) area of one cell in each grid row, m2 (regular grid)
     """
-    in_region = xr.DataArray(np.where(np.asarray(mask, bool), area_m2, 0.0), dims=("lat", "lon"))
-    oc = ocean.drop_vars([c for c in ocean.coords if c in ("lat", "lon")])
-    w = in_region * oc
-    rate = maps.npp.drop_vars([c for c in maps.npp.coords if c in ("lat", "lon")])
-    cov = maps.coverage.drop_vars([c for c in maps.coverage.coords if c in ("lat", "lon")])
-    observed = rate.notnull()
-    return RegionTotalsLazy(
-        region=region,
+    import dask.array as da
+
+    npp = maps.npp.data
+    if not isinstance(npp, da.Array):
+        npp = da.from_array(np.asarray(npp), chunks=-1)
+    chunks = npp.chunks
+    cov = da.asarray(maps.coverage.data).rechunk(chunks)
+    oc = (
+        da.asarray(ocean.data).rechunk(chunks)
+        if isinstance(ocean.data, da.Array)
+        else da.from_array(np.asarray(ocean.values), chunks=chunks)
+    )
+    b = da.from_array(np.asarray(bits), chunks=chunks)
+    rows = da.from_array(np.asarray(area_rows_m2, np.float64)[:, None], chunks=(chunks[0], 1))
+    n = len(regions)
+    parts = da.map_blocks(
+        _block_sums,
+        npp,
+        cov,
+        oc,
+        b,
+        rows,
+        n,
+        new_axis=[2, 3],
+        chunks=((1,) * len(chunks[0]), (1,) * len(chunks[1]), (n,), (len(SUM_FIELDS),)),
+        dtype=np.float64,
+    )
+    return RegionSumsLazy(
+        regions=list(regions),
         month=maps.month,
         model=maps.model,
         n_days=maps.n_days,
-        ocean_area_m2=w.sum(),
-        observed_area_m2=(w * observed).sum(),
-        integral_mg_d=(rate.fillna(0.0) * w).sum(),
-        coverage_area_m2=(cov.fillna(0.0) * w).sum(),
+        sums=parts.sum(axis=(0, 1)),
     )
 
 
-def finish_totals(
-    lazy: RegionTotalsLazy, observed_m2: float, integral: float, cov_m2: float, ocean_m2: float
-) -> dict:
-    """One row of the regional totals table from computed sums.
+def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray) -> list[dict]:
+    """Rows of the regional totals table from the computed sums.
 
     ``total_TgC``: monthly mean rate integrated over the observed cells, times the days of the
     month. ``total_filled_TgC``: observed area-mean rate times the region's whole ocean area and
     the days of the month.
     """
-    ocean_km2 = ocean_m2 / 1e6
-    observed_km2 = observed_m2 / 1e6
-    mean = integral / observed_m2 if observed_m2 > 0 else np.nan
+    rows = []
     to_tg = lazy.n_days / MG_PER_G / G_PER_TG
-    return {
-        "region": lazy.region,
-        "month": str(lazy.month),
-        "model": lazy.model,
-        "mean_npp_mg_m2_d": mean,
-        "observed_area_km2": observed_km2,
-        "ocean_area_km2": ocean_km2,
-        "coverage": cov_m2 / ocean_m2 if ocean_m2 > 0 else np.nan,
-        "total_TgC": integral * to_tg,
-        "total_filled_TgC": mean * ocean_m2 * to_tg if observed_m2 > 0 else np.nan,
-    }
+    for name, (ocean_m2, observed_m2, integral, cov_m2) in zip(
+        lazy.regions, np.asarray(sums), strict=True
+    ):
+        mean = integral / observed_m2 if observed_m2 > 0 else np.nan
+        rows.append(
+            {
+                "region": name,
+                "month": str(lazy.month),
+                "model": lazy.model,
+                "mean_npp_mg_m2_d": mean,
+                "observed_area_km2": observed_m2 / 1e6,
+                "ocean_area_km2": ocean_m2 / 1e6,
+                "coverage": cov_m2 / ocean_m2 if ocean_m2 > 0 else np.nan,
+                "total_TgC": integral * to_tg,
+                "total_filled_TgC": mean * ocean_m2 * to_tg if observed_m2 > 0 else np.nan,
+            }
+        )
+    return rows
 
 
 def all_periods(arrays: Iterable[xr.DataArray]) -> tuple[np.ndarray, np.ndarray]:

@@ -208,7 +208,7 @@ def write_lazy(ds: xr.Dataset, tmp: Path, fmt: str):
         enc = {v: {"chunks": ds[v].data.chunksize} for v in ("npp", "coverage")}
         for v in ("npp", "coverage"):
             ds[v].encoding = {}
-        return ds.to_zarr(tmp, mode="w", compute=False, encoding=enc, consolidated=True)
+        return ds.to_zarr(tmp, mode="w", compute=False, encoding=enc, zarr_format=2, consolidated=True)
     return ds.to_netcdf(tmp, engine="netcdf4", encoding=encoding_for(ds), compute=False)
 
 

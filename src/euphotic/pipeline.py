@@ -33,7 +33,7 @@ class Prepared:
     sst: xr.DataArray
     day_length: xr.DataArray | None
     ocean: xr.DataArray  # bool (lat, lon); numpy-backed unless taken from temperature
-    area_m2: np.ndarray
+    area_rows_m2: np.ndarray  # (lat,) area of one cell in each row
     months: list[np.datetime64]
     region_masks: dict[str, np.ndarray] = field(default_factory=dict)
     skipped_months: list[np.datetime64] = field(default_factory=list)
@@ -102,7 +102,7 @@ def prepare(cfg: RunConfig) -> Prepared:
         ocean_da = xr.DataArray(ocean_np, dims=("lat", "lon"), coords={"lat": lat, "lon": lon})
     else:
         ocean_da = ocean.temperature_ocean_mask(sst)
-    area = cell_area(lat, lon, earth=cfg.earth)
+    area_rows = cell_area(lat, lon[:2], earth=cfg.earth)[:, 0]  # regular grid: same along a row
     masks = {r.name: r.mask(lat, lon) for r in cfg.regions}
     for name, m in masks.items():
         if not m.any():
@@ -113,7 +113,7 @@ def prepare(cfg: RunConfig) -> Prepared:
         sst=sst,
         day_length=others.get("day_length"),
         ocean=ocean_da,
-        area_m2=area,
+        area_rows_m2=area_rows,
         months=keep,
         region_masks=masks,
         skipped_months=skipped,
@@ -198,7 +198,8 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
         input_files["day_length"] = prep.day_length.attrs["files"]
 
     writes, finals, temps, lazies = [], [], [], []
-    ocean_w = prep.ocean
+    names = list(prep.region_masks)
+    bits = aggregate.region_bits([prep.region_masks[n] for n in names]) if names else None
     for model_name in cfg.models:
         model = get_model(model_name)
         for month in prep.months:
@@ -223,12 +224,12 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
             temps.append(tmp)
             writes.append(outputs.write_lazy(ds, tmp, cfg.output_format))
             finals.append((tmp, final))
-            for name, mask in prep.region_masks.items():
-                lazies.append(aggregate.region_sums(maps, name, mask, ocean_w, prep.area_m2))
+            if names:
+                lazies.append(
+                    aggregate.region_sums(maps, names, bits, prep.ocean, prep.area_rows_m2)
+                )
 
-    sums = [
-        (z.observed_area_m2, z.integral_mg_d, z.coverage_area_m2, z.ocean_area_m2) for z in lazies
-    ]
+    sums = [z.sums for z in lazies]
     try:
         _, computed = _compute([writes, sums], client=client, progress=progress)
     except BaseException:
@@ -238,8 +239,7 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
     for tmp, final in finals:
         outputs.move_into_place(tmp, final)
     rows = [
-        aggregate.finish_totals(z, float(o), float(i), float(c), float(a))
-        for z, (o, i, c, a) in zip(lazies, computed, strict=True)
+        row for z, s in zip(lazies, computed, strict=True) for row in aggregate.finish_totals(z, s)
     ]
     totals = out_dir / "regional_totals.csv"
     outputs.write_totals_csv(rows, totals)
