@@ -22,7 +22,7 @@ import cftime
 import numpy as np
 import xarray as xr
 
-from euphotic import units
+from euphotic import chunkread, units
 from euphotic.errors import GridMismatchError, InputFileError
 from euphotic.regrid import axis_step, is_regular, regrid_like, same_axis
 
@@ -354,6 +354,30 @@ def normalize_lon(da: xr.DataArray, path: str, convention: str | None = None) ->
     )
 
 
+#: Encoding attributes that CF decoding needs (xarray keeps them in ``encoding``).
+_CF_CODING_KEYS = ("_FillValue", "missing_value", "scale_factor", "add_offset", "_Unsigned")
+
+
+def _lazy_values(da: xr.DataArray, name: str, enc: dict, path: str) -> xr.DataArray:
+    """Dask-backed values chunked like the file.
+
+    NetCDF-4 variables with deflate/shuffle filters are read by :mod:`euphotic.chunkread`
+    (parallel decompression outside the HDF5 lock; identical values), then CF-decoded by
+    xarray exactly as the library path would be. Anything else is read through the netCDF
+    library in the file's own chunks (the whole variable for contiguous / netCDF-3 files).
+    """
+    if chunkread.enabled():
+        raw = chunkread.dask_array(path, name)
+        if raw is not None and raw.shape == da.shape:
+            coding = {k: enc[k] for k in _CF_CODING_KEYS if k in enc}
+            var = xr.Variable(da.dims, raw, attrs=coding)
+            decoded = xr.conventions.decode_cf_variable(
+                name, var, mask_and_scale=True, decode_times=False
+            )
+            return da.copy(data=decoded.data)
+    return da.chunk(enc.get("preferred_chunks") or {d: -1 for d in da.dims})
+
+
 def _open_one(spec: InputSpec, path: str) -> _Piece:
     try:
         ds = xr.open_dataset(
@@ -371,8 +395,7 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
     name = _find_variable(ds, spec, path)
     da = ds[name]
     enc = dict(da.encoding)
-    # dask chunks = the file's own chunks (whole variable for contiguous / netCDF-3 files)
-    da = da.chunk(enc.get("preferred_chunks") or {d: -1 for d in da.dims})
+    da = _lazy_values(da, name, enc, path)
     attrs = dict(da.attrs)
     lat_d = _find_axis(ds, da, "lat", path)
     lon_d = _find_axis(ds, da, "lon", path)

@@ -35,16 +35,18 @@ def jit_point(fn: Callable) -> Callable:
     return numba.njit(nogil=True, cache=True, inline="always")(fn)
 
 
-def block_kernel(point: Callable) -> Callable | None:
-    """A numpy block function ``f(chl, par, sst, day_length) -> float64 array`` that evaluates
-    the compiled scalar ``point`` on every broadcast element, releasing the GIL."""
+def jit_loop(fn: Callable) -> Callable | None:
+    """Compile a loop over flat arrays (cached on disk, GIL released); None without numba."""
     if not HAVE_NUMBA:
         return None
+    return numba.njit(nogil=True, cache=True)(fn)
 
-    @numba.njit(nogil=True)
-    def loop(c, p, t, d, out):
-        for i in range(out.size):
-            out[i] = point(np.float64(c[i]), np.float64(p[i]), np.float64(t[i]), np.float64(d[i]))
+
+def block_kernel(loop: Callable | None) -> Callable | None:
+    """A numpy block function ``f(chl, par, sst, day_length) -> float64 array`` that runs the
+    compiled ``loop(c, p, t, d, out)`` over the broadcast inputs."""
+    if loop is None:
+        return None
 
     def block(chl, par, sst, day_length):
         arrays = np.broadcast_arrays(

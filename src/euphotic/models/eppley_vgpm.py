@@ -7,8 +7,8 @@ from functools import partial
 import numpy as np
 
 from euphotic.models._apply import apply_kernel, as_units
-from euphotic.models._compiled import block_kernel, jit_point, use_compiled
-from euphotic.models.vgpm import _OUTPUT_ATTRS, make_vgpm_point, vgpm_kernel
+from euphotic.models._compiled import block_kernel, jit_loop, jit_point, use_compiled
+from euphotic.models.vgpm import _OUTPUT_ATTRS, vgpm_kernel, vgpm_point_with
 
 #: P^B_opt = EPPLEY_A * 10 ** (EPPLEY_B * T - EPPLEY_C), mg C (mg Chl)-1 h-1, T in degC.
 #: Source (from memory of the literature): the Eppley-VGPM form of Eppley's (1972) exponential
@@ -48,8 +48,15 @@ def pb_opt_eppley_point(t: float) -> float:
     return EPPLEY_A * 10.0 ** (EPPLEY_B * t - EPPLEY_C)
 
 
+def _eppley_vgpm_loop(c, p, t, d, out):
+    for i in range(out.size):
+        out[i] = vgpm_point_with(
+            np.float64(c[i]), np.float64(p[i]), np.float64(d[i]), pb_opt_eppley_point(np.float64(t[i]))
+        )
+
+
 #: Compiled block kernel of the Eppley-VGPM (None without numba).
-eppley_vgpm_block = block_kernel(make_vgpm_point(pb_opt_eppley_point))
+eppley_vgpm_block = block_kernel(jit_loop(_eppley_vgpm_loop))
 
 
 def eppley_vgpm(chl, par, sst, day_length):

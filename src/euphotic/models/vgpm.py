@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from euphotic.models._apply import apply_kernel, as_units
-from euphotic.models._compiled import block_kernel, jit_point, use_compiled
+from euphotic.models._compiled import block_kernel, jit_loop, jit_point, use_compiled
 from euphotic.models.morel_berthon import euphotic_depth, euphotic_depth_point
 
 #: Dimensionless constant of the VGPM (the volume function integrated over depth).
@@ -95,23 +95,26 @@ def pb_opt_point(t: float) -> float:
     return c0 + t * (c1 + t * (c2 + t * (c3 + t * (c4 + t * (c5 + t * (c6 + t * c7))))))
 
 
-def make_vgpm_point(pb_opt_scalar):
-    """The VGPM for one cell with a given P^B_opt(T) (compiled), mg C m-2 d-1."""
+@jit_point
+def vgpm_point_with(chl: float, par: float, dl: float, pb_opt: float) -> float:
+    """The VGPM for one cell given its P^B_opt (compiled), mg C m-2 d-1."""
+    if dl <= 0.0:
+        return 0.0  # no light, no production
+    if not (chl > 0.0 and chl < np.inf) or not (par >= 0.0):
+        return np.nan
+    light = par / (par + VGPM_LIGHT_HALF_SAT)
+    return VGPM_CONSTANT * pb_opt * light * euphotic_depth_point(chl) * chl * dl
 
-    @jit_point
-    def point(chl: float, par: float, sst: float, dl: float) -> float:
-        if dl <= 0.0:
-            return 0.0  # no light, no production
-        if not (chl > 0.0 and chl < np.inf) or not (par >= 0.0):
-            return np.nan
-        light = par / (par + VGPM_LIGHT_HALF_SAT)
-        return VGPM_CONSTANT * pb_opt_scalar(sst) * light * euphotic_depth_point(chl) * chl * dl
 
-    return point
+def _vgpm_loop(c, p, t, d, out):
+    for i in range(out.size):
+        out[i] = vgpm_point_with(
+            np.float64(c[i]), np.float64(p[i]), np.float64(d[i]), pb_opt_point(np.float64(t[i]))
+        )
 
 
 #: Compiled block kernel of the VGPM (None without numba).
-vgpm_block = block_kernel(make_vgpm_point(pb_opt_point))
+vgpm_block = block_kernel(jit_loop(_vgpm_loop))
 
 
 def vgpm(chl, par, sst, day_length):
