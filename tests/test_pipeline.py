@@ -259,6 +259,7 @@ def test_failed_run_leaves_no_file_and_keeps_old_results(tmp_path, monkeypatch):
 
     monkeypatch.setattr(vg, "vgpm_kernel", broken)
     monkeypatch.setattr(vg, "vgpm_block", broken)
+    monkeypatch.setitem(importlib.import_module("euphotic.models").MONTH_BLOCKS, "vgpm", broken)
     with pytest.raises(RuntimeError, match="disk on fire"):
         run(cfg, progress=False)
     assert (out / "npp_vgpm_2024-01.nc").read_bytes() == good

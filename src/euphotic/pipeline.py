@@ -18,7 +18,7 @@ from euphotic import aggregate, ocean, outputs
 from euphotic.config import RunConfig
 from euphotic.errors import NoOverlapError
 from euphotic.geo import cell_area
-from euphotic.models import get_model
+from euphotic.models import get_model, get_month_block
 from euphotic.readers import match_grid, open_input
 
 log = logging.getLogger("euphotic")
@@ -212,6 +212,7 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
                 sst=prep.sst,
                 ocean=prep.ocean,
                 day_length=prep.day_length,
+                month_block=get_month_block(model_name),
             )
             ds = outputs.month_dataset(
                 maps, title=cfg.title, input_files=input_files, command=command

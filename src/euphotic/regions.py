@@ -1,7 +1,7 @@
 """Named regions from the config: lon/lat boxes, GeoJSON polygons, or a NetCDF mask.
 
-A grid cell belongs to a region when its centre falls inside. Polygon masks come from
-regionmask (shapely geometries, antimeridian-split MultiPolygons included).
+A grid cell belongs to a region when its centre falls inside. Polygon masks are burnt in with
+rasterio (shapely geometries, antimeridian-split MultiPolygons included).
 """
 
 from __future__ import annotations
@@ -47,20 +47,42 @@ def box_geometry(west: float, south: float, east: float, north: float):
 
 
 def polygon_mask(geometry, lat: np.ndarray, lon: np.ndarray, name: str = "region") -> np.ndarray:
-    """Cells whose centres fall inside a shapely (Multi)Polygon in lon/lat degrees."""
-    import regionmask
+    """Cells whose centres fall inside a shapely (Multi)Polygon in lon/lat degrees.
 
-    regions = regionmask.Regions([geometry], names=[name], abbrevs=["r0"], numbers=[0])
-    lon = np.asarray(lon, dtype=np.float64)
+    On a regular grid the polygon is burnt in with rasterio's ``rasterize`` (a cell is in when
+    its centre is inside; copies shifted by 360 degrees cover grids in 0..360); on an irregular
+    grid shapely tests every centre.
+    """
+    from shapely.affinity import translate
+
     lat = np.asarray(lat, dtype=np.float64)
-    # regionmask wants the grid in the polygons' longitude convention.
-    lon_q = ((lon + 180.0) % 360.0) - 180.0
-    order = np.argsort(lon_q, kind="stable")
-    m = regions.mask(lon_q[order], lat, wrap_lon=False)
-    inside = np.asarray(m.notnull().values)
-    out = np.empty_like(inside)
-    out[:, order] = inside
-    return out
+    lon = np.asarray(lon, dtype=np.float64)
+    shapes = [geometry]
+    lo, hi = float(lon.min()), float(lon.max())
+    if hi > 180.0:
+        shapes.append(translate(geometry, xoff=360.0))
+    if lo < -180.0:
+        shapes.append(translate(geometry, xoff=-360.0))
+    if len(lat) > 1 and len(lon) > 1 and _regular(lat) and _regular(lon):
+        from rasterio.features import rasterize
+        from rasterio.transform import Affine
+
+        dlat, dlon = (lat[-1] - lat[0]) / (len(lat) - 1), (lon[-1] - lon[0]) / (len(lon) - 1)
+        transform = Affine(dlon, 0.0, lon[0] - dlon / 2, 0.0, dlat, lat[0] - dlat / 2)
+        burnt = rasterize(
+            [(g, 1) for g in shapes], out_shape=(len(lat), len(lon)), transform=transform,
+            fill=0, dtype="uint8", all_touched=False,
+        )
+        return burnt.astype(bool)
+    import shapely
+
+    glon, glat = np.meshgrid(lon, lat)
+    return np.logical_or.reduce([shapely.contains_xy(g, glon, glat) for g in shapes])
+
+
+def _regular(v: np.ndarray) -> bool:
+    d = np.diff(v)
+    return bool(np.all(np.abs(d - d.mean()) <= 1e-6 * abs(d.mean())) and d.mean() != 0)
 
 
 def netcdf_mask(path, variable, values, lat, lon) -> np.ndarray:

@@ -10,15 +10,28 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
-from euphotic.models.eppley_vgpm import eppley_vgpm, pb_opt_eppley
+from euphotic.models._compiled import use_compiled
+from euphotic.models.eppley_vgpm import eppley_vgpm, eppley_vgpm_month_block, pb_opt_eppley
 from euphotic.models.morel_berthon import euphotic_depth
-from euphotic.models.vgpm import pb_opt_behrenfeld_falkowski, vgpm
+from euphotic.models.vgpm import pb_opt_behrenfeld_falkowski, vgpm, vgpm_month_block
 
 #: Model name -> function. A new model is one module and one line here.
 MODELS: dict[str, Callable] = {
     "vgpm": vgpm,
     "eppley_vgpm": eppley_vgpm,
 }
+
+#: Model name -> fused monthly block function (compiled; None or absent: use the model function).
+MONTH_BLOCKS: dict[str, Callable | None] = {
+    "vgpm": vgpm_month_block,
+    "eppley_vgpm": eppley_vgpm_month_block,
+}
+
+
+def get_month_block(name: str) -> Callable | None:
+    """The fused monthly block function of a model, if it has one and compiled code is on."""
+    return MONTH_BLOCKS.get(name) if use_compiled() else None
+
 
 #: Model name -> citation written into output metadata.
 CITATIONS: dict[str, str] = {
@@ -50,6 +63,7 @@ __all__ = [
     "eppley_vgpm",
     "euphotic_depth",
     "get_model",
+    "get_month_block",
     "pb_opt_behrenfeld_falkowski",
     "pb_opt_eppley",
     "vgpm",

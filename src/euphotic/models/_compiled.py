@@ -58,3 +58,25 @@ def block_kernel(loop: Callable | None) -> Callable | None:
         return out
 
     return block
+
+
+def month_block(accumulate: Callable | None) -> Callable | None:
+    """Block function for the fused monthly pass (see :func:`euphotic.aggregate.monthly_npp`).
+
+    ``accumulate(c, p, t, d, ocean, total, count)`` adds one day's valid rates of a (lat, lon)
+    block into ``total`` and 1 into ``count``. The returned function takes blocks shaped
+    (day, lat, lon) for chl/PAR/SST, (day, lat) for day length and (lat, lon) for the ocean
+    mask, and returns (1, 2, lat, lon): the sum of the daily rates and the number of valid days.
+    """
+    if accumulate is None:
+        return None
+
+    def block(chl, par, sst, day_length, ocean):
+        out = np.zeros((1, 2) + chl.shape[1:], dtype=np.float64)
+        oc = np.ascontiguousarray(ocean, dtype=np.bool_)
+        for k in range(chl.shape[0]):
+            accumulate(chl[k], par[k], sst[k], np.ascontiguousarray(day_length[k], dtype=np.float64),
+                       oc, out[0, 0], out[0, 1])
+        return out
+
+    return block

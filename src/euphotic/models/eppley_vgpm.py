@@ -7,7 +7,7 @@ from functools import partial
 import numpy as np
 
 from euphotic.models._apply import apply_kernel, as_units
-from euphotic.models._compiled import block_kernel, jit_loop, jit_point, use_compiled
+from euphotic.models._compiled import block_kernel, jit_loop, jit_point, month_block, use_compiled
 from euphotic.models.vgpm import _OUTPUT_ATTRS, vgpm_kernel, vgpm_point_with
 
 #: P^B_opt = EPPLEY_A * 10 ** (EPPLEY_B * T - EPPLEY_C), mg C (mg Chl)-1 h-1, T in degC.
@@ -57,6 +57,23 @@ def _eppley_vgpm_loop(c, p, t, d, out):
 
 #: Compiled block kernel of the Eppley-VGPM (None without numba).
 eppley_vgpm_block = block_kernel(jit_loop(_eppley_vgpm_loop))
+
+
+def _eppley_vgpm_accumulate(c, p, t, d, ocean, total, count):
+    for j in range(c.shape[0]):
+        dl = d[j]
+        for i in range(c.shape[1]):
+            if ocean[j, i]:
+                v = vgpm_point_with(
+                    np.float64(c[j, i]), np.float64(p[j, i]), dl, pb_opt_eppley_point(np.float64(t[j, i]))
+                )
+                if v == v:  # a valid estimate (not NaN)
+                    total[j, i] += v
+                    count[j, i] += 1.0
+
+
+#: Fused monthly pass of the Eppley-VGPM (see :func:`euphotic.models._compiled.month_block`).
+eppley_vgpm_month_block = month_block(jit_loop(_eppley_vgpm_accumulate))
 
 
 def eppley_vgpm(chl, par, sst, day_length):

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from euphotic.models._apply import apply_kernel, as_units
-from euphotic.models._compiled import block_kernel, jit_loop, jit_point, use_compiled
+from euphotic.models._compiled import block_kernel, jit_loop, jit_point, month_block, use_compiled
 from euphotic.models.morel_berthon import euphotic_depth, euphotic_depth_point
 
 #: Dimensionless constant of the VGPM (the volume function integrated over depth).
@@ -115,6 +115,23 @@ def _vgpm_loop(c, p, t, d, out):
 
 #: Compiled block kernel of the VGPM (None without numba).
 vgpm_block = block_kernel(jit_loop(_vgpm_loop))
+
+
+def _vgpm_accumulate(c, p, t, d, ocean, total, count):
+    for j in range(c.shape[0]):
+        dl = d[j]
+        for i in range(c.shape[1]):
+            if ocean[j, i]:
+                v = vgpm_point_with(
+                    np.float64(c[j, i]), np.float64(p[j, i]), dl, pb_opt_point(np.float64(t[j, i]))
+                )
+                if v == v:  # a valid estimate (not NaN)
+                    total[j, i] += v
+                    count[j, i] += 1.0
+
+
+#: Fused monthly pass of the VGPM: rate, ocean mask, sum and count of valid days in one loop.
+vgpm_month_block = month_block(jit_loop(_vgpm_accumulate))
 
 
 def vgpm(chl, par, sst, day_length):
