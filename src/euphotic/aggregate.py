@@ -62,7 +62,10 @@ def day_to_period(starts, ends, days) -> np.ndarray:
 def daily_stack(da: xr.DataArray, days: np.ndarray) -> xr.DataArray:
     """The input values that stand for each day, dims ``(day, lat, lon)``; NaN where uncovered."""
     idx = day_to_period(da["period_start"].values, da["period_end"].values, days)
-    taken = da.isel(time=xr.DataArray(np.clip(idx, 0, None), dims="day"))
+    if idx[0] >= 0 and np.all(np.diff(idx) == 1):  # one period per day in order: a plain slice
+        taken = da.isel(time=slice(int(idx[0]), int(idx[-1]) + 1)).rename(time="day")
+    else:
+        taken = da.isel(time=xr.DataArray(np.clip(idx, 0, None), dims="day"))
     taken = taken.drop_vars(
         [c for c in ("time", "period_start", "period_end") if c in taken.coords]
     )

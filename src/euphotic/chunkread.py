@@ -27,6 +27,20 @@ try:  # ISA-L inflate: several times faster than zlib for the same deflate strea
 except ImportError:  # pragma: no cover
     _inflate_lib = zlib
 
+try:  # compiled byte unshuffle that releases the GIL (numpy transpose-copy otherwise)
+    import numba
+
+    @numba.njit(nogil=True, cache=True)
+    def _unshuffle_into(src, out, size):  # pragma: no cover - compiled
+        n = out.size // size
+        for b in range(size):
+            base = b * n
+            for i in range(n):
+                out[i * size + b] = src[base + i]
+
+except ImportError:  # pragma: no cover
+    _unshuffle_into = None
+
 H5Z_DEFLATE, H5Z_SHUFFLE, H5Z_FLETCHER32 = 1, 2, 3
 _SUPPORTED = {H5Z_DEFLATE, H5Z_SHUFFLE, H5Z_FLETCHER32}
 
@@ -122,9 +136,21 @@ def decode_chunk(raw: bytes, cmap: ChunkMap, filter_mask: int) -> np.ndarray:
         elif fid == H5Z_SHUFFLE:
             size = cmap.dtype.itemsize
             if size > 1:
-                a = np.frombuffer(buf, dtype=np.uint8)
-                buf = np.ascontiguousarray(a.reshape(size, -1).T).tobytes()
+                buf = _unshuffle(buf, size)
     return np.frombuffer(buf, dtype=cmap.dtype).reshape(cmap.chunks)
+
+
+def _unshuffle(buf, size: int) -> np.ndarray:
+    """Undo HDF5's byte shuffle (byte b of every element stored in plane b)."""
+    src = np.frombuffer(buf, dtype=np.uint8)
+    n = src.size // size
+    out = np.empty(src.size, dtype=np.uint8)
+    if _unshuffle_into is not None:
+        _unshuffle_into(src[: n * size], out, size)
+    else:  # pragma: no cover
+        out[: n * size] = src[: n * size].reshape(size, n).T.ravel()
+    out[n * size :] = src[n * size :]  # HDF5 leaves a remainder of bytes unshuffled
+    return out
 
 
 class ChunkedArray:

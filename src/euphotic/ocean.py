@@ -18,46 +18,88 @@ def _packaged_mask_path() -> Path:
     return Path(list(spec.submodule_search_locations)[0]) / "globe_combined_mask_compressed.npz"
 
 
+def _member_stream(path: Path, member: str, block: int = 1 << 22):
+    """Yield the inflated bytes of one deflated member of a zip file, block by block.
+
+    Inflates with python-isal when installed (several times faster than zlib); both release
+    the GIL, so this overlaps with other start-up work in threads.
+    """
+    import struct
+
+    try:
+        from isal import isal_zlib as zl
+    except ImportError:  # pragma: no cover
+        import zlib as zl
+    with zipfile.ZipFile(path) as z:
+        info = z.getinfo(member)
+    if info.compress_type != zipfile.ZIP_DEFLATED:
+        raise RuntimeError(f"{path}: {member} is not deflated")
+    with open(path, "rb") as fh:
+        fh.seek(info.header_offset)
+        header = fh.read(30)
+        name_len, extra_len = struct.unpack("<HH", header[26:30])
+        fh.seek(info.header_offset + 30 + name_len + extra_len)
+        left = info.compress_size
+        d = zl.decompressobj(-15)
+        while left > 0:
+            data = fh.read(min(block, left))
+            left -= len(data)
+            while data:  # bounded output: the mask inflates several hundredfold
+                out = d.decompress(data, block)
+                data = d.unconsumed_tail
+                if out:
+                    yield out
+        tail = d.flush()
+        if tail:
+            yield tail
+
+
 def packaged_ocean_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
     """Ocean (True) at each cell centre, from the 1/120-degree mask of `global-land-mask`.
 
     The package's mask (21600 x 43200 booleans, rows from 90N southwards, True = ocean) is
-    streamed row by row from its compressed file, keeping only the rows and columns nearest
-    the cell centres, so memory stays small (the package's own import loads ~1 GB).
+    streamed from its compressed file, keeping only the rows and columns nearest the cell
+    centres, so memory stays small (the package's own import loads ~1 GB).
     """
     path = _packaged_mask_path()
     lat = np.asarray(lat, dtype=np.float64)
     lon = ((np.asarray(lon, dtype=np.float64) + 180.0) % 360.0) - 180.0
-    with zipfile.ZipFile(path) as z:
-        with z.open("mask.npy") as f:
-            version = np.lib.format.read_magic(f)
-            read_header = (
-                np.lib.format.read_array_header_1_0
-                if version == (1, 0)
-                else np.lib.format.read_array_header_2_0
-            )
-            shape, fortran, dtype = read_header(f)
-            if fortran or dtype != np.bool_ or len(shape) != 2:
-                raise RuntimeError(f"{path}: unexpected land mask layout {shape} {dtype}")
-            nrow, ncol = shape
-            step_lat = 180.0 / nrow
-            step_lon = 360.0 / ncol
-            rows = np.clip(((90.0 - lat) / step_lat).astype(np.int64), 0, nrow - 1)
-            cols = np.clip(((lon + 180.0) / step_lon).astype(np.int64), 0, ncol - 1)
-            out = np.zeros((len(lat), len(lon)), dtype=bool)
-            wanted = {}
-            for i, r in enumerate(rows):
-                wanted.setdefault(int(r), []).append(i)
-            block = 256
-            for r0 in range(0, nrow, block):
-                n = min(block, nrow - r0)
-                hit = [r for r in range(r0, r0 + n) if r in wanted]
-                buf = f.read(n * ncol)
-                if not hit:
-                    continue
-                arr = np.frombuffer(buf, dtype=np.bool_).reshape(n, ncol)
-                for r in hit:
-                    out[wanted[r], :] = arr[r - r0, cols]
+    stream = _member_stream(path, "mask.npy")
+    buf = bytearray()
+    for piece in stream:  # the .npy header comes first
+        buf += piece
+        if len(buf) >= 128 and b"\n" in buf[:4096]:
+            break
+    import io
+
+    head = io.BytesIO(bytes(buf))
+    version = np.lib.format.read_magic(head)
+    read_header = (np.lib.format.read_array_header_1_0 if version == (1, 0)
+                   else np.lib.format.read_array_header_2_0)
+    shape, fortran, dtype = read_header(head)
+    if fortran or dtype != np.bool_ or len(shape) != 2:
+        raise RuntimeError(f"{path}: unexpected land mask layout {shape} {dtype}")
+    nrow, ncol = shape
+    rows = np.clip(((90.0 - lat) * (nrow / 180.0)).astype(np.int64), 0, nrow - 1)
+    cols = np.clip(((lon + 180.0) * (ncol / 360.0)).astype(np.int64), 0, ncol - 1)
+    wanted: dict[int, list[int]] = {}
+    for i, r in enumerate(rows):
+        wanted.setdefault(int(r), []).append(i)
+    out = np.zeros((len(lat), len(lon)), dtype=bool)
+    carry = bytes(buf[head.tell():])
+    row = 0
+    for piece in stream:
+        data = carry + piece
+        n = len(data) // ncol
+        if n:
+            block = np.frombuffer(data, dtype=np.bool_, count=n * ncol).reshape(n, ncol)
+            for r in range(row, row + n):
+                if r in wanted:
+                    out[wanted[r], :] = block[r - row, cols]
+            row += n
+        carry = data[n * ncol :]
+    if row != nrow:
+        raise RuntimeError(f"{path}: land mask ended after {row} of {nrow} rows")
     return out
 
 

@@ -370,6 +370,10 @@ def _lazy_values(da: xr.DataArray, name: str, enc: dict, path: str) -> xr.DataAr
         raw = chunkread.dask_array(path, name)
         if raw is not None and raw.shape == da.shape:
             coding = {k: enc[k] for k in _CF_CODING_KEYS if k in enc}
+            if raw.dtype.kind == "f" and all(
+                k == "_FillValue" and np.isnan(v) for k, v in coding.items()
+            ):
+                return da.copy(data=raw)  # float with NaN fill (or none): nothing to decode
             var = xr.Variable(da.dims, raw, attrs=coding)
             decoded = xr.conventions.decode_cf_variable(
                 name, var, mask_and_scale=True, decode_times=False
