@@ -153,7 +153,11 @@ def _fused_month(block, c, p, t, dl, ocean, n):
         block, "dkyx", cd, "dyx", pd_, "dyx", td, "dyx", dld, "dy", oc, "yx",
         new_axes={"k": 2}, adjust_chunks={"d": 1}, dtype=np.float64,
     )
-    sums = parts.sum(axis=0, split_every={0: 2})  # binary tree: few partials alive per block
+    sums = da.reduction(
+        parts, chunk=_keep, combine=_add_into_first, aggregate=_add_into_first_drop,
+        axis=0, keepdims=False, concatenate=False, split_every={0: 4}, dtype=np.float64,
+        meta=np.empty((0, 0, 0), dtype=np.float64),
+    )
     # one task per block turns (sum, count) into (mean rate, coverage), so both outputs come
     # from the same block and the scheduler frees the inputs promptly
     final = da.blockwise(_finish_month, "kyx", sums, "kyx", oc, "yx", n, None, dtype=np.float64)
@@ -161,6 +165,29 @@ def _fused_month(block, c, p, t, dl, ocean, n):
     npp = xr.DataArray(final[0], dims=("lat", "lon"), coords=coords)
     coverage = xr.DataArray(final[1], dims=("lat", "lon"), coords=coords)
     return npp, coverage
+
+
+def _flat(xs) -> list:
+    return [y for x in xs for y in _flat(x)] if isinstance(xs, list) else [xs]
+
+
+def _keep(x, axis=None, keepdims=True, **kwargs):
+    return x
+
+
+def _add_into_first(xs, axis=None, keepdims=True, **kwargs):
+    """Sum day partials in place into the first: each partial has exactly one consumer (this
+    task), so no new array is allocated at each level of the tree."""
+    parts = _flat(xs)
+    out = parts[0]
+    for p in parts[1:]:
+        out += p
+    return out
+
+
+def _add_into_first_drop(xs, axis=None, keepdims=False, **kwargs):
+    out = _add_into_first(xs)
+    return out if keepdims else out[0]
 
 
 def _finish_month(sums: np.ndarray, ocean: np.ndarray, n_days: int) -> np.ndarray:
