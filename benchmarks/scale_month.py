@@ -80,13 +80,16 @@ def _write_day(args):
     lon = -180 + (np.arange(nx) + 0.5) / n
     f = max(n // 2, 1)
     land = _smooth(np.random.default_rng(7), ny, nx, 8 * f) > 0.6  # same "land" every day
-    clouds = _smooth(rng, ny, nx, 4 * f) > 0.4
+    # Unrounded float32 values with cell-to-cell noise, so the files compress about as much as
+    # real gridded products (~220 MB a day for the three inputs at 1/24 degree).
+    clouds = _smooth(rng, ny, nx, 4 * f) > 0.8
     tropics = np.cos(np.deg2rad(lat))[:, None]
-    chl = np.exp(-1.2 + 0.8 * _smooth(rng, ny, nx, 2 * f) + 0.05 * rng.standard_normal((ny, nx)))
-    chl = np.where(land | clouds, np.nan, np.round(chl, 3)).astype("f4")
-    par = np.round(np.clip(45 * tropics + 3 * _smooth(rng, ny, nx, 4 * f), 0.5, None), 2)
+    noise = rng.standard_normal((ny, nx)).astype("f4")
+    chl = np.exp(-1.2 + 0.8 * _smooth(rng, ny, nx, 2 * f) + 0.05 * noise)
+    chl = np.where(land | clouds, np.nan, chl).astype("f4")
+    par = np.clip(45 * tropics + 3 * _smooth(rng, ny, nx, 4 * f) + 0.3 * noise, 0.5, None)
     par = np.where(land, np.nan, par).astype("f4")
-    sst = np.round(-1.5 + 30 * tropics**2 + 0.8 * _smooth(rng, ny, nx, 2 * f), 2)
+    sst = -1.5 + 30 * tropics**2 + 0.8 * _smooth(rng, ny, nx, 2 * f) + 0.05 * noise[::-1]
     sst = np.where(land, np.nan, sst).astype("f4")
     std = {
         "chl": ("mass_concentration_of_chlorophyll_a_in_sea_water", "mg m-3"),

@@ -127,17 +127,7 @@ def format_totals(rows: list[dict]) -> str:
         "total TgC",
         "filled TgC",
     ]
-    keys = [
-        "region",
-        "month",
-        "model",
-        "mean_npp_mg_m2_d",
-        "observed_area_km2",
-        "ocean_area_km2",
-        "coverage",
-        "total_TgC",
-        "total_filled_TgC",
-    ]
+    from euphotic.outputs import TOTALS_COLUMNS as keys
     fmts = [
         str,
         str,

@@ -111,28 +111,9 @@ def totals_figure(rows: list[dict], png_path: Path) -> Path:
     width = 0.8 / max(len(series), 1)
     x = np.arange(len(regions))
     for k, (model, month) in enumerate(series):
-        vals = [
-            next(
-                (
-                    r["total_TgC"]
-                    for r in rows
-                    if r["region"] == g and r["model"] == model and r["month"] == month
-                ),
-                np.nan,
-            )
-            for g in regions
-        ]
-        filled = [
-            next(
-                (
-                    r["total_filled_TgC"]
-                    for r in rows
-                    if r["region"] == g and r["model"] == model and r["month"] == month
-                ),
-                np.nan,
-            )
-            for g in regions
-        ]
+        lookup = {r["region"]: r for r in rows if r["model"] == model and r["month"] == month}
+        vals = [lookup[g]["total_TgC"] if g in lookup else np.nan for g in regions]
+        filled = [lookup[g]["total_filled_TgC"] if g in lookup else np.nan for g in regions]
         pos = x + (k - (len(series) - 1) / 2) * width
         ax.bar(pos, filled, width * 0.95, color="none", edgecolor=f"C{k}", linestyle="--")
         ax.bar(pos, vals, width * 0.95, color=f"C{k}", label=f"{model} {month}")
