@@ -68,6 +68,10 @@ class ChunkMap:
     filters: tuple[int, ...]  # HDF5 filter ids in pipeline (write) order
     offsets: dict  # chunk index tuple -> (byte offset, size, filter mask)
 
+    @property
+    def chunk_nbytes(self) -> int:
+        return int(np.prod(self.chunks)) * self.dtype.itemsize
+
 
 def chunk_map(path: str, variable: str) -> ChunkMap | None:
     """Chunk map of ``variable`` in the NetCDF-4/HDF5 file ``path``; None if not supported."""
@@ -132,7 +136,8 @@ def decode_chunk(raw: bytes, cmap: ChunkMap, filter_mask: int) -> np.ndarray:
             if _fletcher32(buf) != stored:
                 raise OSError(f"{cmap.path}: Fletcher-32 checksum mismatch in a chunk")
         elif fid == H5Z_DEFLATE:
-            buf = _inflate_lib.decompress(buf)
+            # size the output buffer for the whole chunk: no reallocations while inflating
+            buf = _inflate_lib.decompress(buf, bufsize=cmap.chunk_nbytes)
         elif fid == H5Z_SHUFFLE:
             size = cmap.dtype.itemsize
             if size > 1:
