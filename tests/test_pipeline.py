@@ -161,13 +161,16 @@ def test_eight_day_composite_straddling_month_boundary(tmp_path):
     np.testing.assert_allclose(rows["2024-01"]["coverage"], 15 / 31, rtol=1e-6)
 
 
-def test_polar_night_counts_as_zero_production(tmp_path):
+@pytest.mark.parametrize("kernel", ["compiled", "numpy"])
+@pytest.mark.parametrize("chl_days", [31, 10])
+def test_polar_night_counts_as_zero_production(tmp_path, monkeypatch, kernel, chl_days):
     """At 80N in December the sun does not rise (day length 0): NPP is 0 and the day counts as
-    observed even where chlorophyll is missing."""
+    observed even where chlorophyll is missing, and even on days with no chlorophyll file."""
+    monkeypatch.setenv("EUPHOTIC_KERNEL", kernel)
     lat, lon = grid(78.0, 82.0, 0.0, 4.0, 1.0)
     shape = (len(lat), len(lon))
     chl = np.full(shape, np.nan)  # no chlorophyll at all (no light to see it by)
-    for d in range(1, 32):
+    for d in range(1, chl_days + 1):
         day = f"2023-12-{d:02d}"
         write_field(
             tmp_path / "chl" / f"c{d}.nc",

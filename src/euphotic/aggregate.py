@@ -116,7 +116,22 @@ def monthly_npp(
     day_length : xarray.DataArray, optional
         A day-length input (h) with periods; by default computed from latitude and date.
     """
-    days = month_days(month)
+    all_days = month_days(month)
+    n = len(all_days)
+    block = month_block if day_length is None else None
+    if block is not None:
+        # Days without chlorophyll yield an estimate only in polar night (0, counted as
+        # observed): they are added as counts per latitude row instead of being computed.
+        covered = day_to_period(chl["period_start"].values, chl["period_end"].values, all_days) >= 0
+        dl_all = _day_length(chl["lat"].values, all_days)  # (day, lat)
+        dark_rows = (dl_all[~covered] <= 0.0).sum(axis=0).astype(np.float64)
+        days = all_days[covered]
+        c, p, t = (daily_stack(x, days) for x in (chl, par, sst))
+        npp, coverage = _fused_month(block, c, p, t, dl_all[covered], ocean, n, dark_rows)
+        return MonthlyMaps(
+            month=np.datetime64(month, "M"), model=model_name, npp=npp, coverage=coverage, n_days=n
+        )
+    days = all_days
     c = daily_stack(chl, days)
     p = daily_stack(par, days)
     t = daily_stack(sst, days)
@@ -125,28 +140,23 @@ def monthly_npp(
         dl = dl.transpose("day", "lat")
     else:
         dl = daily_stack(day_length, days)
-    n = len(days)
-    block = month_block if day_length is None else None
-    if block is not None:
-        npp, coverage = _fused_month(block, c, p, t, dl, ocean, n)
-    else:
-        npp_daily = model(c, p, t, dl).where(ocean)
-        valid = npp_daily.notnull()
-        npp = npp_daily.mean("day", skipna=True)
-        coverage = (valid.sum("day") / n).where(ocean)
+    npp_daily = model(c, p, t, dl).where(ocean)
+    valid = npp_daily.notnull()
+    npp = npp_daily.mean("day", skipna=True)
+    coverage = (valid.sum("day") / n).where(ocean)
     return MonthlyMaps(
         month=np.datetime64(month, "M"), model=model_name, npp=npp, coverage=coverage, n_days=n
     )
 
 
-def _fused_month(block, c, p, t, dl, ocean, n):
+def _fused_month(block, c, p, t, dl, ocean, n, dark_rows):
     import dask.array as da
 
     cd = c.data if isinstance(c.data, da.Array) else da.from_array(c.values)
     spatial = cd.chunks[1:]
     pd_ = da.asarray(p.data).rechunk(cd.chunks)
     td = da.asarray(t.data).rechunk(cd.chunks)
-    dld = da.from_array(np.asarray(dl.transpose("day", "lat").values, np.float64), chunks=(cd.chunks[0], spatial[0]))
+    dld = da.from_array(np.asarray(dl, np.float64), chunks=(cd.chunks[0], spatial[0]))
     oc = ocean.data if isinstance(ocean.data, da.Array) else da.from_array(np.asarray(ocean.values, bool))
     oc = oc.rechunk(spatial)
     parts = da.blockwise(
@@ -160,7 +170,10 @@ def _fused_month(block, c, p, t, dl, ocean, n):
     )
     # one task per block turns (sum, count) into (mean rate, coverage), so both outputs come
     # from the same block and the scheduler frees the inputs promptly
-    final = da.blockwise(_finish_month, "kyx", sums, "kyx", oc, "yx", n, None, dtype=np.float64)
+    dark = da.from_array(dark_rows, chunks=(spatial[0],))
+    final = da.blockwise(
+        _finish_month, "kyx", sums, "kyx", oc, "yx", dark, "y", n, None, dtype=np.float64
+    )
     coords = {"lat": c["lat"], "lon": c["lon"]}
     npp = xr.DataArray(final[0], dims=("lat", "lon"), coords=coords)
     coverage = xr.DataArray(final[1], dims=("lat", "lon"), coords=coords)
@@ -190,9 +203,13 @@ def _add_into_first_drop(xs, axis=None, keepdims=False, **kwargs):
     return out if keepdims else out[0]
 
 
-def _finish_month(sums: np.ndarray, ocean: np.ndarray, n_days: int) -> np.ndarray:
-    """(sum, count) of valid daily rates -> (mean rate, coverage); NaN off the ocean."""
-    total, count = sums[0], sums[1]
+def _finish_month(sums: np.ndarray, ocean: np.ndarray, dark_rows: np.ndarray, n_days: int) -> np.ndarray:
+    """(sum, count) of valid daily rates -> (mean rate, coverage); NaN off the ocean.
+
+    ``dark_rows``: per latitude row, the polar-night days that had no input (rate 0, observed).
+    """
+    total = sums[0]
+    count = sums[1] + np.where(ocean, dark_rows[:, None], 0.0)
     valid = count > 0
     mean = np.where(valid, total / np.where(valid, count, 1.0), np.nan)
     coverage = np.where(ocean, count / n_days, np.nan)
