@@ -375,3 +375,22 @@ def test_fused_monthly_pass_matches_model_then_mean(tmp_path, monkeypatch):
             np.testing.assert_array_equal(x["coverage"].values, y["coverage"].values)
     for ra, rb in zip(a.rows, b.rows, strict=True):
         assert ra["total_TgC"] == pytest.approx(rb["total_TgC"], rel=1e-6)
+
+
+def test_external_scheduler_address(tmp_path):
+    """`--scheduler ADDRESS`: the CLI connects to a scheduler it did not start (here one started
+    by distributed's own LocalCluster in this test) and gives the threaded run's numbers."""
+    from click.testing import CliRunner
+    from distributed import LocalCluster
+
+    from euphotic.cli import main
+
+    root = Path(__file__).resolve().parents[1]
+    demo = str(root / "configs" / "demo.toml")
+    assert CliRunner().invoke(main, ["run", demo, "-o", str(tmp_path / "t"), "-q", "--no-figures"]).exit_code == 0
+    with LocalCluster(n_workers=1, threads_per_worker=2, processes=True, dashboard_address=None) as cluster:
+        res = CliRunner().invoke(
+            main, ["run", demo, "-o", str(tmp_path / "s"), "-q", "--no-figures", "--scheduler", cluster.scheduler_address]
+        )
+    assert res.exit_code == 0, res.output
+    assert (tmp_path / "t" / "regional_totals.csv").read_text() == (tmp_path / "s" / "regional_totals.csv").read_text()

@@ -400,6 +400,9 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
     da = ds[name]
     enc = dict(da.encoding)
     da = _lazy_values(da, name, enc, path)
+    # values read by euphotic.chunkread need no open netCDF handle: close the file once the
+    # metadata below has been read (keeps memory flat however many files a run opens)
+    detached = any("chunkread-" in str(k) for k in da.data.__dask_graph__())
     attrs = dict(da.attrs)
     lat_d = _find_axis(ds, da, "lat", path)
     lon_d = _find_axis(ds, da, "lon", path)
@@ -491,6 +494,9 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
         da = da.isel(lat=slice(None, None, -1))
     da = da.assign_coords(lat=da["lat"].values.astype(np.float64))
     da = normalize_lon(da, path)
+    if detached:
+        da = da.copy(data=da.data)  # drop references to the dataset's variables
+        ds.close()
     da.attrs = {
         "units": TARGET_UNITS[spec.role],
         "long_name": LONG_NAMES[spec.role],
