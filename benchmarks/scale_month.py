@@ -174,7 +174,7 @@ def read_floor(files: list[str]) -> float:
     t = time.perf_counter()
     for path in files:
         with netCDF4.Dataset(path) as ds:
-            for name, var in ds.variables.items():
+            for var in ds.variables.values():
                 if var.ndim != 3:
                     continue
                 ch = var.chunking()
