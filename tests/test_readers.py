@@ -360,9 +360,9 @@ def test_par_units_converted_to_daily_dose(tmp_path, units, std, factor):
     ("role", "name", "units", "raw", "expected"),
     [
         # 1 ug L-1 = 1e-6 g / 1e-3 m3 = 1e-3 g m-3 = 1 mg m-3 (SI prefixes).
-        ("chl", "chlor_a", "ug L-1", [0.05, 1.0, 12.5, 60.0], [0.05, 1.0, 12.5, 60.0]),
-        ("chl", "chlor_a", "mg m^-3", [0.05, 1.0, 12.5, 60.0], [0.05, 1.0, 12.5, 60.0]),
-        ("chl", "chlor_a", "g m-3", [0.05, 1.0, 12.5, 60.0], [50.0, 1000.0, 12500.0, 60000.0]),
+        ("chl", "chl_a", "ug L-1", [0.05, 1.0, 12.5, 60.0], [0.05, 1.0, 12.5, 60.0]),
+        ("chl", "chl_a", "mg m^-3", [0.05, 1.0, 12.5, 60.0], [0.05, 1.0, 12.5, 60.0]),
+        ("chl", "chl_a", "g m-3", [0.05, 1.0, 12.5, 60.0], [50.0, 1000.0, 12500.0, 60000.0]),
         # T[degC] = T[K] - 273.15 (SI definition of the Celsius scale).
         ("sst", "sst", "K", [271.35, 273.15, 293.15, 305.0], [-1.8, 0.0, 20.0, 31.85]),
         # No units attribute in the file: the units given in the config ("kelvin") are used.
@@ -702,8 +702,8 @@ def test_missing_named_variable(tmp_path):
     path = write_grid(tmp_path / "chl.nc", np.ones((2, 2)), [0.5, 1.5], [0.5, 1.5], name="chl",
                       var_attrs={"units": "mg m-3"}, global_attrs=ONE_DAY)
     with pytest.raises(InputFileError) as exc:
-        open_input(InputSpec(role="chl", files=str(path), variable="chlor_a"))
-    _assert_error_names(exc, path, "no variable 'chlor_a'", "data variables: chl")
+        open_input(InputSpec(role="chl", files=str(path), variable="chl_a"))
+    _assert_error_names(exc, path, "no variable 'chl_a'", "data variables: chl")
 
 
 @pytest.mark.parametrize(
