@@ -66,3 +66,25 @@ def write_field(
 def write_config(path: Path, body: str) -> Path:
     path.write_text(body)
     return path
+
+
+def box_run_config(path: Path, name: str, box: list[float], *, chl: str = "chl/*.nc",
+                   models: str = "") -> Path:
+    """A run config over chl/, par/ and sst/ beside ``path``, ocean from temperature, one box."""
+    run_models = f"models = [{models}]\n" if models else ""
+    return write_config(path, f"""
+[run]
+{run_models}output_dir = "out"
+figures = false
+[inputs.chl]
+files = "{chl}"
+[inputs.par]
+files = "par/*.nc"
+[inputs.sst]
+files = "sst/*.nc"
+[ocean]
+source = "temperature"
+[[regions]]
+name = "{name}"
+box = {box}
+""")

@@ -12,24 +12,7 @@ from click.testing import CliRunner
 
 from euphotic.cli import main
 
-from ._grids import CHL_STD, PAR_STD, SST_STD, grid, write_config, write_field
-
-CONFIG = """
-[run]
-output_dir = "out"
-figures = false
-[inputs.chl]
-files = "{chl}"
-[inputs.par]
-files = "par/*.nc"
-[inputs.sst]
-files = "{sst}"
-[ocean]
-source = "temperature"
-[[regions]]
-name = "Box"
-box = [0.0, 0.0, 4.0, 4.0]
-"""
+from ._grids import CHL_STD, PAR_STD, SST_STD, box_run_config, grid, write_field
 
 
 def _case(
@@ -70,7 +53,7 @@ def _case(
             slon,
             time=d,
         )
-    return write_config(tmp / "run.toml", CONFIG.format(chl=chl_glob, sst="sst/*.nc"))
+    return box_run_config(tmp / "run.toml", "Box", [0.0, 0.0, 4.0, 4.0], chl=chl_glob)
 
 
 def _run(cfg: Path, *extra: str):

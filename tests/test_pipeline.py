@@ -22,7 +22,7 @@ from euphotic.models import vgpm
 from euphotic.outputs import CAUTION, TOTALS_COLUMNS
 from euphotic.pipeline import prepare, run
 
-from ._grids import CHL_STD, PAR_STD, SST_STD, grid, write_config, write_field
+from ._grids import CHL_STD, PAR_STD, SST_STD, box_run_config, grid, write_field
 
 
 def vgpm_reference(chl: float, par: float, sst: float, dl: float) -> float:
@@ -103,26 +103,7 @@ def _equator_case(tmp: Path, *, straddle=True) -> Path:
             lon,
             time_bounds=(a, b),
         )
-    return write_config(
-        tmp / "run.toml",
-        """
-[run]
-models = ["vgpm"]
-output_dir = "out"
-figures = false
-[inputs.chl]
-files = "chl/*.nc"
-[inputs.par]
-files = "par/*.nc"
-[inputs.sst]
-files = "sst/*.nc"
-[ocean]
-source = "temperature"
-[[regions]]
-name = "All"
-box = [10.0, -1.0, 12.0, 1.0]
-""",
-    )
+    return box_run_config(tmp / "run.toml", "All", [10.0, -1.0, 12.0, 1.0], models='"vgpm"')
 
 
 def test_eight_day_composite_straddling_month_boundary(tmp_path):
@@ -203,25 +184,7 @@ def test_polar_night_counts_as_zero_production(tmp_path, monkeypatch, kernel, ch
         lon,
         time_bounds=("2023-12-01", "2024-01-01"),
     )
-    cfg = write_config(
-        tmp_path / "run.toml",
-        """
-[run]
-output_dir = "out"
-figures = false
-[inputs.chl]
-files = "chl/*.nc"
-[inputs.par]
-files = "par/*.nc"
-[inputs.sst]
-files = "sst/*.nc"
-[ocean]
-source = "temperature"
-[[regions]]
-name = "Arctic box"
-box = [0.0, 78.0, 4.0, 82.0]
-""",
-    )
+    cfg = box_run_config(tmp_path / "run.toml", "Arctic box", [0.0, 78.0, 4.0, 82.0])
     result = run(load_config(cfg), progress=False)
     ds = xr.open_dataset(tmp_path / "out" / "npp_vgpm_2023-12.nc")
     assert np.all(ds["npp"].values == 0.0)

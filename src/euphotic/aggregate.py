@@ -11,7 +11,7 @@ estimate; ``coverage`` is the fraction of the month's days with one.
 
 from __future__ import annotations
 
-from collections.abc import Callable, Iterable
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -341,12 +341,3 @@ def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray) -> list[dict]:
             }
         )
     return rows
-
-
-def all_periods(arrays: Iterable[xr.DataArray]) -> tuple[np.ndarray, np.ndarray]:
-    """Concatenated period starts and ends of several inputs."""
-    arrays = list(arrays)
-    return (
-        np.concatenate([a["period_start"].values for a in arrays]).astype("datetime64[D]"),
-        np.concatenate([a["period_end"].values for a in arrays]).astype("datetime64[D]"),
-    )

@@ -311,10 +311,6 @@ def _apply_valid_range(da: xr.DataArray, enc: dict, attrs: dict) -> xr.DataArray
 def _convert_units(da: xr.DataArray, spec: InputSpec, path: str, name: str) -> xr.DataArray:
     given = spec.units or da.attrs.get("units")
     if given is None or not str(given).strip():
-        if spec.role == "chl":
-            raise InputFileError(
-                path, f"variable {name!r} has no units attribute; set `units` in the config"
-            )
         raise InputFileError(
             path, f"variable {name!r} has no units attribute; set `units` in the config"
         )

@@ -119,11 +119,3 @@ def par_factors(from_units: str) -> tuple[float, str]:
         w_m2 = q.to("W m-2").magnitude
         return float(w_m2 * PAR_UMOL_PER_J * 1e-6 * SECONDS_PER_DAY), "energy"
     raise UnitError(f"unit {from_units!r} is not a photon or energy flux of light")
-
-
-def check_units(from_units: str, to_units: str, what: str) -> None:
-    """Raise :class:`UnitError` unless ``from_units`` converts to ``to_units``."""
-    try:
-        linear_factors(from_units, to_units)
-    except UnitError as exc:
-        raise UnitError(f"{what}: {exc}") from None
