@@ -77,6 +77,24 @@ def test_raw_values_identical_to_netcdf_library(tmp_path, case):
     np.testing.assert_array_equal(arr[1:, 3:18, 5:24].compute(), want[1:, 3:18, 5:24])
 
 
+def test_standard_library_inflate_gives_the_same_values(tmp_path, monkeypatch):
+    """Without libdeflate (the ``deflate`` package) chunks are inflated by zlib: same values."""
+    data = np.random.default_rng(6).normal(15, 8, (2, 20, 25))
+    path = tmp_path / "f.nc"
+    _write(path, data, zlib=True, complevel=4, shuffle=True)
+    monkeypatch.setattr(chunkread, "_libdeflate", None)
+    got = chunkread.dask_array(str(path), "x").compute(scheduler="sync")
+    np.testing.assert_array_equal(got, _library(path))
+
+
+def test_inflate_falls_back_when_the_size_is_not_a_whole_chunk():
+    """A stream whose inflated size differs from the chunk size is still inflated (by zlib)."""
+    import zlib
+
+    payload = bytes(range(256)) * 10
+    assert chunkread._inflate(zlib.compress(payload), len(payload) + 100) == payload
+
+
 def test_unsupported_layouts_fall_back(tmp_path):
     data = np.ones((1, 4, 5))
     with netCDF4.Dataset(tmp_path / "c.nc", "w") as ds:  # contiguous storage

@@ -4,8 +4,9 @@ The netCDF/HDF5 libraries hold one global lock: however many dask threads read, 
 decompressed one at a time. Here the chunk map (byte offset, size and filter mask of every
 stored chunk) is taken once from the file with h5py; each dask task then reads its chunk's
 bytes with ``os.pread`` and undoes the file's own filter pipeline itself: deflate (with
-python-isal's ISA-L inflate when installed, else the standard library's zlib, both of which
-release the GIL), byte shuffle (numpy), and Fletcher-32 (checksum verified, as HDF5 does).
+libdeflate through the ``deflate`` package when installed, else the standard library's zlib,
+both of which release the GIL), byte shuffle (compiled with numba), and Fletcher-32 (checksum
+verified, as HDF5 does).
 The values are exactly those the netCDF library returns; CF decoding (fill values,
 scale/offset) is then applied by xarray as usual.
 
@@ -22,21 +23,23 @@ from dataclasses import dataclass
 
 import numpy as np
 
-try:  # ISA-L inflate: several times faster than zlib for the same deflate streams
-    from isal import isal_zlib as _inflate_lib
+try:  # libdeflate: whole-buffer inflate, 1.6-2x faster than ISA-L or zlib on float chunks
+    import deflate as _libdeflate
 except ImportError:  # pragma: no cover
-    _inflate_lib = zlib
+    _libdeflate = None
 
 try:  # compiled byte unshuffle that releases the GIL (numpy transpose-copy otherwise)
     import numba
 
     @numba.njit(nogil=True, cache=True)
     def _unshuffle_into(src, out, size):  # pragma: no cover - compiled
+        # out seen as (element, byte): each byte plane of src is copied into one column
         n = out.size // size
+        o = out[: n * size].reshape((n, size))
         for b in range(size):
-            base = b * n
+            plane = src[b * n : (b + 1) * n]
             for i in range(n):
-                out[i * size + b] = src[base + i]
+                o[i, b] = plane[i]
 
 except ImportError:  # pragma: no cover
     _unshuffle_into = None
@@ -136,13 +139,22 @@ def decode_chunk(raw: bytes, cmap: ChunkMap, filter_mask: int) -> np.ndarray:
             if _fletcher32(buf) != stored:
                 raise OSError(f"{cmap.path}: Fletcher-32 checksum mismatch in a chunk")
         elif fid == H5Z_DEFLATE:
-            # size the output buffer for the whole chunk: no reallocations while inflating
-            buf = _inflate_lib.decompress(buf, bufsize=cmap.chunk_nbytes)
+            buf = _inflate(buf, cmap.chunk_nbytes)
         elif fid == H5Z_SHUFFLE:
             size = cmap.dtype.itemsize
             if size > 1:
                 buf = _unshuffle(buf, size)
     return np.frombuffer(buf, dtype=cmap.dtype).reshape(cmap.chunks)
+
+
+def _inflate(buf, nbytes: int) -> bytes:
+    """Inflate one zlib stream that holds ``nbytes`` (a whole chunk); checks its Adler-32."""
+    if _libdeflate is not None:
+        try:
+            return _libdeflate.zlib_decompress(buf, nbytes)
+        except _libdeflate.DeflateError:
+            pass  # not exactly nbytes (not written by HDF5's deflate filter?): stream it
+    return zlib.decompress(buf, bufsize=nbytes)
 
 
 def _unshuffle(buf, size: int) -> np.ndarray:
@@ -172,9 +184,10 @@ class ChunkedArray:
         slices = [k if isinstance(k, slice) else slice(k, k + 1) for k in key]
         slices += [slice(None)] * (self.ndim - len(slices))
         bounds = [s.indices(n)[:2] for s, n in zip(slices, self.shape, strict=True)]
-        out = np.empty([b - a for a, b in bounds], dtype=self.dtype)
         first = [a // c for (a, _), c in zip(bounds, self.cmap.chunks, strict=True)]
         last = [max(b - 1, a) // c for (a, b), c in zip(bounds, self.cmap.chunks, strict=True)]
+        one_chunk = first == last and all(b > a for a, b in bounds)
+        out = None if one_chunk else np.empty([b - a for a, b in bounds], dtype=self.dtype)
         fd = os.open(self.cmap.path, os.O_RDONLY)
         try:
             for idx in np.ndindex(*[l_ - f + 1 for f, l_ in zip(first, last, strict=True)]):
@@ -192,7 +205,12 @@ class ChunkedArray:
                     s1 = min(b, lo[d] + self.cmap.chunks[d])
                     src.append(slice(s0 - lo[d], s1 - lo[d]))
                     dst.append(slice(s0 - a, s1 - a))
-                out[tuple(dst)] = block[tuple(src)]
+                if one_chunk:  # the usual dask task: its chunk, or part of it, as a view
+                    out = block[tuple(src)]
+                    if not out.flags.writeable:  # a view of immutable bytes (no shuffle)
+                        out = out.copy()
+                else:
+                    out[tuple(dst)] = block[tuple(src)]
         finally:
             os.close(fd)
         squeeze = tuple(i for i, k in enumerate(key) if not isinstance(k, slice))

@@ -174,8 +174,18 @@ def _wkt_box(lat: np.ndarray, lon: np.ndarray) -> str:
 
 
 def encoding_for(ds: xr.Dataset) -> dict:
-    """Compressed float32 storage chunked like the map (CF time units in days)."""
-    chunks = (1, min(ds.sizes["lat"], 1024), min(ds.sizes["lon"], 1024))
+    """Compressed float32 storage chunked like the map (CF time units in days).
+
+    A dask-backed map is stored in chunks equal to its blocks, so that each block is written
+    as whole chunks: a block that straddled stored chunks would make the library read back,
+    inflate and deflate the partial chunks again (and the inputs' small chunk cache cannot
+    hold them).
+    """
+    blocks = getattr(ds["npp"].data, "chunksize", None)
+    if blocks is not None and len(blocks) == 3 and blocks[1] * blocks[2] <= 4 * 2**20:
+        chunks = (1, blocks[1], blocks[2])
+    else:
+        chunks = (1, min(ds.sizes["lat"], 1024), min(ds.sizes["lon"], 1024))
     enc = {
         v: {
             "zlib": True,

@@ -398,7 +398,7 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
     da = _lazy_values(da, name, enc, path)
     # values read by euphotic.chunkread need no open netCDF handle: close the file once the
     # metadata below has been read (keeps memory flat however many files a run opens)
-    detached = any("chunkread-" in str(k) for k in da.data.__dask_graph__())
+    detached = any(str(k).startswith("chunkread-") for k in da.data.__dask_graph__().layers)
     attrs = dict(da.attrs)
     lat_d = _find_axis(ds, da, "lat", path)
     lon_d = _find_axis(ds, da, "lon", path)
