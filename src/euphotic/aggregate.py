@@ -11,7 +11,7 @@ estimate; ``coverage`` is the fraction of the month's days with one.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -150,7 +150,12 @@ def monthly_npp(
 
 
 def _fused_month(block, c, p, t, dl, ocean, n, dark_rows):
+    """Per spatial block, one chain of tasks over the day chunks: each task adds its days'
+    valid rates into the block's running (sum, count), in place, and the last one turns them
+    into (mean rate, coverage). One accumulator per block is alive, however many days."""
     import dask.array as da
+    from dask.base import tokenize
+    from dask.highlevelgraph import HighLevelGraph
 
     cd = c.data if isinstance(c.data, da.Array) else da.from_array(c.values)
     spatial = cd.chunks[1:]
@@ -159,48 +164,29 @@ def _fused_month(block, c, p, t, dl, ocean, n, dark_rows):
     dld = da.from_array(np.asarray(dl, np.float64), chunks=(cd.chunks[0], spatial[0]))
     oc = ocean.data if isinstance(ocean.data, da.Array) else da.from_array(np.asarray(ocean.values, bool))
     oc = oc.rechunk(spatial)
-    parts = da.blockwise(
-        block, "dkyx", cd, "dyx", pd_, "dyx", td, "dyx", dld, "dy", oc, "yx",
-        new_axes={"k": 2}, adjust_chunks={"d": 1}, dtype=np.float64,
-    )
-    sums = da.reduction(
-        parts, chunk=_keep, combine=_add_into_first, aggregate=_add_into_first_drop,
-        axis=0, keepdims=False, concatenate=False, split_every={0: 4}, dtype=np.float64,
-        meta=np.empty((0, 0, 0), dtype=np.float64),
-    )
-    # one task per block turns (sum, count) into (mean rate, coverage), so both outputs come
-    # from the same block and the scheduler frees the inputs promptly
-    dark = da.from_array(dark_rows, chunks=(spatial[0],))
-    final = da.blockwise(
-        _finish_month, "kyx", sums, "kyx", oc, "yx", dark, "y", n, None, dtype=np.float64
-    )
+    dark = da.from_array(np.asarray(dark_rows, np.float64), chunks=(spatial[0],))
+    token = tokenize(block, cd, pd_, td, dld, oc, dark, n)
+    step, final = f"month-step-{token}", f"month-mean-{token}"
+    dsk = {}
+    n_steps = len(cd.chunks[0])
+    for y in range(len(spatial[0])):
+        for x in range(len(spatial[1])):
+            prev = None
+            for d in range(n_steps):
+                dsk[(step, d, y, x)] = (
+                    block, (cd.name, d, y, x), (pd_.name, d, y, x), (td.name, d, y, x),
+                    (dld.name, d, y), (oc.name, y, x), prev,
+                )
+                prev = (step, d, y, x)
+            # one task per block turns (sum, count) into (mean rate, coverage), so both outputs
+            # come from the same block and the scheduler frees the inputs promptly
+            dsk[(final, 0, y, x)] = (_finish_month, prev, (oc.name, y, x), (dark.name, y), n)
+    graph = HighLevelGraph.from_collections(final, dsk, dependencies=[cd, pd_, td, dld, oc, dark])
+    out = da.Array(graph, final, chunks=((2,),) + spatial, dtype=np.float64)
     coords = {"lat": c["lat"], "lon": c["lon"]}
-    npp = xr.DataArray(final[0], dims=("lat", "lon"), coords=coords)
-    coverage = xr.DataArray(final[1], dims=("lat", "lon"), coords=coords)
+    npp = xr.DataArray(out[0], dims=("lat", "lon"), coords=coords)
+    coverage = xr.DataArray(out[1], dims=("lat", "lon"), coords=coords)
     return npp, coverage
-
-
-def _flat(xs) -> list:
-    return [y for x in xs for y in _flat(x)] if isinstance(xs, list) else [xs]
-
-
-def _keep(x, axis=None, keepdims=True, **kwargs):
-    return x
-
-
-def _add_into_first(xs, axis=None, keepdims=True, **kwargs):
-    """Sum day partials in place into the first: each partial has exactly one consumer (this
-    task), so no new array is allocated at each level of the tree."""
-    parts = _flat(xs)
-    out = parts[0]
-    for p in parts[1:]:
-        out += p
-    return out
-
-
-def _add_into_first_drop(xs, axis=None, keepdims=False, **kwargs):
-    out = _add_into_first(xs)
-    return out if keepdims else out[0]
 
 
 def _finish_month(sums: np.ndarray, ocean: np.ndarray, dark_rows: np.ndarray, n_days: int) -> np.ndarray:
@@ -226,14 +212,47 @@ def region_bits(masks: list[np.ndarray]) -> np.ndarray:
     One small array stands for every region, overlapping ones included, so a single pass over
     the map computes all regional sums.
     """
-    n = len(masks)
-    if n > 64:
-        raise ValueError("at most 64 regions per bit array")
-    dtype = np.uint8 if n <= 8 else np.uint16 if n <= 16 else np.uint32 if n <= 32 else np.uint64
-    out = np.zeros(np.shape(masks[0]) if masks else (0, 0), dtype=dtype)
-    for r, m in enumerate(masks):
-        out |= np.asarray(m, bool).astype(dtype) << dtype(r)
-    return out
+    return RegionMasks.build((str(r), m) for r, m in enumerate(masks)).bits
+
+
+class RegionMasks(Mapping):
+    """Region name -> boolean (lat, lon) mask, stored packed in one bit array.
+
+    Each mask is unpacked only when asked for, so a run with many regions holds one small
+    integer array instead of one boolean grid per region.
+    """
+
+    def __init__(self, names: list[str], bits: np.ndarray | None):
+        self.names = list(names)
+        self.bits = bits
+
+    @classmethod
+    def build(cls, named_masks) -> RegionMasks:
+        """Pack masks given as ``(name, mask)`` pairs, one at a time (an iterator is fine)."""
+        names, bits = [], None
+        for name, mask in named_masks:
+            r = len(names)
+            if r == 64:
+                raise ValueError("at most 64 regions per bit array")
+            # the smallest integer type that holds every region's bit, widened as regions come
+            dtype = np.uint8 if r < 8 else np.uint16 if r < 16 else np.uint32 if r < 32 else np.uint64
+            if bits is None:
+                bits = np.zeros(np.shape(mask), dtype=dtype)
+            elif bits.dtype != dtype:
+                bits = bits.astype(dtype)
+            bits[np.asarray(mask, bool)] |= dtype(1) << dtype(r)
+            names.append(name)
+        return cls(names, bits)
+
+    def __getitem__(self, name: str) -> np.ndarray:
+        r = self.names.index(name)
+        return ((self.bits >> self.bits.dtype.type(r)) & 1).astype(bool)
+
+    def __iter__(self):
+        return iter(self.names)
+
+    def __len__(self) -> int:
+        return len(self.names)
 
 
 def _block_sums(npp, cov, ocean, bits, area_rows, n_regions):

@@ -35,7 +35,9 @@ class Prepared:
     ocean: xr.DataArray  # bool (lat, lon); numpy-backed unless taken from temperature
     area_rows_m2: np.ndarray  # (lat,) area of one cell in each row
     months: list[np.datetime64]
-    region_masks: dict[str, np.ndarray] = field(default_factory=dict)
+    region_masks: aggregate.RegionMasks = field(
+        default_factory=lambda: aggregate.RegionMasks([], None)
+    )
     skipped_months: list[np.datetime64] = field(default_factory=list)
 
 
@@ -103,10 +105,7 @@ def prepare(cfg: RunConfig) -> Prepared:
     else:
         ocean_da = ocean.temperature_ocean_mask(sst)
     area_rows = cell_area(lat, lon[:2], earth=cfg.earth)[:, 0]  # regular grid: same along a row
-    masks = {r.name: r.mask(lat, lon) for r in cfg.regions}
-    for name, m in masks.items():
-        if not m.any():
-            log.warning("region %r contains no cell centre of the grid", name)
+    masks = aggregate.RegionMasks.build((r.name, _region_mask(r, lat, lon)) for r in cfg.regions)
     return Prepared(
         chl=chl,
         par=par,
@@ -118,6 +117,13 @@ def prepare(cfg: RunConfig) -> Prepared:
         region_masks=masks,
         skipped_months=skipped,
     )
+
+
+def _region_mask(region, lat, lon) -> np.ndarray:
+    m = region.mask(lat, lon)
+    if not m.any():
+        log.warning("region %r contains no cell centre of the grid", region.name)
+    return m
 
 
 @contextlib.contextmanager
@@ -198,8 +204,7 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
         input_files["day_length"] = prep.day_length.attrs["files"]
 
     writes, finals, temps, lazies = [], [], [], []
-    names = list(prep.region_masks)
-    bits = aggregate.region_bits([prep.region_masks[n] for n in names]) if names else None
+    names, bits = prep.region_masks.names, prep.region_masks.bits
     for model_name in cfg.models:
         model = get_model(model_name)
         for month in prep.months:

@@ -68,12 +68,24 @@ def polygon_mask(geometry, lat: np.ndarray, lon: np.ndarray, name: str = "region
         from rasterio.transform import Affine
 
         dlat, dlon = (lat[-1] - lat[0]) / (len(lat) - 1), (lon[-1] - lon[0]) / (len(lon) - 1)
-        transform = Affine(dlon, 0.0, lon[0] - dlon / 2, 0.0, dlat, lat[0] - dlat / 2)
+        out = np.zeros((len(lat), len(lon)), dtype=bool)
+        # burn only the window of rows and columns the shapes' bounds can reach (+1 cell)
+        x0, y0, x1, y1 = np.array([g.bounds for g in shapes], dtype=np.float64).T
+        if not np.isfinite([x0, y0, x1, y1]).all():  # an empty geometry
+            return out
+        rows = np.sort(np.clip(((np.array([y0.min(), y1.max()]) - lat[0]) / dlat).round(), 0,
+                               len(lat) - 1).astype(int))
+        cols = np.sort(np.clip(((np.array([x0.min(), x1.max()]) - lon[0]) / dlon).round(), 0,
+                               len(lon) - 1).astype(int))
+        r0, r1 = max(rows[0] - 1, 0), min(rows[1] + 2, len(lat))
+        c0, c1 = max(cols[0] - 1, 0), min(cols[1] + 2, len(lon))
+        transform = Affine(dlon, 0.0, lon[c0] - dlon / 2, 0.0, dlat, lat[r0] - dlat / 2)
         burnt = rasterize(
-            [(g, 1) for g in shapes], out_shape=(len(lat), len(lon)), transform=transform,
+            [(g, 1) for g in shapes], out_shape=(r1 - r0, c1 - c0), transform=transform,
             fill=0, dtype="uint8", all_touched=False,
         )
-        return burnt.astype(bool)
+        out[r0:r1, c0:c1] = burnt.astype(bool)
+        return out
     import shapely
 
     glon, glat = np.meshgrid(lon, lat)

@@ -66,17 +66,19 @@ def month_block(accumulate: Callable | None) -> Callable | None:
     ``accumulate(c, p, t, d, ocean, total, count)`` adds one day's valid rates of a (lat, lon)
     block into ``total`` and 1 into ``count``. The returned function takes blocks shaped
     (day, lat, lon) for chl/PAR/SST, (day, lat) for day length and (lat, lon) for the ocean
-    mask, and returns (1, 2, lat, lon): the sum of the daily rates and the number of valid days.
+    mask, and an accumulator ``acc`` shaped (2, lat, lon) (the sum of the daily rates and the
+    number of valid days so far; None for a fresh one) that it adds into and returns.
     """
     if accumulate is None:
         return None
 
-    def block(chl, par, sst, day_length, ocean):
-        out = np.zeros((1, 2) + chl.shape[1:], dtype=np.float64)
+    def block(chl, par, sst, day_length, ocean, acc=None):
+        if acc is None:
+            acc = np.zeros((2,) + chl.shape[1:], dtype=np.float64)
         oc = np.ascontiguousarray(ocean, dtype=np.bool_)
         for k in range(chl.shape[0]):
             accumulate(chl[k], par[k], sst[k], np.ascontiguousarray(day_length[k], dtype=np.float64),
-                       oc, out[0, 0], out[0, 1])
-        return out
+                       oc, acc[0], acc[1])
+        return acc
 
     return block
