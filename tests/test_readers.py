@@ -843,3 +843,57 @@ def test_match_grid_rejects_regional_grid_not_covering_target():
     with pytest.raises(GridMismatchError) as exc:
         match_grid(src, _target(axis(0.125, 0.25, 40), axis(0.125, 0.25, 40)), "/data/sst.nc")
     _assert_error_names(exc, "/data/sst.nc", "does not cover the target")
+
+
+# ------------------------------------------------------------------------------------------
+# a series of files laid out alike is read as one stack (light h5py check per file)
+# ------------------------------------------------------------------------------------------
+
+SERIES_DATES = {
+    # how each day's file is dated -> write_grid keywords for day d (0-based, April 2024)
+    "time stamps (units differ per file)": lambda d: dict(time=[0.5], time_units=f"days since 2024-04-{d + 1:02d}"),
+    "time bounds": lambda d: dict(time=[d + 0.5], time_bounds=[[d, d + 1]], time_units="days since 2024-04-01"),
+    "ACDD attributes": lambda d: dict(global_attrs={"time_coverage_start": f"2024-04-{d + 1:02d}",
+                                                    "time_coverage_end": f"2024-04-{d + 1:02d}"}),
+    "file name": lambda d: dict(time=[0.0], time_units="days since 1970-01-01"),  # wrong on purpose
+}
+
+
+@pytest.mark.parametrize("how", list(SERIES_DATES))
+def test_series_stacked_like_files_read_one_by_one(tmp_path, monkeypatch, how):
+    """Five daily files, one of them packed differently (it must be opened on its own): the
+    values, periods and file list equal those of the netCDF library reading every file in full
+    (netCDF4-python is the reference)."""
+    from euphotic import readers
+
+    rng = np.random.default_rng(21)
+    lat, lon = axis(-4.5, 1.0, 10), axis(100.5, 1.0, 12)
+    for d in range(5):
+        values = rng.uniform(270.0, 300.0, (10, 12))
+        packed = np.round((values - 273.15) / (0.01 if d != 3 else 0.02)).astype("i2")
+        kw = SERIES_DATES[how](d)
+        if "time" in kw:
+            packed = packed[None]
+        write_grid(
+            tmp_path / f"sst_202404{d + 1:02d}.nc", packed, lat, lon, name="t", dtype="i2",
+            fill_value=np.int16(-32767), chunksizes=(1, 5, 6) if "time" in kw else (5, 6),
+            var_attrs={"standard_name": STD["sst"], "units": "degC", "add_offset": 273.15 - 273.15,
+                       "scale_factor": 0.01 if d != 3 else 0.02},
+            **kw,
+        )
+    spec = InputSpec(role="sst", files=str(tmp_path / "sst_*.nc"),
+                     date_pattern=r"_(?P<start>\d{8})" if how == "file name" else None)
+    calls = []
+    real = readers._open_one
+    monkeypatch.setattr(readers, "_open_one", lambda *a, **k: calls.append(a[1]) or real(*a, **k))
+    got = open_input(spec)
+    # the first file, the stack of four alike, and the differently packed fourth day
+    assert len(calls) == 3
+    monkeypatch.setenv("EUPHOTIC_READER", "netcdf4")
+    want = open_input(spec)
+    assert len(calls) == 3 + 5
+    np.testing.assert_array_equal(got.values, want.values)
+    np.testing.assert_array_equal(got.period_start.values, want.period_start.values)
+    np.testing.assert_array_equal(got.period_end.values, want.period_end.values)
+    assert got.period_start.values[0] == np.datetime64("2024-04-01")
+    assert got.attrs["files"] == want.attrs["files"]

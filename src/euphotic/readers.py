@@ -231,6 +231,13 @@ class _Piece:
     start: np.ndarray | None  # datetime64[D] per time step, or None (stamps only)
     end: np.ndarray | None
     stamps: np.ndarray | None  # cftime stamps when only stamps are known
+    variable: str = ""
+    time_dim: str | None = None
+    file_dims: tuple = ()  # the variable's dimensions in the file
+    #: True when the values come from euphotic.chunkread (the file handle is closed)
+    detached: bool = False
+    #: paths of the files stacked into ``data`` (just ``path`` for one file)
+    paths: list[str] = field(default_factory=list)
 
 
 def _find_variable(ds: xr.Dataset, spec: InputSpec, path: str) -> str:
@@ -365,72 +372,21 @@ def _lazy_values(da: xr.DataArray, name: str, enc: dict, path: str) -> xr.DataAr
     if chunkread.enabled():
         raw = chunkread.dask_array(path, name)
         if raw is not None and raw.shape == da.shape:
-            coding = {k: enc[k] for k in _CF_CODING_KEYS if k in enc}
-            if raw.dtype.kind == "f" and all(
-                k == "_FillValue" and np.isnan(v) for k, v in coding.items()
-            ):
-                return da.copy(data=raw)  # float with NaN fill (or none): nothing to decode
-            var = xr.Variable(da.dims, raw, attrs=coding)
-            decoded = xr.conventions.decode_cf_variable(
-                name, var, mask_and_scale=True, decode_times=False
-            )
-            return da.copy(data=decoded.data)
+            return da.copy(data=_decode_raw(raw, da.dims, name, enc))
     return da.chunk(enc.get("preferred_chunks") or {d: -1 for d in da.dims})
 
 
-def _open_one(spec: InputSpec, path: str) -> _Piece:
-    try:
-        ds = xr.open_dataset(
-            path,
-            engine="netcdf4",
-            chunks=None,  # metadata is read without dask; the data variable is chunked below
-            decode_times=False,
-            mask_and_scale=True,
-            cache=False,
-        )
-    except (OSError, ValueError) as exc:
-        raise InputFileError(
-            path, f"cannot be opened as NetCDF ({exc.__class__.__name__}: {exc})"
-        ) from None
-    name = _find_variable(ds, spec, path)
-    da = ds[name]
-    enc = dict(da.encoding)
-    da = _lazy_values(da, name, enc, path)
-    # values read by euphotic.chunkread need no open netCDF handle: close the file once the
-    # metadata below has been read (keeps memory flat however many files a run opens)
-    detached = any(str(k).startswith("chunkread-") for k in da.data.__dask_graph__().layers)
-    attrs = dict(da.attrs)
-    lat_d = _find_axis(ds, da, "lat", path)
-    lon_d = _find_axis(ds, da, "lon", path)
-    other = [d for d in da.dims if d not in (lat_d, lon_d)]
-    time_d = None
-    for d in other:
-        c = ds[d] if d in ds.variables else None
-        is_time = c is not None and (
-            c.attrs.get("standard_name") == "time"
-            or c.attrs.get("axis") == "T"
-            or "since" in str(c.attrs.get("units", ""))
-            or d.lower() in ("time", "t")
-        )
-        if is_time and time_d is None:
-            time_d = d
-        elif da.sizes[d] == 1:
-            da = da.isel({d: 0}, drop=True)
-        else:
-            raise InputFileError(
-                path, f"variable {name!r} has an extra dimension {d!r} of size {da.sizes[d]}"
-            )
-    da = da.rename({lat_d: "lat", lon_d: "lon"})
-
-    # --- dates
+def _dates(spec: InputSpec, ds: xr.Dataset, time_d: str | None, n_time: int, path: str):
+    """(start, end, stamps) of a file's time steps: from the file name (``date_pattern``),
+    time bounds, ACDD ``time_coverage_*`` attributes, or time stamps (resolved later)."""
     start = end = stamps = None
     if spec.date_pattern:
         start, end = _dates_from_name(spec, path)
-        if time_d is not None and da.sizes[time_d] != 1:
+        if time_d is not None and n_time != 1:
             raise InputFileError(
                 path,
                 "date_pattern dates one period per file, but the file has "
-                f"{da.sizes[time_d]} time steps",
+                f"{n_time} time steps",
             )
     elif time_d is not None:
         tvar = ds[time_d].variable
@@ -445,7 +401,7 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
             start = np.array([_to_day(x) for x in b[:, 0]])
             end = np.array([_ceil_day(x) for x in b[:, 1]])
             end = np.maximum(end, start + 1)
-        elif da.sizes[time_d] == 1 and (acdd := _dates_from_acdd(ds, path)) is not None:
+        elif n_time == 1 and (acdd := _dates_from_acdd(ds, path)) is not None:
             start, end = acdd
         else:
             stamps = np.atleast_1d(_decode_time(tvar, path, time_d))
@@ -467,6 +423,96 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
                 )
         else:
             start, end = acdd
+    return start, end, stamps
+
+
+def _decode_raw(raw, dims, name: str, enc: dict):
+    """CF decoding (fill values, scale/offset) of raw stored values, as the library path does."""
+    coding = {k: enc[k] for k in _CF_CODING_KEYS if k in enc}
+    if raw.dtype.kind == "f" and all(k == "_FillValue" and np.isnan(v) for k, v in coding.items()):
+        return raw  # float with NaN fill (or none): nothing to decode
+    var = xr.Variable(dims, raw, attrs=coding)
+    return xr.conventions.decode_cf_variable(
+        name, var, mask_and_scale=True, decode_times=False
+    ).data
+
+
+def _stacked_values(da: xr.DataArray, name: str, enc: dict, stack: list, time_d, grid_dims):
+    """The raw arrays of several files laid like this file's variable, one after the other
+    along its time dimension (or a new leading one), CF-decoded; only lat/lon coords kept."""
+    import dask.array as dsa
+
+    if time_d is not None:
+        raw = dsa.concatenate(stack, axis=da.dims.index(time_d))
+        dims = da.dims
+    else:
+        time_d = "time"
+        raw = dsa.stack(stack, axis=0)
+        dims = ("time",) + da.dims
+    coords = {d: da[d].variable for d in grid_dims}
+    out = xr.DataArray(_decode_raw(raw, dims, name, enc), dims=dims, coords=coords,
+                       attrs=dict(da.attrs), name=name)
+    return out, time_d
+
+
+def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
+    """One file as a :class:`_Piece`. With ``stack`` (raw chunk-reader arrays of files laid
+    out exactly like this one, this file's first), the piece holds all of them in order."""
+    try:
+        ds = xr.open_dataset(
+            path,
+            engine="netcdf4",
+            chunks=None,  # metadata is read without dask; the data variable is chunked below
+            decode_times=False,
+            mask_and_scale=True,
+            cache=False,
+        )
+    except (OSError, ValueError) as exc:
+        raise InputFileError(
+            path, f"cannot be opened as NetCDF ({exc.__class__.__name__}: {exc})"
+        ) from None
+    name = _find_variable(ds, spec, path)
+    da = ds[name]
+    enc = dict(da.encoding)
+    file_dims = tuple(da.dims)
+    lat_d = _find_axis(ds, da, "lat", path)
+    lon_d = _find_axis(ds, da, "lon", path)
+    time_d, squeeze = None, []
+    for d in da.dims:
+        if d in (lat_d, lon_d):
+            continue
+        c = ds[d] if d in ds.variables else None
+        is_time = c is not None and (
+            c.attrs.get("standard_name") == "time"
+            or c.attrs.get("axis") == "T"
+            or "since" in str(c.attrs.get("units", ""))
+            or d.lower() in ("time", "t")
+        )
+        if is_time and time_d is None:
+            time_d = d
+        elif da.sizes[d] == 1:
+            squeeze.append(d)
+        else:
+            raise InputFileError(
+                path, f"variable {name!r} has an extra dimension {d!r} of size {da.sizes[d]}"
+            )
+
+    # --- dates (of this file; a stack's dates are given by the caller)
+    start, end, stamps = _dates(spec, ds, time_d, da.sizes[time_d] if time_d else 1, path)
+
+    file_time_d = time_d
+    if stack is None:
+        da = _lazy_values(da, name, enc, path)
+        # values read by euphotic.chunkread need no open netCDF handle: close the file once
+        # the metadata below has been read (keeps memory flat however many files a run opens)
+        detached = any(str(k).startswith("chunkread-") for k in da.data.__dask_graph__().layers)
+    else:
+        da, time_d = _stacked_values(da, name, enc, stack, time_d, (lat_d, lon_d))
+        detached = True
+    attrs = dict(da.attrs)
+    if squeeze:
+        da = da.isel({d: 0 for d in squeeze}, drop=True)
+    da = da.rename({lat_d: "lat", lon_d: "lon"})
     if time_d is None:
         da = da.expand_dims("time")
     else:
@@ -498,7 +544,143 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
         "long_name": LONG_NAMES[spec.role],
         "source_variable": name,
     }
-    return _Piece(path=path, data=da, start=start, end=end, stamps=stamps)
+    return _Piece(path=path, data=da, start=start, end=end, stamps=stamps, variable=name,
+                  time_dim=file_time_d, file_dims=file_dims,
+                  detached=detached, paths=[path])
+
+
+#: HDF5 attributes that netCDF-4 and dimension scales manage themselves (not metadata).
+_H5_INTERNAL = {"DIMENSION_LIST", "REFERENCE_LIST", "CLASS", "NAME", "_Netcdf4Dimid",
+                "_Netcdf4Coordinates", "_NCProperties", "_nc3_strict"}
+
+
+def _h5_attrs(obj) -> dict:
+    """Attributes of an h5py object as netCDF gives them: text as str, numbers as numpy."""
+    out = {}
+    for k in obj.attrs:
+        if k in _H5_INTERNAL:
+            continue
+        v = obj.attrs[k]
+        if isinstance(v, bytes | np.bytes_):
+            v = v.decode("utf-8", "replace")
+        elif isinstance(v, np.ndarray) and v.dtype.kind in "SO":
+            v = [x.decode("utf-8", "replace") if isinstance(x, bytes) else x for x in v.tolist()]
+            v = v[0] if len(v) == 1 else v
+        elif isinstance(v, np.ndarray) and v.size == 1:
+            v = v.reshape(())[()]
+        out[k] = v
+    return out
+
+
+def _comparable(attrs: dict) -> tuple:
+    """Attributes in a form that compares equal exactly when they are the same (NaN too)."""
+    return tuple(
+        (k, np.asarray(v).dtype.str, np.asarray(v).tobytes())
+        if isinstance(v, np.ndarray | np.generic | float | int) else (k, repr(v))
+        for k, v in sorted(attrs.items())
+    )
+
+
+def _h5_layout(f, first: _Piece) -> tuple | None:
+    """What must match for a file to be read like ``first`` (an open h5py File): the
+    variable's shape, type, chunks, filters and attributes, and its coordinate values."""
+    import h5py
+
+    v = f.get(first.variable)
+    if not isinstance(v, h5py.Dataset) or v.chunks is None:
+        return None
+    plist = v.id.get_create_plist()
+    sig = [v.shape, v.dtype.str, v.chunks,
+           tuple(plist.get_filter(i)[0] for i in range(plist.get_nfilters())),
+           _comparable(_h5_attrs(v))]
+    for d in first.file_dims:
+        if d == first.time_dim:
+            continue
+        c = f.get(d)
+        sig.append((d, c[()].tobytes(), _comparable(_h5_attrs(c)))
+                   if isinstance(c, h5py.Dataset) else (d, None))
+    return tuple(sig)
+
+
+def _h5_time_dataset(f, time_d: str | None) -> xr.Dataset:
+    """The time variable (and its bounds) and global attributes of an h5py File, for
+    :func:`_dates`."""
+    variables = {}
+    if time_d is not None:
+        t = f[time_d]
+        variables[time_d] = xr.Variable((time_d,), t[()], _h5_attrs(t))
+        bname = variables[time_d].attrs.get("bounds")
+        if bname and bname in f:
+            b = f[bname]
+            variables[bname] = xr.Variable((time_d, "nv"), b[()], _h5_attrs(b))
+    return xr.Dataset(variables, attrs=_h5_attrs(f))
+
+
+def _like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
+    """Raw values and dates of a file laid out exactly like ``first``, read with h5py and the
+    chunk reader only (no netCDF open); None when anything differs (the file is then opened
+    and checked in full)."""
+    import h5py
+
+    try:
+        f = h5py.File(path, "r")
+    except OSError:
+        return None
+    with f:
+        try:
+            if _h5_layout(f, first) != layout:
+                return None
+            var = f[first.variable]
+            n_time = var.shape[first.file_dims.index(first.time_dim)] if first.time_dim else 1
+            ds = _h5_time_dataset(f, first.time_dim)
+        except (KeyError, OSError, ValueError, TypeError):
+            return None  # anything unexpected: the full open reports it properly
+    start, end, stamps = _dates(spec, ds, first.time_dim, n_time, path)
+    if (stamps is None) != (first.stamps is None):
+        return None
+    raw = chunkread.dask_array(path, first.variable)
+    return None if raw is None else (raw, start, end, stamps)
+
+
+def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
+    """Every file as pieces. Files laid out like the first (same variable layout, attributes
+    and grid: the usual daily series) are read as one stacked piece after a light h5py check;
+    any other file is opened and checked on its own."""
+    first = _open_checked(spec, paths[0])
+    if len(paths) == 1 or not first.detached or (first.time_dim is None and first.stamps is not None):
+        return [first] + [_open_checked(spec, p) for p in paths[1:]]
+    import h5py
+
+    with h5py.File(paths[0], "r") as f:
+        layout = _h5_layout(f, first)
+    same, others = [(paths[0], chunkread.dask_array(paths[0], first.variable), first.start,
+                     first.end, first.stamps)], []
+    for p in paths[1:]:
+        try:
+            hit = _like_first(spec, p, first, layout) if layout is not None else None
+        except _CalendarDateError as exc:
+            raise InputFileError(p, str(exc)) from None
+        if hit is None:
+            others.append(_open_checked(spec, p))
+        else:
+            same.append((p, *hit))
+    if len(same) == 1:
+        return [first] + others
+    stacked = _open_one(spec, paths[0], stack=[x[1] for x in same])
+    if first.stamps is not None:
+        stacked.stamps = np.concatenate([x[4] for x in same])
+    else:
+        stacked.start = np.concatenate([x[2] for x in same])
+        stacked.end = np.concatenate([x[3] for x in same])
+    stacked.paths = [x[0] for x in same]
+    return [stacked] + others
+
+
+def _open_checked(spec: InputSpec, path: str) -> _Piece:
+    try:
+        return _open_one(spec, path)
+    except _CalendarDateError as exc:
+        raise InputFileError(path, str(exc)) from None
 
 
 def _resolve_stamps(pieces: list[_Piece], spec: InputSpec) -> None:
@@ -547,12 +729,7 @@ def open_input(spec: InputSpec) -> xr.DataArray:
     """
     paths = spec.paths()
     _small_chunk_cache()
-    pieces = []
-    for p in paths:
-        try:
-            pieces.append(_open_one(spec, p))
-        except _CalendarDateError as exc:
-            raise InputFileError(p, str(exc)) from None
+    pieces = _open_all(spec, paths)
     try:
         _resolve_stamps(pieces, spec)
     except _CalendarDateError as exc:
@@ -591,7 +768,7 @@ def open_input(spec: InputSpec) -> xr.DataArray:
     order = np.argsort(starts, kind="stable")
     if not np.all(order == np.arange(len(order))):
         out = out.isel(time=order)
-    out.attrs["files"] = [p.path for p in pieces]
+    out.attrs["files"] = sorted(q for p in pieces for q in p.paths)
     out.name = spec.role
     return out
 
