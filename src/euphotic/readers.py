@@ -118,6 +118,10 @@ def _to_day(value) -> np.datetime64:
         ) from None
 
 
+class _NotStackable(Exception):
+    """The chunk reader cannot read every file of a stack (they are then opened one by one)."""
+
+
 class _CalendarDateError(ValueError):
     """A model-calendar date (e.g. 30 February of a 360-day year) with no real day."""
 
@@ -438,17 +442,18 @@ def _decode_raw(raw, dims, name: str, enc: dict):
 
 
 def _stacked_values(da: xr.DataArray, name: str, enc: dict, stack: list, time_d, grid_dims):
-    """The raw arrays of several files laid like this file's variable, one after the other
-    along its time dimension (or a new leading one), CF-decoded; only lat/lon coords kept."""
-    import dask.array as dsa
-
+    """The raw values of several files laid out like this file's variable (``stack``: their
+    paths, this file's first), one after the other along its time dimension (or a new leading
+    one), CF-decoded; only lat/lon coords kept."""
     if time_d is not None:
-        raw = dsa.concatenate(stack, axis=da.dims.index(time_d))
+        raw = chunkread.stacked_dask_array(stack, name, axis=da.dims.index(time_d))
         dims = da.dims
     else:
         time_d = "time"
-        raw = dsa.stack(stack, axis=0)
+        raw = chunkread.stacked_dask_array(stack, name, axis=None)
         dims = ("time",) + da.dims
+    if raw is None:
+        raise _NotStackable(stack[0])
     coords = {d: da[d].variable for d in grid_dims}
     out = xr.DataArray(_decode_raw(raw, dims, name, enc), dims=dims, coords=coords,
                        attrs=dict(da.attrs), name=name)
@@ -617,9 +622,8 @@ def _h5_time_dataset(f, time_d: str | None) -> xr.Dataset:
 
 
 def _like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
-    """Raw values and dates of a file laid out exactly like ``first``, read with h5py and the
-    chunk reader only (no netCDF open); None when anything differs (the file is then opened
-    and checked in full)."""
+    """Dates of a file laid out exactly like ``first``, read with h5py only (no netCDF open);
+    None when anything differs (the file is then opened and checked in full)."""
     import h5py
 
     try:
@@ -638,8 +642,7 @@ def _like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
     start, end, stamps = _dates(spec, ds, first.time_dim, n_time, path)
     if (stamps is None) != (first.stamps is None):
         return None
-    raw = chunkread.dask_array(path, first.variable)
-    return None if raw is None else (raw, start, end, stamps)
+    return start, end, stamps
 
 
 def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
@@ -653,8 +656,7 @@ def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
 
     with h5py.File(paths[0], "r") as f:
         layout = _h5_layout(f, first)
-    same, others = [(paths[0], chunkread.dask_array(paths[0], first.variable), first.start,
-                     first.end, first.stamps)], []
+    same, others = [(paths[0], first.start, first.end, first.stamps)], []
     for p in paths[1:]:
         try:
             hit = _like_first(spec, p, first, layout) if layout is not None else None
@@ -666,12 +668,15 @@ def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
             same.append((p, *hit))
     if len(same) == 1:
         return [first] + others
-    stacked = _open_one(spec, paths[0], stack=[x[1] for x in same])
+    try:
+        stacked = _open_one(spec, paths[0], stack=[x[0] for x in same])
+    except _NotStackable:
+        return [first] + [_open_checked(spec, x[0]) for x in same[1:]] + others
     if first.stamps is not None:
-        stacked.stamps = np.concatenate([x[4] for x in same])
+        stacked.stamps = np.concatenate([x[3] for x in same])
     else:
-        stacked.start = np.concatenate([x[2] for x in same])
-        stacked.end = np.concatenate([x[3] for x in same])
+        stacked.start = np.concatenate([x[1] for x in same])
+        stacked.end = np.concatenate([x[2] for x in same])
     stacked.paths = [x[0] for x in same]
     return [stacked] + others
 
