@@ -389,3 +389,27 @@ def test_fused_chain_with_several_days_per_chunk_matches_day_by_day():
     with dask.config.set(scheduler="threads"):
         np.testing.assert_allclose(fused.npp.values, plain.npp.values, rtol=1e-6)
         np.testing.assert_array_equal(fused.coverage.values, plain.coverage.values)
+
+
+def test_cluster_masks_are_sent_to_workers_not_embedded_in_the_graph():
+    """With a dask.distributed client the ocean mask and region bits are scattered to the
+    workers once: the graph holds a reference, not the array (a large array in the graph makes
+    distributed warn and ship it through the scheduler). Without a client they are held once
+    in the graph."""
+    import pickle
+
+    from distributed import Client, LocalCluster
+
+    from euphotic.pipeline import _grid_masks
+
+    root = Path(__file__).resolve().parents[1]
+    prep = prepare(load_config(root / "configs" / "demo.toml"))
+    size = prep.ocean.values.nbytes
+    local_ocean, local_bits = _grid_masks(prep, None)
+    assert len(pickle.dumps(dict(local_ocean.data.__dask_graph__()))) >= size
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) as cluster, \
+            Client(cluster) as client:
+        ocean_mask, bits = _grid_masks(prep, client)
+        for arr, full in ((ocean_mask.data, prep.ocean.values), (bits, prep.region_masks.bits)):
+            assert len(pickle.dumps(dict(arr.__dask_graph__()))) < size / 2
+            np.testing.assert_array_equal(arr.compute(), full)

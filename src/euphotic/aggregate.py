@@ -293,7 +293,8 @@ def region_sums(
 
     Parameters
     ----------
-    bits : integer (lat, lon) array from :func:`region_bits` (bit r set: in ``regions[r]``)
+    bits : integer (lat, lon) array (numpy or dask) from :func:`region_bits` (bit r set: in
+        ``regions[r]``)
     ocean : boolean (lat, lon) DataArray (lazy when taken from temperature)
     area_rows_m2 : (lat,) area of one cell in each grid row, m2 (regular grid)
     """
@@ -309,7 +310,7 @@ def region_sums(
         if isinstance(ocean.data, da.Array)
         else da.from_array(np.asarray(ocean.values), chunks=chunks)
     )
-    b = da.from_array(np.asarray(bits), chunks=chunks)
+    b = bits.rechunk(chunks) if isinstance(bits, da.Array) else da.from_array(np.asarray(bits), chunks=chunks)
     rows = da.from_array(np.asarray(area_rows_m2, np.float64)[:, None], chunks=(chunks[0], 1))
     n = len(regions)
     parts = da.map_blocks(

@@ -156,6 +156,27 @@ def compute_engine(
         yield client
 
 
+def _grid_masks(prep: Prepared, client):
+    """The ocean mask and region bits as dask arrays in the map's blocks, each held once: in
+    the graph for the local scheduler, or sent once to the cluster's workers (a large array
+    embedded in the graph would travel through the scheduler with it)."""
+    import dask.array as da
+
+    spatial = prep.chl.data.chunks[1:] if isinstance(prep.chl.data, da.Array) else "auto"
+
+    def lazy(arr: np.ndarray) -> da.Array:
+        if client is None:
+            return da.from_array(arr, chunks=spatial)
+        future = client.scatter(arr, broadcast=False)
+        return da.from_delayed(dask.delayed(future), shape=arr.shape, dtype=arr.dtype).rechunk(spatial)
+
+    ocean_mask = prep.ocean
+    if not isinstance(prep.ocean.data, da.Array):
+        ocean_mask = prep.ocean.copy(data=lazy(np.asarray(prep.ocean.values, bool)))
+    bits = prep.region_masks.bits
+    return ocean_mask, (None if bits is None else lazy(bits))
+
+
 def _compute(objs, *, client, progress: bool):
     """Compute ``objs`` once, with a progress bar when asked."""
     if client is not None:
@@ -204,7 +225,8 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
         input_files["day_length"] = prep.day_length.attrs["files"]
 
     writes, finals, temps, lazies = [], [], [], []
-    names, bits = prep.region_masks.names, prep.region_masks.bits
+    names = prep.region_masks.names
+    ocean_mask, bits = _grid_masks(prep, client)
     for model_name in cfg.models:
         model = get_model(model_name)
         for month in prep.months:
@@ -215,7 +237,7 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
                 chl=prep.chl,
                 par=prep.par,
                 sst=prep.sst,
-                ocean=prep.ocean,
+                ocean=ocean_mask,
                 day_length=prep.day_length,
                 month_block=get_month_block(model_name),
             )
@@ -232,7 +254,7 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
             finals.append((tmp, final))
             if names:
                 lazies.append(
-                    aggregate.region_sums(maps, names, bits, prep.ocean, prep.area_rows_m2)
+                    aggregate.region_sums(maps, names, bits, ocean_mask, prep.area_rows_m2)
                 )
 
     sums = [z.sums for z in lazies]
