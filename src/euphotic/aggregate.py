@@ -240,7 +240,8 @@ class RegionMasks(Mapping):
                 bits = np.zeros(np.shape(mask), dtype=dtype)
             elif bits.dtype != dtype:
                 bits = bits.astype(dtype)
-            bits[np.asarray(mask, bool)] |= dtype(1) << dtype(r)
+            ones = np.ascontiguousarray(mask, dtype=bool).view(np.uint8).astype(dtype, copy=False)
+            bits |= ones << dtype(r)
             names.append(name)
         return cls(names, bits)
 

@@ -607,9 +607,11 @@ def _h5_layout(f, first: _Piece) -> tuple | None:
     return tuple(sig)
 
 
-def _h5_time_dataset(f, time_d: str | None) -> xr.Dataset:
-    """The time variable (and its bounds) and global attributes of an h5py File, for
-    :func:`_dates`."""
+def _h5_time_dataset(f, spec: InputSpec, time_d: str | None, n_time: int) -> xr.Dataset:
+    """What :func:`_dates` reads from a file, taken from an open h5py File: the time variable
+    and its bounds, and the global attributes where ACDD dates may be used."""
+    if spec.date_pattern:
+        return xr.Dataset()  # dated by the file name
     variables = {}
     if time_d is not None:
         t = f[time_d]
@@ -618,7 +620,8 @@ def _h5_time_dataset(f, time_d: str | None) -> xr.Dataset:
         if bname and bname in f:
             b = f[bname]
             variables[bname] = xr.Variable((time_d, "nv"), b[()], _h5_attrs(b))
-    return xr.Dataset(variables, attrs=_h5_attrs(f))
+    acdd_possible = time_d is None or (len(variables) == 1 and n_time == 1)
+    return xr.Dataset(variables, attrs=_h5_attrs(f) if acdd_possible else {})
 
 
 def _like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
@@ -636,7 +639,7 @@ def _like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
                 return None
             var = f[first.variable]
             n_time = var.shape[first.file_dims.index(first.time_dim)] if first.time_dim else 1
-            ds = _h5_time_dataset(f, first.time_dim)
+            ds = _h5_time_dataset(f, spec, first.time_dim, n_time)
         except (KeyError, OSError, ValueError, TypeError):
             return None  # anything unexpected: the full open reports it properly
     start, end, stamps = _dates(spec, ds, first.time_dim, n_time, path)
