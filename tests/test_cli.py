@@ -104,6 +104,10 @@ def test_bad_config(tmp_path):
     res = _run(cfg)
     assert res.exit_code == 1
     assert "unknown model 'nope'" in res.stderr and str(cfg) in res.stderr
+    cfg.write_text("[run]\nmonths_per_compute = -2\n")
+    res = _run(cfg)
+    assert res.exit_code == 1 and "months_per_compute" in res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1
     cfg.write_text("this is = = not toml")
     res = _run(cfg)
     assert res.exit_code == 1 and "not valid TOML" in res.stderr

@@ -233,6 +233,50 @@ def test_failed_run_leaves_no_file_and_keeps_old_results(tmp_path, monkeypatch):
     assert not [p for p in out.iterdir() if ".part-" in p.name]
 
 
+@pytest.mark.parametrize("per", [0, 2])
+def test_months_computed_in_batches_match_one_graph(tmp_path, per):
+    """`months_per_compute` only changes how many months each computed graph holds: one
+    month at a time (the default), two, or all (0) give the same files and totals (January and
+    February of the equator case, whose composite straddles the boundary)."""
+    cfg = load_config(_equator_case(tmp_path))
+    one = run(cfg, progress=False)
+    cfg.months_per_compute = per
+    cfg.output_dir = tmp_path / f"per{per}"
+    other = run(cfg, progress=False)
+    assert [p.name for p in one.maps] == [p.name for p in other.maps] == [
+        "npp_vgpm_2024-01.nc", "npp_vgpm_2024-02.nc"]
+    for a, b in zip(one.maps, other.maps, strict=True):
+        with xr.open_dataset(a) as x, xr.open_dataset(b) as y:
+            np.testing.assert_array_equal(x["npp"].values, y["npp"].values)
+            np.testing.assert_array_equal(x["coverage"].values, y["coverage"].values)
+    assert one.totals_csv.read_text() == other.totals_csv.read_text()
+
+
+def test_failure_in_a_later_batch_puts_no_month_in_place(tmp_path, monkeypatch):
+    """January is computed first, then February fails: January's finished file is not put in
+    place either, the old results stay, and no temporary file is left."""
+    from euphotic import pipeline
+
+    cfg = load_config(_equator_case(tmp_path))
+    run(cfg, progress=False)
+    out = tmp_path / "out"
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    real, calls = pipeline._compute, []
+
+    def second_fails(objs, **kw):
+        calls.append(1)
+        if len(calls) == 2:
+            raise RuntimeError("node lost")
+        return real(objs, **kw)
+
+    monkeypatch.setattr(pipeline, "_compute", second_fails)
+    (out / "npp_vgpm_2024-01.nc").unlink()  # a month with no earlier result
+    with pytest.raises(RuntimeError, match="node lost"):
+        run(cfg, progress=False)
+    after = {p.name: p.read_bytes() for p in out.iterdir()}
+    assert after == {k: v for k, v in before.items() if k != "npp_vgpm_2024-01.nc"}
+
+
 def test_demo_run_end_to_end(tmp_path):
     """The bundled demo: the totals table has the promised rows, columns and units."""
     from click.testing import CliRunner

@@ -24,6 +24,7 @@ _RUN_KEYS = {
     "figures",
     "title",
     "output_format",
+    "months_per_compute",
 }
 _OCEAN_KEYS = {"source", "land_mask", "variable"}
 
@@ -43,6 +44,8 @@ class RunConfig:
     figures: bool = True
     title: str = "Ocean net primary production"
     output_format: str = "netcdf"  # "netcdf" or "zarr"
+    #: months (x models) in each computed graph; 0: the whole run in one graph
+    months_per_compute: int = 1
     ocean_source: str = "package"  # "package", "file" or "temperature"
     land_mask: Path | None = None
     land_mask_variable: str | None = None
@@ -91,6 +94,11 @@ def load_config(path: str | Path) -> RunConfig:
     if output_format not in ("netcdf", "zarr"):
         raise ConfigError(
             f"{path} [run]", f"`output_format` must be 'netcdf' or 'zarr', not {output_format!r}"
+        )
+    per = run.get("months_per_compute", 1)
+    if not isinstance(per, int) or isinstance(per, bool) or per < 0:
+        raise ConfigError(
+            f"{path} [run]", f"`months_per_compute` must be a whole number >= 0, not {per!r}"
         )
     earth = run.get("earth", "sphere")
     if earth not in ("sphere", "wgs84"):
@@ -152,6 +160,7 @@ def load_config(path: str | Path) -> RunConfig:
         figures=bool(run.get("figures", True)),
         title=str(run.get("title", "Ocean net primary production")),
         output_format=output_format,
+        months_per_compute=per,
         ocean_source=source,
         land_mask=(base / land_mask).resolve() if land_mask else None,
         land_mask_variable=ocean.get("variable"),

@@ -224,50 +224,60 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
     if prep.day_length is not None:
         input_files["day_length"] = prep.day_length.attrs["files"]
 
-    writes, finals, temps, lazies = [], [], [], []
     names = prep.region_masks.names
     ocean_mask, bits = _grid_masks(prep, client)
-    for model_name in cfg.models:
-        model = get_model(model_name)
-        for month in prep.months:
-            maps = aggregate.monthly_npp(
-                model,
-                model_name,
-                month,
-                chl=prep.chl,
-                par=prep.par,
-                sst=prep.sst,
-                ocean=ocean_mask,
-                day_length=prep.day_length,
-                month_block=get_month_block(model_name),
-            )
-            ds = outputs.month_dataset(
-                maps, title=cfg.title, input_files=input_files, command=command
-            )
-            final = (
-                out_dir
-                / f"{outputs.month_stem(maps)}.{'zarr' if cfg.output_format == 'zarr' else 'nc'}"
-            )
-            tmp = outputs.temp_path(final)
-            temps.append(tmp)
-            writes.append(outputs.write_lazy(ds, tmp, cfg.output_format))
-            finals.append((tmp, final))
-            if names:
-                lazies.append(
-                    aggregate.region_sums(maps, names, bits, ocean_mask, prep.area_rows_m2)
-                )
-
-    sums = [z.sums for z in lazies]
+    per = cfg.months_per_compute or len(prep.months)
+    batches = [prep.months[i : i + per] for i in range(0, len(prep.months), per)]
+    finals_by, temps, rows_by = {}, [], {}
     try:
-        _, computed = _compute([writes, sums], client=client, progress=progress)
+        for i, batch in enumerate(batches):
+            # one graph per batch of months (all models), computed once: memory and graph
+            # size stay those of one batch however many years a run covers
+            writes, lazies = [], []
+            for model_name in cfg.models:
+                model = get_model(model_name)
+                for month in batch:
+                    maps = aggregate.monthly_npp(
+                        model,
+                        model_name,
+                        month,
+                        chl=prep.chl,
+                        par=prep.par,
+                        sst=prep.sst,
+                        ocean=ocean_mask,
+                        day_length=prep.day_length,
+                        month_block=get_month_block(model_name),
+                    )
+                    ds = outputs.month_dataset(
+                        maps, title=cfg.title, input_files=input_files, command=command
+                    )
+                    suffix = "zarr" if cfg.output_format == "zarr" else "nc"
+                    final = out_dir / f"{outputs.month_stem(maps)}.{suffix}"
+                    tmp = outputs.temp_path(final)
+                    temps.append(tmp)
+                    writes.append(outputs.write_lazy(ds, tmp, cfg.output_format))
+                    finals_by[(model_name, month)] = (tmp, final)
+                    if names:
+                        lazies.append(
+                            aggregate.region_sums(maps, names, bits, ocean_mask, prep.area_rows_m2)
+                        )
+            if progress and len(batches) > 1:
+                span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
+                print(f"{span} ({i + 1}/{len(batches)})", file=sys.stderr)
+            _, computed = _compute([writes, [z.sums for z in lazies]], client=client,
+                                   progress=progress)
+            for z, sums in zip(lazies, computed, strict=True):
+                rows_by[(z.model, z.month)] = aggregate.finish_totals(z, sums)  # month: [M]
     except BaseException:
-        for t in temps:
+        for t in temps:  # nothing of a failed run is put in place
             outputs.remove_path(t)
         raise
+    order = [(model_name, month) for model_name in cfg.models for month in prep.months]
+    finals = [finals_by[k] for k in order]
     for tmp, final in finals:
         outputs.move_into_place(tmp, final)
     rows = [
-        row for z, s in zip(lazies, computed, strict=True) for row in aggregate.finish_totals(z, s)
+        row for m, month in order for row in rows_by.get((m, np.datetime64(month, "M")), [])
     ]
     totals = out_dir / "regional_totals.csv"
     outputs.write_totals_csv(rows, totals)
