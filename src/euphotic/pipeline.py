@@ -212,6 +212,40 @@ def run(
         return _run(cfg, progress=progress, command=command, client=client)
 
 
+def _batch_graph(cfg: RunConfig, prep: Prepared, batch, ocean_mask, bits, input_files, command,
+                 temps: list):
+    """Lazy writes and regional sums of the months in ``batch`` for every model, and the
+    (temporary, final) output path of each (model, month). Each temporary path is added to
+    ``temps`` before anything is written there."""
+    out_dir = Path(cfg.output_dir)
+    names = prep.region_masks.names
+    writes, lazies, placed = [], [], {}
+    for model_name in cfg.models:
+        model = get_model(model_name)
+        for month in batch:
+            maps = aggregate.monthly_npp(
+                model,
+                model_name,
+                month,
+                chl=prep.chl,
+                par=prep.par,
+                sst=prep.sst,
+                ocean=ocean_mask,
+                day_length=prep.day_length,
+                month_block=get_month_block(model_name),
+            )
+            ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command)
+            suffix = "zarr" if cfg.output_format == "zarr" else "nc"
+            final = out_dir / f"{outputs.month_stem(maps)}.{suffix}"
+            tmp = outputs.temp_path(final)
+            placed[(model_name, month)] = (tmp, final)
+            temps.append(tmp)
+            writes.append(outputs.write_lazy(ds, tmp, cfg.output_format))
+            if names:
+                lazies.append(aggregate.region_sums(maps, names, bits, ocean_mask, prep.area_rows_m2))
+    return writes, lazies, placed
+
+
 def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
     prep = prepare(cfg)
     out_dir = Path(cfg.output_dir)
@@ -224,7 +258,6 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
     if prep.day_length is not None:
         input_files["day_length"] = prep.day_length.attrs["files"]
 
-    names = prep.region_masks.names
     ocean_mask, bits = _grid_masks(prep, client)
     per = cfg.months_per_compute or len(prep.months)
     batches = [prep.months[i : i + per] for i in range(0, len(prep.months), per)]
@@ -233,34 +266,9 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
         for i, batch in enumerate(batches):
             # one graph per batch of months (all models), computed once: memory and graph
             # size stay those of one batch however many years a run covers
-            writes, lazies = [], []
-            for model_name in cfg.models:
-                model = get_model(model_name)
-                for month in batch:
-                    maps = aggregate.monthly_npp(
-                        model,
-                        model_name,
-                        month,
-                        chl=prep.chl,
-                        par=prep.par,
-                        sst=prep.sst,
-                        ocean=ocean_mask,
-                        day_length=prep.day_length,
-                        month_block=get_month_block(model_name),
-                    )
-                    ds = outputs.month_dataset(
-                        maps, title=cfg.title, input_files=input_files, command=command
-                    )
-                    suffix = "zarr" if cfg.output_format == "zarr" else "nc"
-                    final = out_dir / f"{outputs.month_stem(maps)}.{suffix}"
-                    tmp = outputs.temp_path(final)
-                    temps.append(tmp)
-                    writes.append(outputs.write_lazy(ds, tmp, cfg.output_format))
-                    finals_by[(model_name, month)] = (tmp, final)
-                    if names:
-                        lazies.append(
-                            aggregate.region_sums(maps, names, bits, ocean_mask, prep.area_rows_m2)
-                        )
+            writes, lazies, placed = _batch_graph(cfg, prep, batch, ocean_mask, bits,
+                                                  input_files, command, temps)
+            finals_by.update(placed)
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
                 print(f"{span} ({i + 1}/{len(batches)})", file=sys.stderr)
