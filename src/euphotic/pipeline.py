@@ -271,7 +271,7 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
             finals_by.update(placed)
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
-                print(f"{span} ({i + 1}/{len(batches)})", file=sys.stderr)
+                print(f"computing {span} ({i + 1} of {len(batches)})", file=sys.stderr)
             _, computed = _compute([writes, [z.sums for z in lazies]], client=client,
                                    progress=progress)
             for z, sums in zip(lazies, computed, strict=True):
