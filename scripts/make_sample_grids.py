@@ -24,7 +24,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-SEED = 20250403
+SEED = 20250565
 MONTH_START = np.datetime64("2025-04-01")
 N_DAYS = 30
 WEST, EAST, SOUTH, NORTH = -36.0, -14.0, 40.0, 60.0
