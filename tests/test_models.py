@@ -26,7 +26,6 @@ import dask.array as da
 import numpy as np
 import pytest
 import xarray as xr
-from dask.callbacks import Callback
 
 from euphotic.models import (
     eppley_vgpm,
@@ -35,6 +34,8 @@ from euphotic.models import (
     pb_opt_eppley,
     vgpm,
 )
+
+from .conftest import NoCompute
 
 # --------------------------------------------------------------------------------------
 # P^B_opt(T), B&F97 eq. 11
@@ -205,16 +206,6 @@ _SST = np.array([[20.0, 28.9, 10.0], [-1.5, 3.0, 15.0]])
 _DL = np.array([[12.0, 14.0, 11.0], [18.0, 6.0, 0.0]])
 
 
-class _NoCompute(Callback):
-    """dask callback that fails the test if any task runs while it is active."""
-
-    def __init__(self):
-        def pretask(key, dsk, state):
-            raise AssertionError(f"dask computed task {key!r} while the graph was being built")
-
-        super().__init__(pretask=pretask)
-
-
 @pytest.fixture(params=["numpy", "xarray", "dask"])
 def array_type(request):
     """Convert a numpy array (plus its units) to the requested array type, as MetPy's tests do.
@@ -248,7 +239,7 @@ def test_array_types_give_the_same_numbers(array_type, model):
         array_type(_SST, "degC"),
         array_type(_DL, "h"),
     )
-    with _NoCompute():
+    with NoCompute():
         out = model(*args)
     if array_type.kind == "numpy":
         assert isinstance(out, np.ndarray)
@@ -272,7 +263,7 @@ def test_no_compute_callback_catches_a_compute():
     # Guard for the laziness check itself: the callback must fire on a real compute.
     # Default (threaded) scheduler, the one the other tests would use.
     arr = da.ones(4, chunks=2) + 1
-    with _NoCompute(), pytest.raises(AssertionError, match="dask computed"):
+    with NoCompute(), pytest.raises(AssertionError, match="computed early"):
         arr.compute()
 
 
@@ -280,7 +271,7 @@ def test_no_compute_callback_catches_a_compute():
 def test_plain_dask_arrays_stay_lazy(model):
     chunks = (1, 2)
     args = [da.from_array(a, chunks=chunks) for a in (_CHL, _PAR, _SST, _DL)]
-    with _NoCompute():
+    with NoCompute():
         out = model(*args)
     assert isinstance(out, da.Array)
     with dask.config.set(scheduler="sync"):
@@ -318,7 +309,7 @@ def test_units_are_converted(array_type, model):
         array_type(_SST + 273.15, "K"),
         array_type(_DL * 60.0, "min"),
     )
-    with _NoCompute():
+    with NoCompute():
         other = model(*converted_args)
     # rel 1e-12: K -> degC subtracts 273.15 and the factors come from pint as floats, so a few
     # ulps of ~300 K (about 1e-13 degC) reach the result through P^B_opt; nothing else differs.

@@ -1,0 +1,51 @@
+"""Shared fixtures: one no-early-compute guard, the NetCDF writers, the demo run once per
+session, and the ``slow`` marker (cluster and benchmark tests; the default command runs them)."""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import pytest
+from dask.callbacks import Callback
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+class NoCompute(Callback):
+    """A dask callback that fails the test if anything is computed while it is active (the
+    pattern of xclim's ``assert_lazy``)."""
+
+    def _start(self, dsk):  # noqa: D401
+        raise AssertionError("computed early: dask started computing while the graph was built")
+
+
+@pytest.fixture
+def no_compute():
+    """Use as ``with no_compute: ...`` around code that must only build a lazy graph."""
+    return NoCompute()
+
+
+def pytest_configure(config):
+    config.addinivalue_line(
+        "markers", "slow: cluster, benchmark and real-process tests (run by default; deselect "
+        "with -m 'not slow')"
+    )
+
+
+@pytest.fixture(scope="session")
+def demo_run(tmp_path_factory):
+    """The bundled demo (configs/demo.toml on sample_grids/) run once per session through
+    the command line, with figures, into a copy of the repository layout. Returns the output
+    folder. Tests must not modify it."""
+    from click.testing import CliRunner
+
+    from euphotic.cli import main
+
+    base = tmp_path_factory.mktemp("demo")
+    shutil.copytree(ROOT / "configs", base / "configs")
+    (base / "sample_grids").symlink_to(ROOT / "sample_grids")
+    out = base / "demo_output"
+    res = CliRunner().invoke(main, ["run", str(base / "configs" / "demo.toml"), "-q"])
+    assert res.exit_code == 0, res.output
+    return out
