@@ -49,3 +49,13 @@ def demo_run(tmp_path_factory):
     res = CliRunner().invoke(main, ["run", str(base / "configs" / "demo.toml"), "-q"])
     assert res.exit_code == 0, res.output
     return out
+
+
+def folder_bytes(path: Path) -> dict[str, bytes]:
+    """Every file under ``path`` (relative name -> bytes), except the run lock, whose text
+    records the last holder. Used to check that a failed run left a folder unchanged."""
+    return {
+        str(p.relative_to(path)): p.read_bytes()
+        for p in sorted(Path(path).rglob("*"))
+        if p.is_file() and p.name != ".euphotic.lock"
+    }

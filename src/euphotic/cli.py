@@ -23,7 +23,7 @@ def _fail(exc: BaseException, debug: bool) -> None:
     else:
         msg = f"unexpected {exc.__class__.__name__}: {exc} (rerun with --debug for the traceback)"
     click.echo(f"euphotic: error: {' '.join(str(msg).split())}", err=True)
-    sys.exit(1)
+    sys.exit(getattr(exc, "exit_code", 1))
 
 
 def _log_warnings() -> None:
@@ -56,7 +56,14 @@ def main() -> None:
     help="Write here instead of the config's [run] output_dir.",
 )
 @click.option("--no-figures", is_flag=True, help="Skip the PNG maps and the totals chart.")
-@click.option("--quiet", "-q", is_flag=True, help="No progress bar; print only the totals.")
+@click.option(
+    "--quiet", "-q", is_flag=True,
+    help="No progress bar and no list of files written; warnings and errors are still shown.",
+)
+@click.option(
+    "--force", is_flag=True,
+    help="Recompute every month, even those whose maps are in place and unchanged.",
+)
 @click.option(
     "--scheduler",
     metavar="ADDRESS",
@@ -74,6 +81,7 @@ def run(
     output_dir: Path | None,
     no_figures: bool,
     quiet: bool,
+    force: bool,
     scheduler: str | None,
     workers: int | None,
     debug: bool,
@@ -93,7 +101,8 @@ def run(
         if scheduler and workers:
             raise EuphoticError("give --scheduler or --workers, not both")
         result = run_pipeline(
-            cfg, progress=not quiet, command=command, scheduler=scheduler, workers=workers
+            cfg, progress=not quiet, command=command, scheduler=scheduler, workers=workers,
+            force=force,
         )
     except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
         _fail(exc, debug)
@@ -105,13 +114,19 @@ def run(
     click.echo("Caution: " + CAUTION)
     if not quiet:
         click.echo("")
-        for m in result.skipped_months:
-            click.echo(f"skipped {m}: no day covered by all inputs")
+        for note in result.notes:
+            click.echo(note)
+        reused = {f"npp_{m}_{month}" for m, month in result.reused}
+        if reused:
+            click.echo(f"reused {len(reused)} unchanged month map(s) (--force recomputes them)")
         for p in result.maps:
-            click.echo(f"wrote {p}")
+            if p.stem not in reused:
+                click.echo(f"wrote {p}")
         click.echo(f"wrote {result.totals_csv}")
         for p in result.figures:
             click.echo(f"wrote {p}")
+        if result.manifest is not None:
+            click.echo(f"wrote {result.manifest}")
 
 
 def format_totals(rows: list[dict]) -> str:

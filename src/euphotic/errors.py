@@ -33,3 +33,7 @@ class GridMismatchError(InputFileError):
 
 class NoOverlapError(EuphoticError):
     """The inputs share no day with a valid estimate."""
+
+
+class NoValidDataError(EuphoticError):
+    """A run would produce no valid estimate at all (every input value missing or masked)."""

@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import contextlib
 import logging
+import os
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -14,9 +15,9 @@ import dask
 import numpy as np
 import xarray as xr
 
-from euphotic import aggregate, ocean, outputs
+from euphotic import aggregate, ocean, outputs, runfolder
 from euphotic.config import RunConfig
-from euphotic.errors import NoOverlapError
+from euphotic.errors import ConfigError, NoOverlapError, NoValidDataError
 from euphotic.geo import cell_area
 from euphotic.models import get_model, get_month_block
 from euphotic.readers import match_grid, open_input
@@ -43,13 +44,18 @@ class Prepared:
 
 @dataclass
 class RunResult:
-    """What a run wrote and the totals table rows."""
+    """What a run put in place, and the totals table rows."""
 
     maps: list[Path]
     totals_csv: Path
     rows: list[dict]
     figures: list[Path] = field(default_factory=list)
     skipped_months: list[np.datetime64] = field(default_factory=list)
+    #: (model, month) maps reused unchanged from an earlier run or an interrupted one
+    reused: list[tuple[str, str]] = field(default_factory=list)
+    #: what the run did to the folder besides its outputs (recovery, clean-up)
+    notes: list[str] = field(default_factory=list)
+    manifest: Path | None = None
 
 
 def _span(da: xr.DataArray) -> str:
@@ -90,6 +96,8 @@ def prepare(cfg: RunConfig) -> Prepared:
                 >= 0
             )
         (keep if covered.any() else skipped).append(m)
+    for m in skipped:
+        log.warning("skipping %s: no day of it is covered by all inputs (chl, par, sst)", m)
     if not keep:
         raise NoOverlapError(
             f"no day is covered by all inputs: chl {_span(chl)} ({chl.attrs['files'][0]}), "
@@ -202,101 +210,372 @@ def run(
     command: str = "euphotic run",
     scheduler: str | None = None,
     workers: int | None = None,
+    force: bool = False,
 ) -> RunResult:
     """Produce monthly maps, the regional totals table and figures for a configuration.
+
+    Every output is written into a staging folder inside ``cfg.output_dir`` and put in place
+    only when all of them have succeeded (see :mod:`euphotic.runfolder`). Months whose maps
+    are already there (or were finished by a killed run) with an unchanged fingerprint (input
+    files, configuration, tool version) are reused; ``force=True`` recomputes everything.
 
     ``scheduler`` / ``workers`` choose a dask.distributed engine (see :func:`compute_engine`);
     by default the local threaded scheduler runs the graph.
     """
-    with compute_engine(scheduler, workers) as client:
-        return _run(cfg, progress=progress, command=command, client=client)
-
-
-def _batch_graph(cfg: RunConfig, prep: Prepared, batch, ocean_mask, bits, input_files, command,
-                 temps: list):
-    """Lazy writes and regional sums of the months in ``batch`` for every model, and the
-    (temporary, final) output path of each (model, month). Each temporary path is added to
-    ``temps`` before anything is written there."""
-    out_dir = Path(cfg.output_dir)
-    names = prep.region_masks.names
-    writes, lazies, placed = [], [], {}
-    for model_name in cfg.models:
-        model = get_model(model_name)
-        for month in batch:
-            maps = aggregate.monthly_npp(
-                model,
-                model_name,
-                month,
-                chl=prep.chl,
-                par=prep.par,
-                sst=prep.sst,
-                ocean=ocean_mask,
-                day_length=prep.day_length,
-                month_block=get_month_block(model_name),
-            )
-            ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command)
-            suffix = "zarr" if cfg.output_format == "zarr" else "nc"
-            final = out_dir / f"{outputs.month_stem(maps)}.{suffix}"
-            tmp = outputs.temp_path(final)
-            placed[(model_name, month)] = (tmp, final)
-            temps.append(tmp)
-            writes.append(outputs.write_lazy(ds, tmp, cfg.output_format))
-            if names:
-                lazies.append(aggregate.region_sums(maps, names, bits, ocean_mask, prep.area_rows_m2))
-    return writes, lazies, placed
-
-
-def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
+    if not cfg.models:
+        raise ConfigError(f"{cfg.path} [run]", "`models` is empty: name at least one model")
     prep = prepare(cfg)
-    out_dir = Path(cfg.output_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    input_files = {
-        "chl": prep.chl.attrs["files"],
-        "par": prep.par.attrs["files"],
-        "sst": prep.sst.attrs["files"],
-    }
-    if prep.day_length is not None:
-        input_files["day_length"] = prep.day_length.attrs["files"]
+    folder = runfolder.OutputFolder(Path(cfg.output_dir))
+    with folder.locked(command), compute_engine(scheduler, workers) as client:
+        return _run(cfg, prep, folder, progress=progress, command=command, client=client,
+                    force=force)
 
-    ocean_mask, bits = _grid_masks(prep, client)
-    per = cfg.months_per_compute or len(prep.months)
-    batches = [prep.months[i : i + per] for i in range(0, len(prep.months), per)]
-    finals_by, temps, rows_by = {}, [], {}
+
+#: Bumped when a change of the code changes the bytes of maps for the same inputs.
+MAP_FORMAT = 1
+#: Bumped when map figures change.
+FIGURE_FORMAT = 1
+#: RunConfig fields that do not change what a month's map or totals contain.
+_NOT_IN_FINGERPRINT = {"path", "output_dir", "figures", "months_per_compute", "start", "end",
+                       "models"}
+
+
+def _input_files(prep: Prepared) -> dict[str, list[str]]:
+    out = {"chl": prep.chl.attrs["files"], "par": prep.par.attrs["files"],
+           "sst": prep.sst.attrs["files"]}
+    if prep.day_length is not None:
+        out["day_length"] = prep.day_length.attrs["files"]
+    return out
+
+
+def _files_for_month(da: xr.DataArray, month: np.datetime64) -> list[str]:
+    """The input files whose periods touch ``month`` (all of them when the reader does not say
+    which period came from which file)."""
+    per = da.attrs.get("period_files")
+    if per is None or len(per) != da.sizes["time"]:
+        return list(da.attrs["files"])
+    m0 = np.datetime64(month, "M").astype("datetime64[D]")
+    m1 = (np.datetime64(month, "M") + 1).astype("datetime64[D]")
+    s = da["period_start"].values.astype("datetime64[D]")
+    e = da["period_end"].values.astype("datetime64[D]")
+    hit = (s < m1) & (e > m0)
+    return sorted({per[i] for i in np.flatnonzero(hit)})
+
+
+def _item_fingerprints(cfg: RunConfig, prep: Prepared) -> dict[tuple[str, np.datetime64], str]:
+    """Fingerprint of every (model, month) map: tool version, map format, the configuration
+    (all that changes a map or its totals) and the identity (path, size, modification time)
+    of the input files that touch the month."""
+    import dataclasses
+
+    from euphotic import __version__
+
+    conf = {f.name: getattr(cfg, f.name) for f in dataclasses.fields(cfg)
+            if f.name not in _NOT_IN_FINGERPRINT}
+    base = Path(cfg.path).resolve().parent if cfg.path else None
+    extra_files = [cfg.land_mask] if cfg.land_mask else []
+    for r in cfg.regions:
+        if getattr(r, "mask_file", None):
+            extra_files.append(r.mask_file)
+    conf_fp = runfolder.config_fingerprint(conf)
+    aux = [runfolder.file_stat(p, base) for p in extra_files]
+    roles = {"chl": prep.chl, "par": prep.par, "sst": prep.sst}
+    if prep.day_length is not None:
+        roles["day_length"] = prep.day_length
+    out = {}
+    for month in prep.months:
+        files = {role: [runfolder.file_stat(p, base) for p in _files_for_month(da, month)]
+                 for role, da in roles.items()}
+        for model_name in cfg.models:
+            out[(model_name, month)] = runfolder.config_fingerprint(
+                [__version__, MAP_FORMAT, model_name, str(month), conf_fp, aux, files]
+            )
+    return out
+
+
+def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_files, command,
+                 stage: runfolder.Stage):
+    """Lazy writes into the stage, regional sums and valid-cell counts of the (model, month)
+    items of one batch. Returns (writes, sums, counts, names) in item order."""
+    names = prep.region_masks.names
+    writes, lazies, counts, files = [], [], [], []
+    suffix = "zarr" if cfg.output_format == "zarr" else "nc"
+    for model_name, month in items:
+        model = get_model(model_name)
+        maps = aggregate.monthly_npp(
+            model,
+            model_name,
+            month,
+            chl=prep.chl,
+            par=prep.par,
+            sst=prep.sst,
+            ocean=ocean_mask,
+            day_length=prep.day_length,
+            month_block=get_month_block(model_name),
+        )
+        ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command)
+        name = f"{outputs.month_stem(maps)}.{suffix}"
+        files.append(name)
+        writes.append(outputs.write_lazy(ds, stage.file(name), cfg.output_format))
+        counts.append(maps.npp.notnull().sum().data)
+        lazies.append(
+            aggregate.region_sums(maps, names, bits, ocean_mask, prep.area_rows_m2)
+            if names else None
+        )
+    return writes, lazies, counts, files
+
+
+def _rows_to_json(rows: list[dict]) -> list[dict]:
+    return [{k: (None if isinstance(v, float) and v != v else
+                 float(v) if isinstance(v, np.floating) else v) for k, v in r.items()}
+            for r in rows]
+
+
+def _rows_from_json(rows: list[dict]) -> list[dict]:
+    return [{k: (np.nan if v is None else v) for k, v in r.items()} for r in rows]
+
+
+@contextlib.contextmanager
+def _writing(where: Path, what: str):
+    """Turn failures to write outputs into one clear line (a full disk above all: netCDF-C
+    reports it as "NetCDF: HDF error")."""
+    import errno
+    import shutil
+
     try:
+        yield
+    except runfolder.OutputWriteError:
+        raise
+    except (OSError, RuntimeError) as exc:
+        if isinstance(exc, OSError) and exc.errno not in (errno.ENOSPC, errno.EDQUOT, errno.EROFS,
+                                                         errno.EACCES, errno.EIO, errno.EFBIG):
+            raise
+        if isinstance(exc, RuntimeError) and "NetCDF" not in str(exc) and "HDF" not in str(exc):
+            raise
+        try:
+            free = shutil.disk_usage(where).free
+        except OSError:
+            free = None
+        full = (isinstance(exc, OSError) and exc.errno in (errno.ENOSPC, errno.EDQUOT)) or (
+            free is not None and free < 64 * 2**20)
+        if full:
+            reason = f"no space left on the device ({free / 2**20:.1f} MiB free)" if free is not None \
+                else "no space left on the device"
+        else:
+            reason = (exc.strerror if isinstance(exc, OSError) and exc.strerror else str(exc))
+        raise runfolder.OutputWriteError(
+            f"{where}: cannot write {what}: {reason}; earlier results in the folder are unchanged"
+        ) from exc
+
+
+def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, progress: bool,
+         command: str, client, force: bool) -> RunResult:
+    from euphotic import __version__
+
+    out_dir = folder.path
+    pending = folder.recover()
+    input_files = _input_files(prep)
+    fps = _item_fingerprints(cfg, prep)
+    suffix = "zarr" if cfg.output_format == "zarr" else "nc"
+
+    def map_name(model_name, month):
+        return f"npp_{model_name}_{np.datetime64(month, 'M')}.{suffix}"
+
+    previous = folder.manifest() or {}
+    prev_outputs = previous.get("outputs", {})
+    run_id = None
+    stage = folder.new_stage({"version": __version__, "command": command,
+                              "started": runfolder.now_iso()})
+    run_id = stage.path.name.removeprefix(runfolder.STAGE_PREFIX)
+    entries: dict[str, dict] = {}  # name -> manifest entry of every output of this run
+    keep: set[str] = set()  # names reused where they are
+    reused: list[tuple[str, str]] = []
+    todo: list[tuple[str, np.datetime64]] = []
+    try:
+        for model_name in cfg.models:
+            for month in prep.months:
+                name, fp = map_name(model_name, month), fps[(model_name, month)]
+                if not force:
+                    old = prev_outputs.get(name)
+                    if old and old.get("fingerprint") == fp and _intact(out_dir / name, old):
+                        entries[name] = old
+                        keep.add(name)
+                        reused.append((model_name, str(np.datetime64(month, "M"))))
+                        continue
+                    hit = _salvage(pending, stage, name, fp)
+                    if hit is not None:
+                        entries[name] = hit
+                        reused.append((model_name, str(np.datetime64(month, "M"))))
+                        continue
+                todo.append((model_name, month))
+        folder.discard_stale(pending)
+        if reused:
+            log.info("reusing %d unchanged month map(s)", len(reused))
+
+        ocean_mask, bits = _grid_masks(prep, client) if todo else (None, None)
+        months_todo = list(dict.fromkeys(m for _, m in todo))
+        per = cfg.months_per_compute or max(len(months_todo), 1)
+        batches = [months_todo[i: i + per] for i in range(0, len(months_todo), per)]
         for i, batch in enumerate(batches):
             # one graph per batch of months (all models), computed once: memory and graph
             # size stay those of one batch however many years a run covers
-            writes, lazies, placed = _batch_graph(cfg, prep, batch, ocean_mask, bits,
-                                                  input_files, command, temps)
-            finals_by.update(placed)
+            items = [(m, mo) for (m, mo) in todo if mo in batch]
+            writes, lazies, counts, names = _batch_graph(cfg, prep, items, ocean_mask, bits,
+                                                         input_files, command, stage)
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
                 print(f"computing {span} ({i + 1} of {len(batches)})", file=sys.stderr)
-            _, computed = _compute([writes, [z.sums for z in lazies]], client=client,
-                                   progress=progress)
-            for z, sums in zip(lazies, computed, strict=True):
-                rows_by[(z.model, z.month)] = aggregate.finish_totals(z, sums)  # month: [M]
-    except BaseException:
-        for t in temps:  # nothing of a failed run is put in place
-            outputs.remove_path(t)
-        raise
-    order = [(model_name, month) for model_name in cfg.models for month in prep.months]
-    finals = [finals_by[k] for k in order]
-    for tmp, final in finals:
-        outputs.move_into_place(tmp, final)
-    rows = [
-        row for m, month in order for row in rows_by.get((m, np.datetime64(month, "M")), [])
-    ]
-    totals = out_dir / "regional_totals.csv"
-    outputs.write_totals_csv(rows, totals)
-    result = RunResult(
-        maps=[f for _, f in finals],
-        totals_csv=totals,
-        rows=rows,
-        skipped_months=prep.skipped_months,
-    )
-    if cfg.figures:
-        from euphotic import figures
+            with _writing(out_dir, "the monthly maps"):
+                _, sums, n_valid = _compute(
+                    [writes, [z.sums for z in lazies if z is not None], counts],
+                    client=client, progress=progress)
+            sums = iter(sums)
+            for (model_name, month), z, nv, name in zip(items, lazies, n_valid, names,
+                                                        strict=True):
+                rows = aggregate.finish_totals(z, next(sums)) if z is not None else []
+                entry = {"kind": "map", "model": model_name,
+                         "month": str(np.datetime64(month, "M")),
+                         "fingerprint": fps[(model_name, month)], "valid_cells": int(nv),
+                         "rows": _rows_to_json(rows), **_stat(stage.file(name))}
+                stage.record(name, entry)
+                entries[name] = entry
+            with _writing(out_dir, "the run's staging index"):
+                stage.save()  # after a kill, the next run reuses what is recorded here
 
-        result.figures = figures.figures_for_run(result, cfg, prep.region_masks)
+        _check_not_empty(cfg, prep, entries)
+        result = _finish(cfg, prep, folder, stage, entries, keep, previous, command=command,
+                         input_files=input_files, run_id=run_id)
+    except KeyboardInterrupt:
+        stage.save()  # finished months stay staged for the next run to reuse
+        raise
+    except BaseException:
+        folder.abort(stage)  # nothing of a failed run is put in place
+        raise
+    result.reused = reused
+    result.notes = folder.notes
+    result.skipped_months = prep.skipped_months
     return result
+
+
+def _stat(path: Path) -> dict:
+    st = path.stat()
+    if path.is_dir():
+        size = sum(p.stat().st_size for p in path.rglob("*") if p.is_file())
+    else:
+        size = st.st_size
+    return {"bytes": size, "mtime_ns": st.st_mtime_ns}
+
+
+def _intact(path: Path, entry: dict) -> bool:
+    """An output in place is as its manifest recorded it (same size and modification time)."""
+    try:
+        st = _stat(path)
+    except OSError:
+        return False
+    return st["bytes"] == entry.get("bytes") and st["mtime_ns"] == entry.get("mtime_ns")
+
+
+def _salvage(pending: list[runfolder.Stage], stage: runfolder.Stage, name: str, fp: str):
+    """Move a map finished by an interrupted run (same fingerprint) into this run's stage."""
+    for old in pending:
+        entry = old.items.get(name)
+        src = old.file(name)
+        if entry and entry.get("fingerprint") == fp and _intact(src, entry):
+            os.replace(src, stage.file(name))
+            entry = {**entry, **_stat(stage.file(name))}
+            stage.record(name, entry)
+            return entry
+    return None
+
+
+def _check_not_empty(cfg: RunConfig, prep: Prepared, entries: dict[str, dict]) -> None:
+    """Warn about months without any valid estimate; fail when the whole run has none."""
+    maps = [e for e in entries.values() if e.get("kind") == "map"]
+    empty = [e for e in maps if e.get("valid_cells") == 0]
+    for e in empty:
+        log.warning("%s %s: no valid estimate anywhere on the grid (every input value missing "
+                    "or masked); its totals are left empty and flagged", e["model"], e["month"])
+    if maps and len(empty) == len(maps):
+        files = prep.chl.attrs["files"]
+        raise NoValidDataError(
+            f"{files[0] if len(files) == 1 else os.path.dirname(files[0]) or '.'}: no valid "
+            "estimate in any month: every chlorophyll value is missing or masked (or no input "
+            "overlaps it); nothing was written"
+        )
+
+
+def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input_files, run_id):
+    """Tables, figures and the manifest into the stage, then the commit."""
+    from euphotic import __version__
+
+    out_dir = folder.path
+    order = [(m, mo) for m in cfg.models for mo in prep.months]
+    suffix = "zarr" if cfg.output_format == "zarr" else "nc"
+    map_names = [f"npp_{m}_{np.datetime64(mo, 'M')}.{suffix}" for m, mo in order]
+    rows = [r for n in map_names for r in _rows_from_json(entries[n].get("rows", []))]
+    totals = stage.file("regional_totals.csv")
+    with _writing(out_dir, "the regional totals table"):
+        outputs.write_totals_csv(rows, totals)
+    entries["regional_totals.csv"] = {"kind": "table", **_stat(totals)}
+
+    figures: list[Path] = []
+    prev_outputs = previous.get("outputs", {})
+    for name in map_names:  # map figures: kept when their map is unchanged
+        png = name.rsplit(".", 1)[0] + ".png"
+        fp = runfolder.config_fingerprint([entries[name]["fingerprint"], FIGURE_FORMAT])
+        old = prev_outputs.get(png)
+        if old and old.get("fingerprint") == fp and _intact(out_dir / png, old):
+            entries[png] = old
+            keep.add(png)
+            figures.append(out_dir / png)
+            continue
+        if not cfg.figures:
+            continue
+        from euphotic import figures as figs
+
+        src = out_dir / name if name in keep else stage.file(name)
+        with _writing(out_dir, f"the figure {png}"):
+            figs.map_figure(src, stage.file(png), prep.region_masks)
+        entries[png] = {"kind": "figure", "of": name, "fingerprint": fp,
+                        **_stat(stage.file(png))}
+        figures.append(out_dir / png)
+    if cfg.figures and rows:
+        from euphotic import figures as figs
+
+        with _writing(out_dir, "the totals chart"):
+            figs.totals_figure(rows, stage.file("regional_totals.png"))
+        entries["regional_totals.png"] = {"kind": "figure", **_stat(stage.file("regional_totals.png"))}
+        figures.append(out_dir / "regional_totals.png")
+
+    base = Path(cfg.path).resolve().parent if cfg.path else out_dir
+    try:
+        config_sha = runfolder.hashlib.sha256(Path(cfg.path).read_bytes()).hexdigest()
+    except OSError:
+        config_sha = None
+    manifest = {
+        "tool": "euphotic",
+        "version": __version__,
+        "run_id": run_id,
+        "created": runfolder.now_iso(),
+        "command": command,
+        "config": os.path.relpath(Path(cfg.path).resolve(), out_dir) if cfg.path else None,
+        "config_sha256": config_sha,
+        "config_fingerprint": runfolder.config_fingerprint(
+            {k: v for k, v in vars(cfg).items() if k not in ("path", "output_dir")}),
+        "models": list(cfg.models),
+        "months": [str(np.datetime64(m, "M")) for m in prep.months],
+        "skipped_months": [str(np.datetime64(m, "M")) for m in prep.skipped_months],
+        "inputs": {role: [os.path.relpath(p, base) for p in files]
+                   for role, files in input_files.items()},
+        "caution": outputs.CAUTION,
+        "outputs": {n: entries[n] for n in sorted(entries)},
+    }
+    with _writing(out_dir, "the run manifest"):
+        folder.commit(stage, manifest, keep=keep)
+    return RunResult(
+        maps=[out_dir / n for n in map_names],
+        totals_csv=out_dir / "regional_totals.csv",
+        rows=rows,
+        figures=figures,
+        manifest=out_dir / runfolder.MANIFEST_NAME,
+    )
