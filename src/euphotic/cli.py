@@ -26,13 +26,20 @@ def _fail(exc: BaseException, debug: bool) -> None:
     sys.exit(getattr(exc, "exit_code", 1))
 
 
+class _StderrLines(logging.Handler):
+    """The tool's warnings as one line each on the standard error of the moment (looked up at
+    every message, so a caller that swaps ``sys.stderr`` sees them)."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        msg = " ".join(self.format(record).split())
+        click.echo(f"euphotic: {record.levelname.lower()}: {msg}", err=True)
+
+
 def _log_warnings() -> None:
     """Show the tool's own warnings as one line each (not other libraries' logs)."""
     log = logging.getLogger("euphotic")
-    if not log.handlers:
-        handler = logging.StreamHandler()
-        handler.setFormatter(logging.Formatter("euphotic: warning: %(message)s"))
-        log.addHandler(handler)
+    if not any(isinstance(h, _StderrLines) for h in log.handlers):
+        log.addHandler(_StderrLines(logging.WARNING))
         log.setLevel(logging.WARNING)
         log.propagate = False
 

@@ -449,7 +449,9 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
         stage.save()  # finished months stay staged for the next run to reuse
         raise
     except BaseException:
-        folder.abort(stage)  # nothing of a failed run is put in place
+        if not folder.abort(stage):  # nothing of a failed run is put in place ...
+            log.warning("%s: the run stopped while putting its outputs in place; the next run "
+                        "in this folder completes it", out_dir)  # ... unless it was committing
         raise
     result.reused = reused
     result.notes = folder.notes
@@ -547,7 +549,7 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
         entries["regional_totals.png"] = {"kind": "figure", **_stat(stage.file("regional_totals.png"))}
         figures.append(out_dir / "regional_totals.png")
 
-    base = Path(cfg.path).resolve().parent if cfg.path else out_dir
+    base = Path(cfg.path).resolve().parent if cfg.path else out_dir  # inputs: relative to it
     try:
         config_sha = runfolder.hashlib.sha256(Path(cfg.path).read_bytes()).hexdigest()
     except OSError:
@@ -558,7 +560,7 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
         "run_id": run_id,
         "created": runfolder.now_iso(),
         "command": command,
-        "config": os.path.relpath(Path(cfg.path).resolve(), out_dir) if cfg.path else None,
+        "config": str(Path(cfg.path).resolve()) if cfg.path else None,
         "config_sha256": config_sha,
         "config_fingerprint": runfolder.config_fingerprint(
             {k: v for k, v in vars(cfg).items() if k not in ("path", "output_dir")}),

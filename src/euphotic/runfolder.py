@@ -328,6 +328,15 @@ class OutputFolder:
         missing = [n for n in staged if not stage.file(n).exists()]
         if missing:
             raise OutputWriteError(f"{stage.path}: staged outputs missing: {', '.join(missing)}")
+        for n in staged:  # every rename must be possible before the first one is made
+            dst = self.path / n
+            if dst.exists() and dst.is_dir() != stage.file(n).is_dir():
+                kind = "a folder" if dst.is_dir() else "a file"
+                raise OutputWriteError(
+                    f"{dst}: cannot put the new output in place: {kind} of that name is in the way"
+                )
+        if not os.access(self.path, os.W_OK):
+            raise OutputWriteError(f"{self.path}: the output folder is not writable")
         previous = self.manifest() or {}
         delete = sorted(set(previous.get("outputs", {})) - set(manifest["outputs"]))
         _write_json_atomic(stage.file(MANIFEST_NAME), manifest)
@@ -357,9 +366,13 @@ class OutputFolder:
         _fsync_dir(self.path)
         remove_path(stage_path)
 
-    def abort(self, stage: Stage) -> None:
-        """Remove a stage after a failure: nothing of the run is put in place."""
+    def abort(self, stage: Stage) -> bool:
+        """Remove a stage after a failure: nothing of the run is put in place. A stage whose
+        commit has begun is left for the next run to complete (returns False)."""
+        if (stage.path / COMMIT_NAME).exists():
+            return False
         remove_path(stage.path)
+        return True
 
 
 def config_fingerprint(obj) -> str:
