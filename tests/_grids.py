@@ -5,7 +5,8 @@ from __future__ import annotations
 from pathlib import Path
 
 import numpy as np
-import xarray as xr
+
+from ._files import write_grid
 
 CHL_STD = "mass_concentration_of_chlorophyll_a_in_sea_water"
 PAR_STD = "surface_downwelling_photosynthetic_photon_flux_in_air"
@@ -16,6 +17,11 @@ def grid(lat0: float, lat1: float, lon0: float, lon1: float, res: float):
     lat = np.arange(lat0 + res / 2, lat1, res)
     lon = np.arange(lon0 + res / 2, lon1, res)
     return lat, lon
+
+
+def _days(t: str) -> float:
+    """Days since 2000-01-01 of an ISO date or time (the time units written below)."""
+    return float((np.datetime64(t, "s") - np.datetime64("2000-01-01", "s")) / np.timedelta64(1, "D"))
 
 
 def write_field(
@@ -32,35 +38,23 @@ def write_field(
     time: str | None = None,
     time_bounds: tuple[str, str] | None = None,
 ) -> Path:
-    """One 2-D field; dated by ACDD attrs (start/end), a time stamp, or time bounds."""
+    """One 2-D float32 field (fill -999); dated by ACDD attrs (start/end), a time stamp, or
+    time bounds. Written by the suite's one NetCDF writer, :func:`tests._files.write_grid`."""
     attrs = {"Conventions": "CF-1.8"}
-    coords = {
-        "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north"}),
-        "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east"}),
-    }
-    va = {"standard_name": std, "units": units}
+    kw = {}
+    values = np.asarray(values, "f4")
     if time is not None or time_bounds is not None:
-        t = np.datetime64(time or time_bounds[0], "ns")
-        coords["time"] = ("time", [t], {"standard_name": "time"})
-        data = {name: (("time", "lat", "lon"), np.asarray(values, "f4")[None], va)}
-        ds = xr.Dataset(data, coords=coords, attrs=attrs)
+        kw["time"] = [_days(time or time_bounds[0])]
         if time_bounds is not None:
-            ds["time"].attrs["bounds"] = "time_bnds"
-            ds["time_bnds"] = (("time", "nv"), np.array([time_bounds], dtype="datetime64[ns]"))
-    else:
-        if start is not None:
-            attrs.update(time_coverage_start=start, time_coverage_end=end)
-        ds = xr.Dataset(
-            {name: (("lat", "lon"), np.asarray(values, "f4"), va)}, coords=coords, attrs=attrs
-        )
-    enc = {name: {"_FillValue": np.float32(-999.0)}}
-    if "time" in ds.coords:
-        enc["time"] = {"units": "days since 2000-01-01"}
-        if "time_bnds" in ds:
-            enc["time_bnds"] = {"units": "days since 2000-01-01"}
+            kw["time_bounds"] = [[_days(time_bounds[0]), _days(time_bounds[1])]]
+        values = values[None]
+    elif start is not None:
+        attrs.update(time_coverage_start=start, time_coverage_end=end)
+    values = np.where(np.isnan(values), np.float32(-999.0), values)
     path.parent.mkdir(parents=True, exist_ok=True)
-    ds.to_netcdf(path, encoding=enc)
-    return path
+    return write_grid(path, values, lat, lon, name=name,
+                      var_attrs={"standard_name": std, "units": units}, global_attrs=attrs,
+                      dtype="f4", fill_value=np.float32(-999.0), **kw)
 
 
 def write_config(path: Path, body: str) -> Path:

@@ -96,13 +96,13 @@ def prepare(cfg: RunConfig) -> Prepared:
                 >= 0
             )
         (keep if covered.any() else skipped).append(m)
-    for m in skipped:
-        log.warning("skipping %s: no day of it is covered by all inputs (chl, par, sst)", m)
     if not keep:
         raise NoOverlapError(
             f"no day is covered by all inputs: chl {_span(chl)} ({chl.attrs['files'][0]}), "
             f"par {_span(par)} ({par.attrs['files'][0]}), sst {_span(sst)} ({sst.attrs['files'][0]})"
         )
+    for m in skipped:
+        log.warning("skipping %s: no day of it is covered by all inputs (chl, par, sst)", m)
 
     if cfg.ocean_source == "file":
         ocean_np = ocean.file_ocean_mask(str(cfg.land_mask), cfg.land_mask_variable, lat, lon)
@@ -224,6 +224,7 @@ def run(
     """
     if not cfg.models:
         raise ConfigError(f"{cfg.path} [run]", "`models` is empty: name at least one model")
+    cfg.models = list(dict.fromkeys(cfg.models))  # a model listed twice runs once
     prep = prepare(cfg)
     folder = runfolder.OutputFolder(Path(cfg.output_dir))
     with folder.locked(command), compute_engine(scheduler, workers) as client:
