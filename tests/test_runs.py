@@ -59,6 +59,13 @@ def _cli(*args, cwd=None, env=None) -> subprocess.Popen:
     )
 
 
+def _dead_pid() -> int:
+    """The id of a process that has just ended."""
+    p = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
+                       capture_output=True, text=True, check=True)
+    return int(p.stdout)
+
+
 def _data(path: Path) -> dict[str, bytes]:
     """The bytes of every data variable's values (attributes such as date_created differ
     between runs by design)."""
@@ -229,9 +236,7 @@ def test_stale_lock_of_a_dead_process_is_taken_over(tmp_path):
     cfg_path = _months_case(tmp_path, 1)
     out = tmp_path / "out"
     out.mkdir()
-    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
-                          capture_output=True, text=True, check=True)
-    pid = int(dead.stdout)
+    pid = _dead_pid()
     (out / runfolder.LOCK_NAME).write_text(json.dumps(
         {"tool": "euphotic", "pid": pid, "host": "h", "started": "2026-01-01T00:00:00Z",
          "state": "running"}))
@@ -251,9 +256,7 @@ def test_debris_of_killed_runs_is_cleaned_and_nothing_else(tmp_path):
     cfg_path = _months_case(tmp_path, 1)
     out = tmp_path / "out"
     out.mkdir()
-    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"],
-                          capture_output=True, text=True, check=True)
-    pid = int(dead.stdout)
+    pid = _dead_pid()
     (out / f".npp_vgpm_2023-01.nc.part-{pid}").write_bytes(b"half a file")
     stale = out / f"{runfolder.STAGE_PREFIX}20260101T000000Z-{pid}"
     stale.mkdir()
