@@ -126,6 +126,7 @@ def format_totals(rows: list[dict]) -> str:
         "coverage",
         "total TgC",
         "filled TgC",
+        "flag",
     ]
     from euphotic.outputs import TOTALS_COLUMNS as keys
     fmts = [
@@ -138,6 +139,7 @@ def format_totals(rows: list[dict]) -> str:
         "{:.0%}".format,
         "{:.3g}".format,
         "{:.3g}".format,
+        str,
     ]
     table = [head]
     for r in rows:

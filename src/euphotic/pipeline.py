@@ -213,7 +213,7 @@ def run(
 
 
 def _batch_graph(cfg: RunConfig, prep: Prepared, batch, ocean_mask, bits, input_files, command,
-                 temps: list):
+                 temps: list, provenance: dict | None = None):
     """Lazy writes and regional sums of the months in ``batch`` for every model, and the
     (temporary, final) output path of each (model, month). Each temporary path is added to
     ``temps`` before anything is written there."""
@@ -234,7 +234,8 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, batch, ocean_mask, bits, input_
                 day_length=prep.day_length,
                 month_block=get_month_block(model_name),
             )
-            ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command)
+            ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command,
+                                       earth=cfg.earth, provenance=provenance, metadata=cfg.metadata)
             suffix = "zarr" if cfg.output_format == "zarr" else "nc"
             final = out_dir / f"{outputs.month_stem(maps)}.{suffix}"
             tmp = outputs.temp_path(final)
@@ -258,6 +259,7 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
     if prep.day_length is not None:
         input_files["day_length"] = prep.day_length.attrs["files"]
 
+    provenance = outputs.provenance_attrs(cfg, input_files)  # once per run
     ocean_mask, bits = _grid_masks(prep, client)
     per = cfg.months_per_compute or len(prep.months)
     batches = [prep.months[i : i + per] for i in range(0, len(prep.months), per)]
@@ -267,7 +269,7 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
             # one graph per batch of months (all models), computed once: memory and graph
             # size stay those of one batch however many years a run covers
             writes, lazies, placed = _batch_graph(cfg, prep, batch, ocean_mask, bits,
-                                                  input_files, command, temps)
+                                                  input_files, command, temps, provenance)
             finals_by.update(placed)
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
@@ -289,6 +291,10 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
     ]
     totals = out_dir / "regional_totals.csv"
     outputs.write_totals_csv(rows, totals)
+    outputs.write_totals_metadata(
+        outputs.totals_metadata_path(totals), csv_name=totals.name, models=cfg.models,
+        earth=cfg.earth, provenance=provenance, metadata=cfg.metadata,
+    )
     result = RunResult(
         maps=[f for _, f in finals],
         totals_csv=totals,
