@@ -70,6 +70,11 @@ METADATA_DEFAULTS: dict[str, str | None] = {
     "publisher_institution": None,
     "contributor_name": None,
     "contributor_role": None,
+    "metadata_link": None,
+    "platform": None,
+    "platform_vocabulary": None,
+    "instrument": None,
+    "instrument_vocabulary": None,
 }
 
 #: Allowed values of creator_type / publisher_type (ACDD 1.3).
