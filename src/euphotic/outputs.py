@@ -147,11 +147,12 @@ def _day_iso(day: np.datetime64) -> str:
 
 
 def _rel(path: str | Path, base: Path) -> str:
-    """``path`` relative to ``base`` (POSIX separators); absolute when on another drive."""
+    """``path`` relative to ``base`` (POSIX separators; symbolic links kept as written);
+    absolute when on another drive."""
     try:
-        return Path(os.path.relpath(Path(path).resolve(), base)).as_posix()
+        return Path(os.path.relpath(os.path.abspath(path), base)).as_posix()
     except ValueError:
-        return Path(path).resolve().as_posix()
+        return Path(os.path.abspath(path)).as_posix()
 
 
 def earth_description(earth: str) -> str:
@@ -197,7 +198,7 @@ def provenance_attrs(cfg, input_files: Mapping[str, Sequence[str]]) -> dict[str,
     input_files : role (``chl``, ``par``, ``sst``, ``day_length``) -> paths read
     """
     config_path = Path(cfg.path)
-    base = config_path.resolve().parent
+    base = Path(os.path.abspath(config_path)).parent
     data = config_path.read_bytes()
     text = data.decode("utf-8", errors="replace")
     try:
@@ -210,7 +211,8 @@ def provenance_attrs(cfg, input_files: Mapping[str, Sequence[str]]) -> dict[str,
         if role in input_files
     }
     if cfg.ocean_source == "file":
-        land = f"file {_rel(cfg.land_mask, base)}"
+        written = raw.get("ocean", {}).get("land_mask")  # as written: symbolic links kept
+        land = f"file {_rel(base / written if written else cfg.land_mask, base)}"
         if cfg.land_mask_variable:
             land += f" variable {cfg.land_mask_variable!r}"
     elif cfg.ocean_source == "package":
