@@ -218,7 +218,7 @@ def test_acdd_1_3_at_least_50_of_60_with_full_metadata(tmp_path, monkeypatch):
     run(load_config(_two_month_case(tmp_path, metadata=FULL_METADATA)), progress=False)
     scored, failed = _check(tmp_path / "out" / "npp_vgpm_2024-01.nc", "acdd:1.3", monkeypatch)
     got, possible = scored["scored_points"], scored["possible_points"]
-    # the brief's target, 50 of 60 points, as a fraction (6.1.0 scores this file 78/93)
+    # the target, 50 of 60 points, as a fraction (compliance-checker 6.1.0: 79/94)
     assert got / possible >= 50 / 60, (got, possible, [(r.name, r.msgs) for r in failed])
 
 

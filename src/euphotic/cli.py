@@ -110,6 +110,9 @@ def run(
         for p in result.maps:
             click.echo(f"wrote {p}")
         click.echo(f"wrote {result.totals_csv}")
+        from euphotic.outputs import totals_metadata_path
+
+        click.echo(f"wrote {totals_metadata_path(result.totals_csv)}")
         for p in result.figures:
             click.echo(f"wrote {p}")
 

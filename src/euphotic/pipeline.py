@@ -290,11 +290,19 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
         row for m, month in order for row in rows_by.get((m, np.datetime64(month, "M")), [])
     ]
     totals = out_dir / "regional_totals.csv"
-    outputs.write_totals_csv(rows, totals)
-    outputs.write_totals_metadata(
-        outputs.totals_metadata_path(totals), csv_name=totals.name, models=cfg.models,
-        earth=cfg.earth, provenance=provenance, metadata=cfg.metadata,
-    )
+    writers = {
+        totals: lambda p: outputs.write_totals_csv(rows, p),
+        outputs.totals_metadata_path(totals): lambda p: outputs.write_totals_metadata(
+            p, csv_name=totals.name, models=cfg.models, earth=cfg.earth,
+            provenance=provenance, metadata=cfg.metadata),
+    }
+    for final, write in writers.items():  # interim: the staging layer will take this over
+        tmp = outputs.temp_path(final)
+        try:
+            write(tmp)
+            outputs.move_into_place(tmp, final)
+        finally:
+            outputs.remove_path(tmp)
     result = RunResult(
         maps=[f for _, f in finals],
         totals_csv=totals,
