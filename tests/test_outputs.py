@@ -419,6 +419,18 @@ CELL_PATTERNS = {
 }
 
 
+def test_cells_fixed_point_never_exponent_nor_negative_zero():
+    from euphotic.outputs import format_cell
+
+    spec = {c.name: c for c in TOTALS_SPEC}
+    assert format_cell(1.0e-5, spec["total_TgC"]) == "0.0000"  # rounds, no "1e-05"
+    assert format_cell(-1.0e-9, spec["total_TgC"]) == "0.0000"  # no "-0.0000"
+    assert format_cell(3.6e8, spec["ocean_area_km2"]) == "360000000"  # no "3.6e+08"
+    assert format_cell(1002.375, spec["mean_npp_mgC_m-2_d-1"]) == "1002.38"
+    assert format_cell(float("nan"), spec["coverage_fraction"]) == ""
+    assert format_cell("no_ocean_cells;low_coverage", spec["flag"]) == "no_ocean_cells;low_coverage"
+
+
 def test_totals_csv_formats_per_column(demo_run):
     assert list(CELL_PATTERNS) == TOTALS_COLUMNS
     with open(demo_run / "regional_totals.csv", newline="") as fh:

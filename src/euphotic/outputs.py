@@ -517,14 +517,17 @@ def zarr_encoding_for(ds: xr.Dataset) -> dict:
     import numcodecs
 
     zlib = [numcodecs.Zlib(level=1)]
-    blocks = getattr(ds["npp"].data, "chunksize", None) or _map_chunks(ds)
+
+    def blocks(v: str) -> tuple:  # each variable's own dask blocks (whole chunks per task)
+        return tuple(getattr(ds[v].data, "chunksize", None) or _map_chunks(ds))
+
     enc = {
-        v: {"chunks": tuple(blocks), "compressors": zlib, "dtype": "float32",
+        v: {"chunks": blocks(v), "compressors": zlib, "dtype": "float32",
             "_FillValue": np.float32(np.nan)}
         for v in _GRID_FLOAT
     }
-    enc["n_valid_days"] = {"chunks": tuple(blocks), "compressors": zlib, "dtype": "int16",
-                           "_FillValue": N_DAYS_FILL}
+    enc["n_valid_days"] = {"chunks": blocks("n_valid_days"), "compressors": zlib,
+                           "dtype": "int16", "_FillValue": N_DAYS_FILL}
     enc["time"] = {**_TIME_ENCODING, "compressors": zlib}
     enc["time_bnds"] = {**_TIME_ENCODING, "compressors": zlib}
     for c in ("lat", "lon", "lat_bnds", "lon_bnds", "crs"):
