@@ -344,7 +344,11 @@ def test_attributes_iso_times_extents_and_provenance(demo_run):
     assert (a["geospatial_lat_min"], a["geospatial_lat_max"]) == (40.0, 60.0)
     assert (a["geospatial_lon_min"], a["geospatial_lon_max"]) == (-36.0, -14.0)
     assert a["geospatial_lat_resolution"] == a["geospatial_lon_resolution"] == "0.0833333 degrees"
-    assert a["geospatial_bounds"] == "POLYGON((-36 40, -14 40, -14 60, -36 60, -36 40))"
+    # WKT in EPSG:4326 axis order, latitude first (ACDD 1.3 geospatial_bounds example)
+    assert a["geospatial_bounds"] == "POLYGON((40 -36, 40 -14, 60 -14, 60 -36, 40 -36))"
+    from shapely import wkt
+
+    assert wkt.loads(a["geospatial_bounds"]).bounds == (40.0, -36.0, 60.0, -14.0)
     assert a["cdm_data_type"] == "Grid"
     assert a["standard_name_vocabulary"] == "CF Standard Name Table v93"
     assert "VGPM (Behrenfeld & Falkowski 1997)" in a["title"]

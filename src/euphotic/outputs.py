@@ -311,7 +311,8 @@ def geospatial_attrs(lat: np.ndarray, lon: np.ndarray) -> dict:
         out[f"geospatial_{axis}_resolution"] = f"{_num(step, d + 2)} degrees"
         wkt[axis] = (_num(lo, d), _num(hi, d))
     (s, n), (w, e) = wkt["lat"], wkt["lon"]
-    out["geospatial_bounds"] = f"POLYGON(({w} {s}, {e} {s}, {e} {n}, {w} {n}, {w} {s}))"
+    # EPSG:4326 axis order, latitude first (as in ACDD 1.3's own example)
+    out["geospatial_bounds"] = f"POLYGON(({s} {w}, {s} {e}, {n} {e}, {n} {w}, {s} {w}))"
     out["geospatial_bounds_crs"] = "EPSG:4326"
     return out
 
