@@ -132,7 +132,7 @@ def test_eight_day_composite_straddling_month_boundary(tmp_path):
     expect = float((jan["npp"].values[0].astype(np.float64) * area).sum()) * 31 / 1e3 / 1e12
     np.testing.assert_allclose(rows["2024-01"]["total_TgC"], expect, rtol=1e-6)
     np.testing.assert_allclose(rows["2024-01"]["ocean_area_km2"], area.sum() / 1e6, rtol=1e-12)
-    np.testing.assert_allclose(rows["2024-01"]["coverage"], 15 / 31, rtol=1e-6)
+    np.testing.assert_allclose(rows["2024-01"]["coverage_fraction"], 15 / 31, rtol=1e-6)
 
 
 @pytest.mark.parametrize("kernel", ["compiled", "numpy"])
@@ -183,7 +183,7 @@ def test_polar_night_counts_as_zero_production(tmp_path, monkeypatch, kernel, ch
     assert np.all(ds["npp"].values == 0.0)
     assert np.all(ds["coverage"].values == 1.0)
     (row,) = result.rows
-    assert row["total_TgC"] == 0.0 and row["coverage"] == pytest.approx(1.0)
+    assert row["total_TgC"] == 0.0 and row["coverage_fraction"] == pytest.approx(1.0)
     assert row["observed_area_km2"] == pytest.approx(row["ocean_area_km2"])
 
 
@@ -288,10 +288,10 @@ def test_demo_run_end_to_end(tmp_path):
     assert len(rows) == len(cfg.regions) * len(cfg.models)  # one month
     for r in rows:
         assert r["month"] == "2025-04"
-        assert 0 < float(r["coverage"]) <= 1
+        assert 0 < float(r["coverage_fraction"]) <= 1
         assert float(r["observed_area_km2"]) <= float(r["ocean_area_km2"]) * (1 + 1e-9)
         # typical open-ocean to coastal spring rates are 1e2-1e4 mg C m-2 d-1 (common practice)
-        assert 50 < float(r["mean_npp_mg_m2_d"]) < 10000
+        assert 50 < float(r["mean_npp_mgC_m-2_d-1"]) < 10000
         assert float(r["total_TgC"]) > 0
     ds = xr.open_dataset(tmp_path / "npp_vgpm_2025-04.nc")
     assert ds["npp"].attrs["units"] == "mg m-2 d-1"
@@ -311,7 +311,7 @@ def test_demo_run_end_to_end(tmp_path):
     ):
         assert ds.attrs[key], key
     assert CAUTION in ds.attrs["summary"]
-    assert ds.attrs["time_coverage_start"] == "2025-04-01"
+    assert ds.attrs["time_coverage_start"] == "2025-04-01T00:00:00Z"  # ACDD: ISO 8601 with time zone
     cov = ds["coverage"].values
     assert np.nanmin(cov) >= 0 and np.nanmax(cov) <= 1
     # figures were drawn and are not blank

@@ -11,6 +11,7 @@ estimate; ``coverage`` is the fraction of the month's days with one.
 
 from __future__ import annotations
 
+import logging
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 
@@ -21,6 +22,13 @@ from euphotic.constants import G_PER_TG
 from euphotic.geo import day_length as _day_length
 
 MG_PER_G = 1000.0
+
+#: Totals-table flag: the region has no ocean cell on the grid.
+FLAG_NO_OCEAN = "no_ocean_cells"
+#: Totals-table flag: the region has ocean cells but none with a valid estimate in the month.
+FLAG_NO_DATA = "no_valid_data"
+
+_log = logging.getLogger("euphotic")
 
 
 def month_days(month: np.datetime64) -> np.ndarray:
@@ -336,29 +344,48 @@ def region_sums(
 
 
 def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray) -> list[dict]:
-    """Rows of the regional totals table from the computed sums.
+    """Rows of the regional totals table from the computed sums (keys: the columns of
+    :data:`euphotic.outputs.TOTALS_COLUMNS`).
 
     ``total_TgC``: monthly mean rate integrated over the observed cells, times the days of the
     month. ``total_filled_TgC``: observed area-mean rate times the region's whole ocean area and
-    the days of the month.
+    the days of the month. Never a silent zero: where nothing was observed the mean and totals
+    are NaN (empty cells), ``flag`` says why (:data:`FLAG_NO_OCEAN`, :data:`FLAG_NO_DATA`) and
+    one warning per case goes to the ``euphotic`` logger.
     """
     rows = []
     to_tg = lazy.n_days / MG_PER_G / G_PER_TG
     for name, (ocean_m2, observed_m2, integral, cov_m2) in zip(
         lazy.regions, np.asarray(sums), strict=True
     ):
-        mean = integral / observed_m2 if observed_m2 > 0 else np.nan
+        flags = []
+        if not ocean_m2 > 0:
+            flags.append(FLAG_NO_OCEAN)
+            _log.warning(
+                "region %r, %s, model %s: no ocean cell of the grid in the region; mean and "
+                "totals left empty (flag %s)", name, lazy.month, lazy.model, FLAG_NO_OCEAN,
+            )
+        elif not observed_m2 > 0:
+            flags.append(FLAG_NO_DATA)
+            _log.warning(
+                "region %r, %s, model %s: no valid estimate on the region's %.0f km2 of ocean; "
+                "mean and totals left empty (flag %s)",
+                name, lazy.month, lazy.model, ocean_m2 / 1e6, FLAG_NO_DATA,
+            )
+        seen = observed_m2 > 0
+        mean = integral / observed_m2 if seen else np.nan
         rows.append(
             {
                 "region": name,
                 "month": str(lazy.month),
                 "model": lazy.model,
-                "mean_npp_mg_m2_d": mean,
+                "mean_npp_mgC_m-2_d-1": mean,
                 "observed_area_km2": observed_m2 / 1e6,
                 "ocean_area_km2": ocean_m2 / 1e6,
-                "coverage": cov_m2 / ocean_m2 if ocean_m2 > 0 else np.nan,
-                "total_TgC": integral * to_tg,
-                "total_filled_TgC": mean * ocean_m2 * to_tg if observed_m2 > 0 else np.nan,
+                "coverage_fraction": cov_m2 / ocean_m2 if ocean_m2 > 0 else np.nan,
+                "total_TgC": integral * to_tg if seen else np.nan,
+                "total_filled_TgC": mean * ocean_m2 * to_tg if seen else np.nan,
+                "flag": ";".join(flags),
             }
         )
     return rows

@@ -130,6 +130,9 @@ def run(
             if p.stem not in reused:
                 click.echo(f"wrote {p}")
         click.echo(f"wrote {result.totals_csv}")
+        from euphotic.outputs import totals_metadata_path
+
+        click.echo(f"wrote {totals_metadata_path(result.totals_csv)}")
         for p in result.figures:
             click.echo(f"wrote {p}")
         if result.manifest is not None:
@@ -148,6 +151,7 @@ def format_totals(rows: list[dict]) -> str:
         "coverage",
         "total TgC",
         "filled TgC",
+        "flag",
     ]
     from euphotic.outputs import TOTALS_COLUMNS as keys
     fmts = [
@@ -160,6 +164,7 @@ def format_totals(rows: list[dict]) -> str:
         "{:.0%}".format,
         "{:.3g}".format,
         "{:.3g}".format,
+        str,
     ]
     table = [head]
     for r in rows:

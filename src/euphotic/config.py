@@ -10,6 +10,7 @@ import numpy as np
 
 from euphotic.errors import ConfigError
 from euphotic.models import MODELS
+from euphotic.outputs import metadata_from_config
 from euphotic.readers import InputSpec
 from euphotic.regions import Region, regions_from_config
 
@@ -49,6 +50,8 @@ class RunConfig:
     ocean_source: str = "package"  # "package", "file" or "temperature"
     land_mask: Path | None = None
     land_mask_variable: str | None = None
+    #: [metadata] keys set by the user (ACDD attributes; see outputs.metadata_from_config)
+    metadata: dict[str, str] = field(default_factory=dict)
 
 
 def _date(value, where: str, key: str) -> np.datetime64:
@@ -78,7 +81,7 @@ def load_config(path: str | Path) -> RunConfig:
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(path, f"not valid TOML: {exc}") from None
     base = path.resolve().parent
-    _check_keys(raw, {"run", "inputs", "ocean", "regions"}, str(path))
+    _check_keys(raw, {"run", "inputs", "ocean", "regions", "metadata"}, str(path))
 
     run = raw.get("run", {})
     _check_keys(run, _RUN_KEYS, f"{path} [run]")
@@ -164,6 +167,7 @@ def load_config(path: str | Path) -> RunConfig:
         ocean_source=source,
         land_mask=(base / land_mask).resolve() if land_mask else None,
         land_mask_variable=ocean.get("variable"),
+        metadata=metadata_from_config(raw.get("metadata", {}), f"{path} [metadata]"),
     )
     if "start" in run:
         cfg.start = _date(run["start"], f"{path} [run]", "start")

@@ -1,16 +1,22 @@
-"""Write results: CF-1.8 / ACDD-1.3 monthly NetCDF maps and the regional totals CSV.
+"""Write results: CF-1.8 / ACDD-1.3 monthly maps (NetCDF or Zarr), the regional totals CSV
+and its CSV-on-the-Web metadata sidecar, and the metadata they carry.
 
-Every file is written under a temporary name in the output folder and renamed into place only
-after the whole computation has succeeded, so an interrupted or failed run never leaves a half
-file and never replaces good results.
+Metadata only: nothing here computes on the grid. Each writer writes exactly to the path it
+is given; the pipeline decides where (temporary names, staging) and when files are put in
+place.
 """
 
 from __future__ import annotations
 
 import csv
 import datetime as dt
+import hashlib
+import json
+import math
 import os
-from collections.abc import Sequence
+import tomllib
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -18,6 +24,8 @@ import xarray as xr
 
 from euphotic import __version__
 from euphotic.aggregate import MonthlyMaps
+from euphotic.constants import AUTHALIC_RADIUS_M, WGS84_A_M, WGS84_F
+from euphotic.errors import ConfigError
 from euphotic.models import CITATIONS
 
 CAUTION = (
@@ -26,27 +34,243 @@ CAUTION = (
     "or oxygen incubations) before use in fisheries management or carbon accounting."
 )
 
-TOTALS_COLUMNS = [
-    "region",
-    "month",
-    "model",
-    "mean_npp_mg_m2_d",
-    "observed_area_km2",
-    "ocean_area_km2",
-    "coverage",
-    "total_TgC",
-    "total_filled_TgC",
-]
+#: The CF standard name table the variables' standard names were checked against (the table
+#: packaged with compliance-checker 6.1; every name used here has been in the table for years).
+STANDARD_NAME_VOCABULARY = "CF Standard Name Table v93"
+
+#: Model id -> the model's published name, as written in titles and summaries.
+PUBLISHED_NAMES: dict[str, str] = {
+    "vgpm": "VGPM (Behrenfeld & Falkowski 1997)",
+    "eppley_vgpm": "VGPM (Behrenfeld & Falkowski 1997) with the Eppley (1972) temperature "
+    "dependence",
+}
+
+#: Value written for a [metadata] attribute the user did not set (an honest "unknown").
+NOT_SPECIFIED = "not specified by the user"
+
+#: [metadata] keys -> default. ``None``: written only when the user sets it. ``id`` is special:
+#: each file's id is ``<id>_<file stem>`` (default: the file stem alone).
+METADATA_DEFAULTS: dict[str, str | None] = {
+    "id": None,
+    "naming_authority": NOT_SPECIFIED,
+    "license": NOT_SPECIFIED,
+    "institution": NOT_SPECIFIED,
+    "project": NOT_SPECIFIED,
+    "program": None,
+    "acknowledgement": NOT_SPECIFIED,
+    "creator_name": NOT_SPECIFIED,
+    "creator_email": NOT_SPECIFIED,
+    "creator_url": NOT_SPECIFIED,
+    "creator_type": None,
+    "creator_institution": None,
+    "publisher_name": NOT_SPECIFIED,
+    "publisher_email": NOT_SPECIFIED,
+    "publisher_url": NOT_SPECIFIED,
+    "publisher_type": None,
+    "publisher_institution": None,
+    "contributor_name": None,
+    "contributor_role": None,
+    "metadata_link": None,
+    "platform": None,
+    "platform_vocabulary": None,
+    "instrument": None,
+    "instrument_vocabulary": None,
+}
+
+#: Allowed values of creator_type / publisher_type (ACDD 1.3).
+_PARTY_TYPES = ("person", "group", "institution", "position")
+
+#: Integer fill value of ``n_valid_days`` (a count is never negative).
+N_DAYS_FILL = np.int16(-1)
+
+
+def metadata_from_config(table: object, where: str) -> dict[str, str]:
+    """Check the ``[metadata]`` table of a run configuration and return the keys it sets.
+
+    Parameters
+    ----------
+    table : the parsed TOML value of ``[metadata]`` (a dict of strings)
+    where : prefix of error messages, e.g. ``"run.toml [metadata]"``
+
+    Raises
+    ------
+    ConfigError
+        Not a table, an unknown key, a value that is not a non-empty string, or a
+        creator_type / publisher_type outside the ACDD vocabulary.
+    """
+    if not isinstance(table, dict):
+        raise ConfigError(where, "must be a table of text values ([metadata])")
+    unknown = sorted(set(table) - set(METADATA_DEFAULTS))
+    if unknown:
+        raise ConfigError(
+            where,
+            f"unknown key(s) {', '.join(unknown)}; allowed: {', '.join(sorted(METADATA_DEFAULTS))}",
+        )
+    out: dict[str, str] = {}
+    for key, value in table.items():
+        if not isinstance(value, str):
+            raise ConfigError(
+                where, f"`{key}` must be a text string, not {type(value).__name__} {value!r}"
+            )
+        if not value.strip():
+            raise ConfigError(where, f"`{key}` must not be empty")
+        if key in ("creator_type", "publisher_type") and value not in _PARTY_TYPES:
+            raise ConfigError(
+                where, f"`{key}` must be one of {', '.join(_PARTY_TYPES)}, not {value!r}"
+            )
+        out[key] = value.strip()
+    return out
+
+
+def metadata_attrs(metadata: Mapping[str, str] | None, stem: str) -> dict[str, str]:
+    """ACDD attributes from the user's ``[metadata]`` keys and the defaults, for one file."""
+    metadata = dict(metadata or {})
+    attrs: dict[str, str] = {}
+    for key, default in METADATA_DEFAULTS.items():
+        if key == "id":
+            attrs["id"] = f"{metadata['id']}_{stem}" if "id" in metadata else stem
+        elif key in metadata:
+            attrs[key] = metadata[key]
+        elif default is not None:
+            attrs[key] = default
+    return attrs
+
+
+def iso_utc(when: dt.datetime | None = None) -> str:
+    """A time as ISO 8601 with time zone, to the second: ``2025-04-01T00:00:00Z``."""
+    when = when or dt.datetime.now(dt.UTC)
+    return when.astimezone(dt.UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+
+
+def _day_iso(day: np.datetime64) -> str:
+    return f"{np.datetime64(day, 'D')}T00:00:00Z"
+
+
+def _rel(path: str | Path, base: Path) -> str:
+    """``path`` relative to ``base`` (POSIX separators; symbolic links kept as written);
+    absolute when on another drive."""
+    try:
+        return Path(os.path.relpath(os.path.abspath(path), base)).as_posix()
+    except ValueError:
+        return Path(os.path.abspath(path)).as_posix()
+
+
+def earth_description(earth: str) -> str:
+    """The earth model of cell areas and of the grid's CRS, in words with its constants."""
+    if earth == "wgs84":
+        return f"WGS84 ellipsoid (semi-major axis {WGS84_A_M:.1f} m, inverse flattening {1 / WGS84_F!r})"
+    return f"sphere of the WGS84 authalic radius ({AUTHALIC_RADIUS_M:.1f} m)"
+
+
+def _region_sources(raw_regions: object, base: Path) -> str:
+    parts = []
+    for r in raw_regions if isinstance(raw_regions, list) else []:
+        if not isinstance(r, dict):
+            continue
+        name = r.get("name")
+        if "box" in r:
+            desc = f"box {list(r['box'])} (west, south, east, north; degrees)"
+        elif "geojson" in r:
+            desc = f"GeoJSON {_rel(base / str(r['geojson']), base)}"
+            if "name_property" in r:
+                desc += f" (one region per feature, named by property {r['name_property']!r})"
+        elif "mask" in r:
+            desc = f"NetCDF mask {_rel(base / str(r['mask']), base)}"
+            if "variable" in r:
+                desc += f" variable {r['variable']!r}"
+            if "value" in r or "values" in r:
+                desc += f" value(s) {r.get('values', r.get('value'))}"
+        else:
+            desc = "unknown source"
+        parts.append(f"{name}: {desc}" if name else desc)
+    return "; ".join(parts)
+
+
+def provenance_attrs(cfg, input_files: Mapping[str, Sequence[str]]) -> dict[str, str]:
+    """Where a run's results come from, as global attributes (called once per run).
+
+    Input paths are relative to the configuration file's folder; the configuration's text is
+    included with its SHA-256, so that a file alone tells how it was made.
+
+    Parameters
+    ----------
+    cfg : euphotic.config.RunConfig
+    input_files : role (``chl``, ``par``, ``sst``, ``day_length``) -> paths read
+    """
+    config_path = Path(cfg.path)
+    base = Path(os.path.abspath(config_path)).parent
+    data = config_path.read_bytes()
+    text = data.decode("utf-8", errors="replace")
+    try:
+        raw = tomllib.loads(text)
+    except tomllib.TOMLDecodeError:  # the file changed since it was loaded
+        raw = {}
+    attrs = {
+        f"input_files_{role}": ", ".join(_rel(p, base) for p in input_files[role])
+        for role in ("chl", "par", "sst", "day_length")
+        if role in input_files
+    }
+    if cfg.ocean_source == "file":
+        written = raw.get("ocean", {}).get("land_mask")  # as written: symbolic links kept
+        land = f"file {_rel(base / written if written else cfg.land_mask, base)}"
+        if cfg.land_mask_variable:
+            land += f" variable {cfg.land_mask_variable!r}"
+    elif cfg.ocean_source == "package":
+        land = "global-land-mask package"
+    else:
+        land = "valid temperature"
+    attrs.update(
+        {
+            "land_mask_source": land,
+            "region_sources": _region_sources(raw.get("regions", []), base) or "none",
+            "earth_model": earth_description(cfg.earth),
+            "euphotic_config_file": config_path.name,
+            "euphotic_config_sha256": hashlib.sha256(data).hexdigest(),
+            "euphotic_config": text,
+            "euphotic_run_started": iso_utc(),
+        }
+    )
+    return attrs
+
+
+def crs_attrs(earth: str) -> dict:
+    """CF grid-mapping attributes of the latitude-longitude grid, as CF-1.8 and GDAL read them.
+
+    ``"wgs84"``: EPSG:4326 (WKT from GDAL via rasterio). ``"sphere"``: a geographic CRS on the
+    sphere of the WGS84 authalic radius, the sphere the run's cell areas were computed on.
+    """
+    if earth == "wgs84":
+        from rasterio.crs import CRS
+
+        wkt = CRS.from_epsg(4326).to_wkt()
+        return {
+            "grid_mapping_name": "latitude_longitude",
+            "semi_major_axis": WGS84_A_M,
+            "inverse_flattening": 1.0 / WGS84_F,
+            "longitude_of_prime_meridian": 0.0,
+            "crs_wkt": wkt,
+            "spatial_ref": wkt,
+            "epsg_code": "EPSG:4326",
+        }
+    wkt = (
+        'GEOGCS["Sphere of the WGS84 authalic radius",'
+        'DATUM["Authalic sphere",SPHEROID["Authalic sphere",'
+        f'{AUTHALIC_RADIUS_M!r},0]],'
+        'PRIMEM["Greenwich",0],UNIT["degree",0.0174532925199433],'
+        'AXIS["Latitude",NORTH],AXIS["Longitude",EAST]]'
+    )
+    return {
+        "grid_mapping_name": "latitude_longitude",
+        "earth_radius": AUTHALIC_RADIUS_M,
+        "longitude_of_prime_meridian": 0.0,
+        "crs_wkt": wkt,
+        "spatial_ref": wkt,
+    }
 
 
 def month_stem(maps: MonthlyMaps) -> str:
     """File stem of one month's map: ``npp_<model>_YYYY-MM``."""
     return f"npp_{maps.model}_{maps.month}"
-
-
-def temp_path(final: Path) -> Path:
-    """A temporary name beside ``final`` (same folder, so the rename is atomic)."""
-    return final.with_name(f".{final.name}.part-{os.getpid()}")
 
 
 def _bounds(centres: np.ndarray) -> np.ndarray:
@@ -56,27 +280,82 @@ def _bounds(centres: np.ndarray) -> np.ndarray:
     return np.stack([e[:-1], e[1:]], axis=1)
 
 
+def _decimals(step: float) -> int:
+    """Decimals that keep a grid's edges and spacing to 1/1000 of a cell (float noise off)."""
+    return max(0, math.ceil(-math.log10(abs(step))) + 3)
+
+
+def _num(v: float, decimals: int) -> str:
+    s = f"{round(v, decimals):.{decimals}f}".rstrip("0").rstrip(".")
+    return "0" if s in ("-0", "") else s
+
+
+def geospatial_attrs(lat: np.ndarray, lon: np.ndarray) -> dict:
+    """ACDD extents (cell edges), resolutions and WKT bounds of a regular grid, rounded to
+    what the grid's spacing justifies (1/1000 of a cell) so no float noise shows."""
+    out: dict = {}
+    wkt = {}
+    for axis, c, units in (("lat", lat, "degrees_north"), ("lon", lon, "degrees_east")):
+        edges = _bounds(c)
+        step = float(np.abs(np.diff(c)).mean())
+        d = _decimals(step)
+        lo, hi = round(float(edges.min()), d) + 0.0, round(float(edges.max()), d) + 0.0
+        out[f"geospatial_{axis}_min"] = lo
+        out[f"geospatial_{axis}_max"] = hi
+        out[f"geospatial_{axis}_units"] = units
+        out[f"geospatial_{axis}_resolution"] = f"{_num(step, d + 2)} degrees"
+        wkt[axis] = (_num(lo, d), _num(hi, d))
+    (s, n), (w, e) = wkt["lat"], wkt["lon"]
+    # EPSG:4326 axis order, latitude first (as in ACDD 1.3's own example)
+    out["geospatial_bounds"] = f"POLYGON(({s} {w}, {s} {e}, {n} {e}, {n} {w}, {s} {w}))"
+    out["geospatial_bounds_crs"] = "EPSG:4326"
+    return out
+
+
 def month_dataset(
     maps: MonthlyMaps,
     *,
     title: str,
-    input_files: dict[str, Sequence[str]],
     command: str,
+    input_files: Mapping[str, Sequence[str]] | None = None,
+    earth: str = "sphere",
+    provenance: Mapping[str, str] | None = None,
+    metadata: Mapping[str, str] | None = None,
+    extra_attrs: Mapping | None = None,
 ) -> xr.Dataset:
-    """A lazy CF-1.8 dataset for one month: ``npp``, ``coverage``, coordinates and metadata."""
+    """A lazy CF-1.8 / ACDD-1.3 dataset for one month: ``npp``, ``coverage``, ``n_valid_days``,
+    the ``crs`` grid mapping, coordinates with bounds and the global attributes.
+
+    Parameters
+    ----------
+    maps : the month's lazy maps (npp mg C m-2 d-1, coverage 1)
+    title : the run's title
+    command : the command line, for ``history``
+    input_files : role -> paths; used only when ``provenance`` is not given
+    earth : ``"sphere"`` or ``"wgs84"``, the run's earth model (the grid mapping)
+    provenance : from :func:`provenance_attrs` (once per run)
+    metadata : the run's ``[metadata]`` keys (see :func:`metadata_from_config`)
+    extra_attrs : more global attributes, merged last
+    """
     start = np.datetime64(maps.month, "D")
     end = (np.datetime64(maps.month, "M") + 1).astype("datetime64[D]")
+    n_days = int((end - start).astype(int))
     lat = maps.npp["lat"].values
     lon = maps.npp["lon"].values
     npp = maps.npp.astype(np.float32).expand_dims(time=1)
     cov = maps.coverage.astype(np.float32).expand_dims(time=1)
+    # lazy: coverage is count / days of the month, so the count comes back exactly
+    nvd = (maps.coverage * maps.n_days).round().expand_dims(time=1)
     npp.attrs = {
         "units": "mg m-2 d-1",
         "long_name": "net primary production of carbon, mean daily rate over the month",
         "standard_name": "net_primary_productivity_of_biomass_expressed_as_carbon",
-        "cell_methods": "time: mean (over days with a valid estimate)",
+        "cell_methods": "time: mean",
         "coverage_content_type": "modelResult",
-        "comment": "Integrated over the euphotic layer; mass is of carbon.",
+        "comment": "Integrated over the euphotic layer; mass is of carbon. Mean over the days "
+        "of the month with a valid estimate (see coverage and n_valid_days).",
+        "ancillary_variables": "coverage n_valid_days",
+        "grid_mapping": "crs",
     }
     cov.attrs = {
         "units": "1",
@@ -84,10 +363,20 @@ def month_dataset(
         "valid_min": np.float32(0.0),
         "valid_max": np.float32(1.0),
         "coverage_content_type": "qualityInformation",
+        "grid_mapping": "crs",
+    }
+    nvd.attrs = {
+        "units": "1",
+        "standard_name": "number_of_observations",
+        "long_name": "number of days of the month with a valid production estimate",
+        "valid_min": np.int16(0),
+        "valid_max": np.int16(n_days),
+        "coverage_content_type": "qualityInformation",
+        "grid_mapping": "crs",
     }
     mid = start + (end - start) // 2
     ds = xr.Dataset(
-        {"npp": npp, "coverage": cov},
+        {"npp": npp, "coverage": cov, "n_valid_days": nvd},
         coords={
             "time": (
                 "time",
@@ -118,59 +407,68 @@ def month_dataset(
             ),
         },
     )
-    ds["npp"].attrs["cell_methods"] = "time: mean"
-    ds["npp"].attrs["comment"] += (
-        " Mean over the days of the month with a valid estimate (see coverage)."
-    )
+    ds["crs"] = xr.DataArray(np.int32(0), attrs=crs_attrs(earth))
     ds["time_bnds"] = (("time", "nv"), np.array([[start, end]], dtype="datetime64[ns]"))
     ds["lat_bnds"] = (("lat", "nv"), _bounds(lat))
     ds["lon_bnds"] = (("lon", "nv"), _bounds(lon))
-    now = dt.datetime.now(dt.UTC).replace(microsecond=0).isoformat()
-    files = {k: [os.path.basename(p) for p in v] for k, v in input_files.items()}
+    now = iso_utc()
+    if provenance is None:
+        provenance = {
+            f"input_files_{k}": ", ".join(str(p) for p in v) for k, v in (input_files or {}).items()
+        }
+    name = PUBLISHED_NAMES.get(maps.model, maps.model)
+    stem = month_stem(maps)
     ds.attrs = {
         "Conventions": "CF-1.8, ACDD-1.3",
-        "title": f"{title}: {maps.model} monthly mean, {maps.month}",
+        "title": f"{title}: {name}, monthly mean net primary production, {maps.month}",
         "summary": (
-            f"Monthly mean daily net primary production (mg C m-2 d-1) from the {maps.model} "
-            "model, evaluated day by day from surface chlorophyll, PAR and sea surface "
-            "temperature with day length from latitude and date. " + CAUTION
+            f"Monthly mean daily net primary production (mg C m-2 d-1) from the {name} model "
+            f"(euphotic id {maps.model!r}), evaluated day by day from surface chlorophyll, PAR "
+            "and sea surface temperature with day length from latitude and date. " + CAUTION
         ),
+        "comment": "Ocean cells only (land and cells without any valid day are missing). "
+        "coverage and n_valid_days give the days behind each monthly mean.",
         "keywords": "net primary production, phytoplankton, chlorophyll, ocean carbon",
+        "standard_name_vocabulary": STANDARD_NAME_VOCABULARY,
+        "cdm_data_type": "Grid",
         "model": maps.model,
+        "model_name": name,
         "model_citation": CITATIONS[maps.model],
         "references": CITATIONS[maps.model]
         + " Day length: Forsythe et al. (1995), Ecological Modelling 80:87-95.",
         "caution": CAUTION,
-        "time_coverage_start": str(start),
-        "time_coverage_end": str(end),
+        "time_coverage_start": _day_iso(start),
+        "time_coverage_end": _day_iso(end),
+        "time_coverage_duration": f"P{n_days}D",
         "time_coverage_resolution": "P1M",
-        "geospatial_lat_min": float(_bounds(lat).min()),
-        "geospatial_lat_max": float(_bounds(lat).max()),
-        "geospatial_lon_min": float(_bounds(lon).min()),
-        "geospatial_lon_max": float(_bounds(lon).max()),
-        "geospatial_lat_units": "degrees_north",
-        "geospatial_lon_units": "degrees_east",
-        "geospatial_bounds": _wkt_box(lat, lon),
-        "geospatial_bounds_crs": "EPSG:4326",
+        **geospatial_attrs(lat, lon),
         "date_created": now,
+        "date_modified": now,
+        "date_issued": now,
+        "date_metadata_modified": now,
         "history": f"{now} {command} (euphotic {__version__})",
         "source": "euphotic " + __version__,
         "product_version": __version__,
         "processing_level": "L4 model output",
-        "input_files_chl": ", ".join(files.get("chl", [])),
-        "input_files_par": ", ".join(files.get("par", [])),
-        "input_files_sst": ", ".join(files.get("sst", [])),
+        **metadata_attrs(metadata, stem),
+        **provenance,
     }
-    if "day_length" in files:
-        ds.attrs["input_files_day_length"] = ", ".join(files["day_length"])
+    if extra_attrs:
+        ds.attrs.update(extra_attrs)
     return ds
 
 
-def _wkt_box(lat: np.ndarray, lon: np.ndarray) -> str:
-    lb, ob = _bounds(lat), _bounds(lon)
-    s, n = float(lb.min()), float(lb.max())
-    w, e = float(ob.min()), float(ob.max())
-    return f"POLYGON(({w:g} {s:g}, {e:g} {s:g}, {e:g} {n:g}, {w:g} {n:g}, {w:g} {s:g}))"
+#: Variables stored as the map's float32 grids, and the integer day count.
+_GRID_FLOAT = ("npp", "coverage")
+_TIME_ENCODING = {"units": "days since 1970-01-01", "calendar": "standard", "dtype": "float64",
+                  "_FillValue": None}
+
+
+def _map_chunks(ds: xr.Dataset) -> tuple[int, int, int]:
+    blocks = getattr(ds["npp"].data, "chunksize", None)
+    if blocks is not None and len(blocks) == 3 and blocks[1] * blocks[2] <= 4 * 2**20:
+        return (1, blocks[1], blocks[2])
+    return (1, min(ds.sizes["lat"], 1024), min(ds.sizes["lon"], 1024))
 
 
 def encoding_for(ds: xr.Dataset) -> dict:
@@ -179,13 +477,9 @@ def encoding_for(ds: xr.Dataset) -> dict:
     A dask-backed map is stored in chunks equal to its blocks, so that each block is written
     as whole chunks: a block that straddled stored chunks would make the library read back,
     inflate and deflate the partial chunks again (and the inputs' small chunk cache cannot
-    hold them).
+    hold them). Coordinates and bounds carry no fill value (CF 2.5.1, 7.1).
     """
-    blocks = getattr(ds["npp"].data, "chunksize", None)
-    if blocks is not None and len(blocks) == 3 and blocks[1] * blocks[2] <= 4 * 2**20:
-        chunks = (1, blocks[1], blocks[2])
-    else:
-        chunks = (1, min(ds.sizes["lat"], 1024), min(ds.sizes["lon"], 1024))
+    chunks = _map_chunks(ds)
     enc = {
         v: {
             "zlib": True,
@@ -195,75 +489,235 @@ def encoding_for(ds: xr.Dataset) -> dict:
             "_FillValue": np.float32(np.nan),
             "chunksizes": chunks,
         }
-        for v in ("npp", "coverage")
+        for v in _GRID_FLOAT
     }
-    enc["time"] = {"units": "days since 1970-01-01", "calendar": "standard", "dtype": "float64"}
-    enc["time_bnds"] = {
-        "units": "days since 1970-01-01",
-        "calendar": "standard",
-        "dtype": "float64",
+    enc["n_valid_days"] = {
+        "zlib": True,
+        "complevel": 1,
+        "shuffle": True,
+        "dtype": "int16",
+        "_FillValue": N_DAYS_FILL,
+        "chunksizes": chunks,
     }
+    enc["time"] = dict(_TIME_ENCODING)
+    enc["time_bnds"] = dict(_TIME_ENCODING)
     for c in ("lat", "lon", "lat_bnds", "lon_bnds"):
         enc[c] = {"_FillValue": None}
+    return enc
+
+
+def zarr_encoding_for(ds: xr.Dataset) -> dict:
+    """Zarr v2 encoding: chunks of the map's blocks, time as in the NetCDF files, and the zlib
+    compressor on every array, the one netCDF-C's NCZarr decodes without plugins (it reads
+    Blosc-compressed chunks, xarray's default, as wrong numbers without an error)."""
+    import numcodecs
+
+    zlib = [numcodecs.Zlib(level=1)]
+
+    def blocks(v: str) -> tuple:  # each variable's own dask blocks (whole chunks per task)
+        return tuple(getattr(ds[v].data, "chunksize", None) or _map_chunks(ds))
+
+    enc = {
+        v: {"chunks": blocks(v), "compressors": zlib, "dtype": "float32",
+            "_FillValue": np.float32(np.nan)}
+        for v in _GRID_FLOAT
+    }
+    enc["n_valid_days"] = {"chunks": blocks("n_valid_days"), "compressors": zlib,
+                           "dtype": "int16", "_FillValue": N_DAYS_FILL}
+    enc["time"] = {**_TIME_ENCODING, "compressors": zlib}
+    enc["time_bnds"] = {**_TIME_ENCODING, "compressors": zlib}
+    for c in ("lat", "lon", "lat_bnds", "lon_bnds", "crs"):
+        enc[c] = {"_FillValue": None, "compressors": zlib}
     return enc
 
 
 def write_lazy(ds: xr.Dataset, tmp: Path, fmt: str):
     """Start writing ``ds`` to ``tmp`` and return the delayed computation that fills it.
 
-    ``"netcdf"``: one NetCDF-4 file. ``"zarr"``: a Zarr store chunked like the map, so that
-    workers of a cluster write chunks in parallel (suited to multi-year runs).
+    ``"netcdf"``: one NetCDF-4 file, ``time`` unlimited (so months can be appended or joined
+    by record, e.g. with NCO's ncrcat). ``"zarr"``: a Zarr v2 store chunked like the map, so
+    that workers of a cluster write chunks in parallel (suited to multi-year runs).
     """
     if fmt == "zarr":
-        enc = {v: {"chunks": ds[v].data.chunksize} for v in ("npp", "coverage")}
-        for v in ("npp", "coverage"):
+        enc = zarr_encoding_for(ds)
+        for v in ds.variables:
             ds[v].encoding = {}
-        return ds.to_zarr(tmp, mode="w", compute=False, encoding=enc, zarr_format=2, consolidated=True)
-    return ds.to_netcdf(tmp, engine="netcdf4", encoding=encoding_for(ds), compute=False)
+        return ds.to_zarr(tmp, mode="w", compute=False, encoding=enc, zarr_format=2,
+                          consolidated=True)
+    return ds.to_netcdf(tmp, engine="netcdf4", encoding=encoding_for(ds), compute=False,
+                        unlimited_dims=["time"])
 
 
-def remove_path(path: Path) -> None:
-    """Delete a temporary file or Zarr directory if it exists."""
-    import shutil
-
-    p = Path(path)
-    if p.is_dir():
-        shutil.rmtree(p, ignore_errors=True)
-    elif p.exists():
-        p.unlink()
+# ------------------------------------------------------------------------------------------
+# the regional totals table
+# ------------------------------------------------------------------------------------------
 
 
-def move_into_place(tmp: Path, final: Path) -> None:
-    """Rename a finished temporary output onto its final name (replacing an older result)."""
-    final = Path(final)
-    if Path(tmp).is_dir():
-        old = final.with_name(f".{final.name}.old-{os.getpid()}")
-        if final.exists():
-            os.replace(final, old)
-        os.replace(tmp, final)
-        remove_path(old)
-    else:
-        os.replace(tmp, final)
+@dataclass(frozen=True)
+class TotalsColumn:
+    """One column of the totals table: name (with its unit), CSVW datatype, unit, text format."""
+
+    name: str
+    title: str
+    description: str
+    datatype: str  # CSVW / XML Schema datatype
+    unit: str | None = None  # UDUNITS spelling
+    fmt: str | None = None  # format spec of numbers (fixed point: never an exponent)
 
 
-def write_totals_csv(rows: list[dict], final: Path) -> None:
-    """Write the totals table to a temporary file, then rename it into place."""
-    tmp = temp_path(final)
-    try:
-        with open(tmp, "w", newline="") as fh:
-            w = csv.DictWriter(fh, fieldnames=TOTALS_COLUMNS)
-            w.writeheader()
-            for r in rows:
-                w.writerow({k: _fmt(r[k]) for k in TOTALS_COLUMNS})
-        os.replace(tmp, final)
-    finally:
-        if tmp.exists():
-            tmp.unlink()
+#: The totals table, column by column (the single source of names, units and formats).
+TOTALS_SPEC: tuple[TotalsColumn, ...] = (
+    TotalsColumn("region", "region", "region name from the run configuration", "string"),
+    TotalsColumn("month", "month", "calendar month", "gYearMonth"),
+    TotalsColumn("model", "model", "model id (`euphotic models` lists them)", "string"),
+    TotalsColumn(
+        "mean_npp_mgC_m-2_d-1", "mean NPP",
+        "area-weighted mean of the monthly mean map over the region's ocean cells with data, "
+        "milligrams of carbon per square metre per day", "decimal", "mg m-2 d-1", ".2f",
+    ),
+    TotalsColumn(
+        "observed_area_km2", "observed area",
+        "area of the region's ocean cells with at least one valid day in the month",
+        "integer", "km2", ".0f",
+    ),
+    TotalsColumn("ocean_area_km2", "ocean area", "area of the region's ocean cells", "integer",
+                 "km2", ".0f"),
+    TotalsColumn(
+        "coverage_fraction", "coverage",
+        "area-weighted mean over the region's ocean cells of the fraction of the month's days "
+        "with a valid estimate (0 to 1)", "decimal", "1", ".4f",
+    ),
+    TotalsColumn(
+        "total_TgC", "total",
+        "monthly mean map integrated over the region's ocean cells with data, times the days "
+        "of the month: teragrams of carbon fixed in the month", "decimal", "Tg", ".4f",
+    ),
+    TotalsColumn(
+        "total_filled_TgC", "total (filled)",
+        "observed area-mean rate times the region's whole ocean area and the days of the "
+        "month: teragrams of carbon, cells without data filled with the regional mean",
+        "decimal", "Tg", ".4f",
+    ),
+    TotalsColumn(
+        "flag", "flag",
+        "quality codes separated by ';', empty when fine: no_ocean_cells (the region has no "
+        "ocean cell on the grid), no_valid_data (ocean cells but no valid estimate in the "
+        "month); missing numbers are empty cells", "string",
+    ),
+)
+
+#: Column names of the totals table, in order.
+TOTALS_COLUMNS: list[str] = [c.name for c in TOTALS_SPEC]
 
 
-def _fmt(v):
-    if isinstance(v, float | np.floating):
-        if not np.isfinite(v):
-            return ""
-        return f"{float(v):.6g}"
-    return v
+def format_cell(value, column: TotalsColumn) -> str:
+    """A value as written in the CSV: fixed decimals per column, empty when missing."""
+    if column.fmt is None:
+        return "" if value is None else str(value)
+    if value is None or not np.isfinite(value):
+        return ""
+    s = format(float(value), column.fmt)
+    return s.lstrip("-") if float(s) == 0 else s  # no "-0.0000"
+
+
+def write_totals_csv(rows: list[dict], path: Path) -> None:
+    """Write the totals table exactly to ``path`` (the caller provides atomicity)."""
+    with open(path, "w", newline="", encoding="utf-8") as fh:
+        w = csv.writer(fh, lineterminator="\n")
+        w.writerow(TOTALS_COLUMNS)
+        for r in rows:
+            w.writerow([format_cell(r.get(c.name), c) for c in TOTALS_SPEC])
+
+
+def totals_metadata_path(csv_path: Path) -> Path:
+    """The CSVW sidecar of a table: ``<table>.csv-metadata.json`` (W3C locating rule)."""
+    csv_path = Path(csv_path)
+    return csv_path.with_name(csv_path.name + "-metadata.json")
+
+
+def totals_metadata(
+    *,
+    csv_name: str,
+    models: Sequence[str],
+    earth: str,
+    provenance: Mapping[str, str] | None = None,
+    metadata: Mapping[str, str] | None = None,
+    run_time: dt.datetime | None = None,
+) -> dict:
+    """The W3C CSV-on-the-Web (CSVW) metadata of the totals table, as a JSON-LD dict.
+
+    Per column: name, title, description, datatype and unit (``schema:unitText``, UDUNITS);
+    for the table: caution, tool version, earth model, models with citations, provenance and
+    the run time (``prov:wasGeneratedBy``).
+    """
+    provenance = dict(provenance or {})
+    ended = iso_utc(run_time)
+    stem = Path(csv_name).stem
+    meta = metadata_attrs(metadata, stem)
+    columns = []
+    for c in TOTALS_SPEC:
+        col = {
+            "name": c.name,
+            "titles": c.title,
+            "dc:description": c.description,
+            "datatype": c.datatype,
+            "null": "",
+            "required": c.name in ("region", "month", "model"),
+        }
+        if c.unit is not None:
+            col["schema:unitText"] = c.unit
+        if c.name == "flag":
+            col["separator"] = ";"
+        columns.append(col)
+    activity = {
+        "@type": "prov:Activity",
+        "prov:endedAtTime": {"@value": ended, "@type": "xsd:dateTime"},
+        "prov:wasAssociatedWith": {
+            "@type": "prov:SoftwareAgent",
+            "schema:name": "euphotic",
+            "schema:softwareVersion": __version__,
+        },
+    }
+    if "euphotic_run_started" in provenance:
+        activity["prov:startedAtTime"] = {
+            "@value": provenance["euphotic_run_started"], "@type": "xsd:dateTime"}
+    used = [p for k, v in provenance.items() if k.startswith("input_files_") for p in v.split(", ")]
+    if used:
+        activity["prov:used"] = used
+    properties = {
+        "caution": CAUTION,
+        "euphotic_version": __version__,
+        "earth_model": earth_description(earth),
+        **{f"model_{m}": f"{PUBLISHED_NAMES.get(m, m)}. {CITATIONS[m]}" for m in models},
+        **{k: v for k, v in meta.items() if k not in ("id", "license")},
+        **provenance,
+    }
+    return {
+        "@context": ["http://www.w3.org/ns/csvw", {"@language": "en"}],
+        "url": csv_name,
+        "dc:identifier": meta["id"],
+        "dc:title": "Regional net primary production totals (euphotic)",
+        "dc:description": "Net primary production totals of carbon per region, calendar month "
+        "and model. " + CAUTION,
+        "dc:license": meta["license"],
+        "dc:created": {"@value": ended, "@type": "xsd:dateTime"},
+        "dc:references": [f"{PUBLISHED_NAMES.get(m, m)}: {CITATIONS[m]}" for m in models],
+        "rdfs:comment": CAUTION,
+        "prov:wasGeneratedBy": activity,
+        "schema:additionalProperty": [
+            {"@type": "schema:PropertyValue", "schema:name": k, "schema:value": v}
+            for k, v in properties.items()
+        ],
+        "tableSchema": {
+            "columns": columns,
+            "primaryKey": ["region", "month", "model"],
+        },
+    }
+
+
+def write_totals_metadata(path: Path, **kwargs) -> None:
+    """Write :func:`totals_metadata` (keyword arguments) as JSON exactly to ``path``."""
+    doc = totals_metadata(**kwargs)
+    with open(path, "w", encoding="utf-8") as fh:
+        json.dump(doc, fh, indent=2, ensure_ascii=False)
+        fh.write("\n")

@@ -295,7 +295,7 @@ def _item_fingerprints(cfg: RunConfig, prep: Prepared) -> dict[tuple[str, np.dat
 
 
 def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_files, command,
-                 stage: runfolder.Stage):
+                 stage: runfolder.Stage, provenance: dict):
     """Lazy writes into the stage, regional sums and valid-cell counts of the (model, month)
     items of one batch. Returns (writes, sums, counts, names) in item order."""
     names = prep.region_masks.names
@@ -314,7 +314,8 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_
             day_length=prep.day_length,
             month_block=get_month_block(model_name),
         )
-        ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command)
+        ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command,
+                                   earth=cfg.earth, provenance=provenance, metadata=cfg.metadata)
         name = f"{outputs.month_stem(maps)}.{suffix}"
         files.append(name)
         writes.append(outputs.write_lazy(ds, stage.file(name), cfg.output_format))
@@ -376,6 +377,7 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
     out_dir = folder.path
     pending = folder.recover()
     input_files = _input_files(prep)
+    provenance = outputs.provenance_attrs(cfg, input_files)  # once per run
     fps = _item_fingerprints(cfg, prep)
     suffix = "zarr" if cfg.output_format == "zarr" else "nc"
 
@@ -422,7 +424,7 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             # size stay those of one batch however many years a run covers
             items = [(m, mo) for (m, mo) in todo if mo in batch]
             writes, lazies, counts, names = _batch_graph(cfg, prep, items, ocean_mask, bits,
-                                                         input_files, command, stage)
+                                                         input_files, command, stage, provenance)
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
                 print(f"computing {span} ({i + 1} of {len(batches)})", file=sys.stderr)
@@ -445,7 +447,7 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
 
         _check_not_empty(cfg, prep, entries)
         result = _finish(cfg, prep, folder, stage, entries, keep, previous, command=command,
-                         input_files=input_files, run_id=run_id)
+                         input_files=input_files, run_id=run_id, provenance=provenance)
     except KeyboardInterrupt:
         stage.save()  # finished months stay staged for the next run to reuse
         raise
@@ -507,7 +509,8 @@ def _check_not_empty(cfg: RunConfig, prep: Prepared, entries: dict[str, dict]) -
         )
 
 
-def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input_files, run_id):
+def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input_files, run_id,
+            provenance):
     """Tables, figures and the manifest into the stage, then the commit."""
     from euphotic import __version__
 
@@ -517,9 +520,14 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
     map_names = [f"npp_{m}_{np.datetime64(mo, 'M')}.{suffix}" for m, mo in order]
     rows = [r for n in map_names for r in _rows_from_json(entries[n].get("rows", []))]
     totals = stage.file("regional_totals.csv")
+    sidecar = outputs.totals_metadata_path(totals)
     with _writing(out_dir, "the regional totals table"):
         outputs.write_totals_csv(rows, totals)
-    entries["regional_totals.csv"] = {"kind": "table", **_stat(totals)}
+        outputs.write_totals_metadata(
+            sidecar, csv_name=totals.name, models=cfg.models, earth=cfg.earth,
+            provenance=provenance, metadata=cfg.metadata)
+    entries[totals.name] = {"kind": "table", **_stat(totals)}
+    entries[sidecar.name] = {"kind": "table metadata", "of": totals.name, **_stat(sidecar)}
 
     figures: list[Path] = []
     prev_outputs = previous.get("outputs", {})
