@@ -26,11 +26,18 @@ def _fail(exc: BaseException, debug: bool) -> None:
     sys.exit(1)
 
 
+class _EchoHandler(logging.Handler):
+    """Writes each record to the stderr of the moment (click's), not the one at creation."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        click.echo(self.format(record), err=True)
+
+
 def _log_warnings() -> None:
     """Show the tool's own warnings as one line each (not other libraries' logs)."""
     log = logging.getLogger("euphotic")
-    if not log.handlers:
-        handler = logging.StreamHandler()
+    if not any(isinstance(h, _EchoHandler) for h in log.handlers):
+        handler = _EchoHandler()
         handler.setFormatter(logging.Formatter("euphotic: warning: %(message)s"))
         log.addHandler(handler)
         log.setLevel(logging.WARNING)
