@@ -14,7 +14,7 @@ import pytest
 from click.testing import CliRunner
 
 from euphotic.cli import main
-from euphotic.config import load_config
+from euphotic.config import config_problems, load_config
 from euphotic.errors import ConfigError
 
 from ._grids import CHL_STD, PAR_STD, SST_STD, grid, write_field
@@ -262,3 +262,29 @@ def test_good_values_are_taken(tmp_path):
     sst = cfg.inputs["sst"]
     assert (sst.files, sst.date_pattern, sst.period, sst.units) == (
         ["sst/a.nc", "sst/b_*.nc"], r"_(?P<start>\d{8})", 8, "K")
+
+
+def test_every_config_problem_listed_by_check_first_by_run(tmp_path):
+    path = _cfg(
+        tmp_path, run='figures = "false"\nmodels = []',
+        inputs=INPUTS.replace('files = "chl/*.nc"', "files = 42"), extra='[ocean]\nsource = "sky"',
+    )
+    expected = [
+        f'{path} [run]: `figures` must be true or false (a TOML boolean, without quotes), not "false"',
+        f"{path} [run]: `models` is empty; name at least one of eppley_vgpm, vgpm",
+        f"{path} [inputs.chl]: `files` must be a path, a glob pattern or a list of them "
+        "(strings), not 42",
+        f'{path} [ocean]: `source` must be "file", "package" or "temperature", not "sky"',
+    ]
+    assert [str(p) for p in config_problems(path)] == expected
+    assert _error(path) == expected[0]
+    res = CliRunner().invoke(main, ["check", str(path)])
+    assert res.exit_code == 1 and res.stdout == ""
+    assert res.stderr.splitlines() == [f"euphotic: error: {e}" for e in expected]
+    res = CliRunner().invoke(main, ["run", str(path), "-q"])
+    assert res.exit_code == 1
+    assert res.stderr.splitlines() == [f"euphotic: error: {expected[0]}"]
+
+
+def test_a_good_config_has_no_problems():
+    assert config_problems(Path(__file__).resolve().parents[1] / "configs" / "demo.toml") == []

@@ -341,3 +341,18 @@ def test_find_duplicates_and_overlaps():
     ]
     # touching periods (end exclusive) do not overlap
     assert preflight.find_overlaps(starts[2:3], ends[2:3]) == []
+
+
+def test_output_dir_that_is_a_file_and_duplicate_models(tmp_path):
+    for role in ("chl", "par", "sst"):
+        _daily(tmp_path, role, MARCH)
+    (tmp_path / "out").write_text("not a folder")
+    cfg = _config(tmp_path)
+    cfg.write_text(cfg.read_text().replace("[run]\n", '[run]\nmodels = ["vgpm", "vgpm"]\n'))
+    res = _check([cfg])
+    assert res.exit_code == 1
+    lines = res.stdout.splitlines()
+    assert f'  warning: {cfg} [run]: models: "vgpm" listed twice; running it once' in lines
+    assert f"  error: {cfg} [run]: `output_dir` '{tmp_path / 'out'}' is a file, not a folder" in lines
+    assert "Problems: 1 error(s), 1 warning(s)" in lines
+    assert (tmp_path / "out").read_text() == "not a folder"

@@ -132,11 +132,16 @@ def check_command(config: Path, debug: bool) -> None:
     """
     _log_warnings()
     try:
-        from euphotic.config import load_config
+        from euphotic.config import config_problems, load_config
         from euphotic.preflight import check
 
+        problems = config_problems(config)
+        if problems and not debug:  # every config problem, one line each
+            for p in problems:
+                click.echo(f"euphotic: error: {' '.join(str(p).split())}", err=True)
+            sys.exit(1)
         report = check(load_config(config))
-    except Exception as exc:  # noqa: BLE001 - a config error is one line, as for `run`
+    except Exception as exc:  # noqa: BLE001 - one line, as for `run`
         _fail(exc, debug)
         return
     click.echo(report.text())

@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from euphotic.errors import ConfigError
+from euphotic.errors import ConfigError, EuphoticError
 from euphotic.models import MODELS
 from euphotic.readers import InputSpec
 from euphotic.regions import Region, regions_from_config
@@ -148,13 +148,7 @@ def _models(value) -> list[str]:
     for m in names:
         if m not in MODELS:
             raise _Bad(f"unknown model {m!r}; choose from {', '.join(sorted(MODELS))}")
-    out = list(dict.fromkeys(names))
-    for m in out:
-        n = names.count(m)
-        if n > 1:
-            times = "twice" if n == 2 else f"{n} times"
-            log.warning("models: %s listed %s; running it once", json.dumps(m), times)
-    return out
+    return list(dict.fromkeys(names))
 
 
 _MODELS_KEY = Key(_models, "a model name or a list of model names (strings)")
@@ -216,80 +210,135 @@ class RunConfig:
     ocean_source: str = "package"  # "package", "file" or "temperature"
     land_mask: Path | None = None
     land_mask_variable: str | None = None
+    #: things worth knowing that are not errors (logged as warnings when the config is loaded)
+    notes: list[str] = field(default_factory=list)
 
 
-def _check_keys(table: dict, allowed, where: str) -> None:
+def _check_keys(table: dict, allowed, where: str, problems: list) -> None:
     unknown = sorted(set(table) - set(allowed))
     if unknown:
-        raise ConfigError(
+        problems.append(ConfigError(
             where, f"unknown key(s) {', '.join(unknown)}; allowed: {', '.join(sorted(allowed))}"
-        )
+        ))
 
 
-def _table(raw: dict, key: str, where: str, *, name: str) -> dict:
+def _table(raw: dict, key: str, where: str, problems: list, *, name: str) -> dict:
     value = raw.get(key, {})
     if not isinstance(value, dict):
-        raise ConfigError(where, f"`{key}` must be a table ({name}), not {_shown(value)}")
+        problems.append(
+            ConfigError(where, f"`{key}` must be a table ({name}), not {_shown(value)}")
+        )
+        return {}
     return value
 
 
-def check_table(table: dict, keys: dict[str, Key], where: str) -> dict:
-    """Check every key of one table against its declaration; the cleaned values.
+def check_table(table: dict, keys: dict[str, Key], where: str, problems: list) -> dict:
+    """Check every key of one table against its declaration; the cleaned values of the keys
+    that fit.
 
-    Raises
-    ------
-    ConfigError
-        ``"<where>: `key` must be <expected>, not <given>"`` for the first key that does not fit
-        (or the key's own message, e.g. a date pattern that does not compile).
+    Each key that does not fit adds a :class:`ConfigError` to ``problems``:
+    ``"<where>: `key` must be <expected>, not <given>"`` (or the key's own message, e.g. a
+    date pattern that does not compile); unknown keys add one listing them.
     """
-    _check_keys(table, keys, where)
+    _check_keys(table, keys, where, problems)
     out = {}
     for key, value in table.items():
+        if key not in keys:
+            continue
         try:
             out[key] = keys[key].check(value)
         except _Bad as bad:
             problem = str(bad) or f"`{key}` must be {keys[key].expect}, not {_shown(value)}"
-            raise ConfigError(where, problem) from None
+            problems.append(ConfigError(where, problem))
     return out
 
 
 def load_config(path: str | Path) -> RunConfig:
-    """Parse and check a TOML run configuration."""
-    path = Path(path)
+    """Parse and check a TOML run configuration.
+
+    Raises
+    ------
+    ConfigError
+        The first problem found (all of them: :func:`config_problems`); a region file that
+        cannot be read raises its :class:`~euphotic.errors.InputFileError`.
+    """
+    problems: list[EuphoticError] = []
+    cfg = _load(Path(path), problems)
+    if problems or cfg is None:
+        raise problems[0]
+    for note in cfg.notes:
+        log.warning("%s", note)
+    return cfg
+
+
+def config_problems(path: str | Path) -> list[EuphoticError]:
+    """Every problem of a configuration file (empty when :func:`load_config` would accept it),
+    each a one-line error naming the file, the table and the key."""
+    problems: list[EuphoticError] = []
+    _load(Path(path), problems)
+    return problems
+
+
+def _duplicate_notes(value) -> list[str]:
+    names = [value] if isinstance(value, str) else list(value)
+    notes = []
+    for m in dict.fromkeys(names):
+        n = names.count(m)
+        if n > 1:
+            times = "twice" if n == 2 else f"{n} times"
+            notes.append(f"models: {json.dumps(m)} listed {times}; running it once")
+    return notes
+
+
+def _load(path: Path, problems: list) -> RunConfig | None:
+    """The configuration, or None; every problem found is added to ``problems``."""
     try:
         text = path.read_text()
     except OSError as exc:
-        raise ConfigError(path, f"cannot read config ({exc.strerror or exc})") from None
+        problems.append(ConfigError(path, f"cannot read config ({exc.strerror or exc})"))
+        return None
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(path, f"not valid TOML: {exc}") from None
+        problems.append(ConfigError(path, f"not valid TOML: {exc}"))
+        return None
     base = path.resolve().parent
-    _check_keys(raw, _TOP_LEVEL, str(path))
+    _check_keys(raw, _TOP_LEVEL, str(path), problems)
 
-    run = check_table(_table(raw, "run", str(path), name="[run]"), RUN_KEYS, f"{path} [run]")
-    if "models" in run and "model" in run:
-        raise ConfigError(f"{path} [run]", "give `models` or `model`, not both")
+    where_run = f"{path} [run]"
+    run_raw = _table(raw, "run", str(path), problems, name="[run]")
+    run = check_table(run_raw, RUN_KEYS, where_run, problems)
+    if "models" in run_raw and "model" in run_raw:
+        problems.append(ConfigError(where_run, "give `models` or `model`, not both"))
     models = run.get("models", run.get("model", ["vgpm"]))
+    notes = []
+    for key in ("models", "model"):
+        if key in run:
+            notes = _duplicate_notes(run_raw[key])
 
+    inputs: dict[str, InputSpec] = {}
     inputs_raw = raw.get("inputs")
     if not isinstance(inputs_raw, dict):
-        raise ConfigError(path, "missing [inputs] with [inputs.chl], [inputs.par] and [inputs.sst]")
+        problems.append(ConfigError(
+            path, "missing [inputs] with [inputs.chl], [inputs.par] and [inputs.sst]"
+        ))
+        inputs_raw = {}
     extra = sorted(set(inputs_raw) - set(_ROLES))
     if extra:
-        raise ConfigError(f"{path} [inputs]", f"unknown input(s) {', '.join(extra)}")
-    inputs: dict[str, InputSpec] = {}
+        problems.append(ConfigError(f"{path} [inputs]", f"unknown input(s) {', '.join(extra)}"))
     for role in _ROLES:
         if role not in inputs_raw:
-            if role == "day_length":
-                continue
-            raise ConfigError(path, f"missing [inputs.{role}] with `files`")
+            if role != "day_length" and "inputs" in raw:
+                problems.append(ConfigError(path, f"missing [inputs.{role}] with `files`"))
+            continue
         where = f"{path} [inputs.{role}]"
-        table = check_table(
-            _table(inputs_raw, role, f"{path} [inputs]", name=f"[inputs.{role}]"), INPUT_KEYS, where
-        )
+        table_raw = _table(inputs_raw, role, f"{path} [inputs]", problems,
+                           name=f"[inputs.{role}]")
+        table = check_table(table_raw, INPUT_KEYS, where, problems)
+        if "files" not in table_raw and isinstance(inputs_raw.get(role), dict):
+            problems.append(ConfigError(where, "missing `files` (a path or glob pattern)"))
         if "files" not in table:
-            raise ConfigError(where, "missing `files` (a path or glob pattern)")
+            continue
         inputs[role] = InputSpec(
             role=role,
             files=table["files"],
@@ -301,29 +350,39 @@ def load_config(path: str | Path) -> RunConfig:
             base_dir=base,
         )
 
-    ocean = check_table(
-        _table(raw, "ocean", str(path), name="[ocean]"), OCEAN_KEYS, f"{path} [ocean]"
-    )
+    where_ocean = f"{path} [ocean]"
+    ocean_raw = _table(raw, "ocean", str(path), problems, name="[ocean]")
+    ocean = check_table(ocean_raw, OCEAN_KEYS, where_ocean, problems)
     land_mask = ocean.get("land_mask")
     source = ocean.get("source", "file" if land_mask else "package")
-    if source == "file" and not land_mask:
-        raise ConfigError(f"{path} [ocean]", "source = 'file' needs `land_mask`")
+    if source == "file" and not land_mask and "land_mask" not in ocean_raw:
+        problems.append(ConfigError(where_ocean, "source = 'file' needs `land_mask`"))
 
+    regions: list[Region] = []
     regions_raw = raw.get("regions", [])
     if not isinstance(regions_raw, list):
-        raise ConfigError(path, "regions must be an array of tables ([[regions]])")
-    regions = regions_from_config(regions_raw, base, str(path))
+        problems.append(ConfigError(path, "regions must be an array of tables ([[regions]])"))
+    else:
+        try:
+            regions = regions_from_config(regions_raw, base, str(path))
+        except EuphoticError as exc:
+            problems.append(exc)
     if len(regions) > 64:
-        raise ConfigError(path, f"{len(regions)} regions: at most 64 per run")
+        problems.append(ConfigError(path, f"{len(regions)} regions: at most 64 per run"))
 
-    cfg = RunConfig(
+    start, end = run.get("start"), run.get("end")
+    if start is not None and end is not None and end < start:
+        problems.append(ConfigError(where_run, f"`end` ({end}) is before `start` ({start})"))
+    if problems:
+        return None
+    return RunConfig(
         path=path,
         inputs=inputs,
         regions=regions,
         models=list(models),
         output_dir=(base / run.get("output_dir", "euphotic_output")).resolve(),
-        start=run.get("start"),
-        end=run.get("end"),
+        start=start,
+        end=end,
         earth=run.get("earth", "sphere"),
         figures=run.get("figures", True),
         title=run.get("title", "Ocean net primary production"),
@@ -332,7 +391,5 @@ def load_config(path: str | Path) -> RunConfig:
         ocean_source=source,
         land_mask=(base / land_mask).resolve() if land_mask else None,
         land_mask_variable=ocean.get("variable"),
+        notes=notes,
     )
-    if cfg.start is not None and cfg.end is not None and cfg.end < cfg.start:
-        raise ConfigError(f"{path} [run]", f"`end` ({cfg.end}) is before `start` ({cfg.start})")
-    return cfg

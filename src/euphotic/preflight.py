@@ -539,7 +539,8 @@ def check(cfg: RunConfig) -> Report:
     the ocean and region masks, and estimates the work and the peak memory. Nothing on the
     grid is computed apart from the masks.
     """
-    problems: list[Problem] = []
+    problems: list[Problem] = [Problem("warning", f"{cfg.path} [run]: {n}") for n in cfg.notes]
+    problems += _output_problems(cfg)
     opened = open_inputs(cfg)
     for role in ROLES:
         if role in opened.errors:
@@ -617,6 +618,26 @@ def check(cfg: RunConfig) -> Report:
         estimate=estimate,
         problems=problems,
     )
+
+
+def _output_problems(cfg: RunConfig) -> list[Problem]:
+    """Whether the run could create and write its output folder (nothing is created here)."""
+    out = Path(cfg.output_dir)
+    where = f"{cfg.path} [run]: `output_dir` {str(out)!r}"
+    if out.exists():
+        if not out.is_dir():
+            return [Problem("error", f"{where} is a file, not a folder")]
+        if not os.access(out, os.W_OK | os.X_OK):
+            return [Problem("error", f"{where} is not writable")]
+        return []
+    parent = out.parent
+    while not parent.exists() and parent != parent.parent:
+        parent = parent.parent
+    if not parent.is_dir():
+        return [Problem("error", f"{where} cannot be created: {str(parent)!r} is a file")]
+    if not os.access(parent, os.W_OK | os.X_OK):
+        return [Problem("error", f"{where} cannot be created: {str(parent)!r} is not writable")]
+    return []
 
 
 def _estimate(cfg, opened: OpenedInputs, reports, plan) -> Estimate:
