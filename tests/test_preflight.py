@@ -186,6 +186,8 @@ def test_two_problems_in_two_inputs_are_both_reported(tmp_path, no_compute):
     assert not (tmp_path / "out").exists()  # a check writes nothing
     # the par input, which is fine, is still described
     assert "  periods:     5, 1 day(s) long, 2024-03-01..2024-03-05" in res.stdout
+    assert ("  regridding:  not checked (the chlorophyll input, whose grid is the target, did "
+            "not open)") in res.stdout.splitlines()
     # `run` makes the same checks first and stops at the first (chl) with its error class
     with no_compute, pytest.raises(InputFileError, match="unknown unit 'zorks m-3'"):
         prepare(load_config(cfg))
@@ -356,3 +358,23 @@ def test_output_dir_that_is_a_file_and_duplicate_models(tmp_path):
     assert f"  error: {cfg} [run]: `output_dir` '{tmp_path / 'out'}' is a file, not a folder" in lines
     assert "Problems: 1 error(s), 1 warning(s)" in lines
     assert (tmp_path / "out").read_text() == "not a folder"
+
+
+def test_day_length_input_in_the_month_table(tmp_path):
+    for role in ("chl", "par", "sst"):
+        _daily(tmp_path, role, MARCH)
+    lat, lon = grid(0.0, 4.0, 0.0, 4.0, 0.5)
+    for d in MARCH[:3]:  # day length for 03-01..03-03 only
+        write_field(tmp_path / "dl" / f"dl_{d}.nc", "dl", "day_length", "h",
+                    np.full((len(lat), len(lon)), 12.0), lat, lon, start=d, end=d)
+    cfg = _config(tmp_path)
+    cfg.write_text(cfg.read_text().replace("[ocean]", '[inputs.day_length]\nfiles = "dl/*.nc"\n'
+                                                      "[ocean]"))
+    res = _check([cfg])
+    assert res.exit_code == 0, res.output
+    lines = res.stdout.splitlines()
+    assert "  month    all   chl   par   sst   day_length" in lines
+    assert "  2024-03  5/31  5/31  5/31  5/31  3/31        partial" in lines
+    assert (f"  warning: {cfg} [inputs.day_length]: 2 day(s) of 2024-03 with chl, par and sst "
+            "have no day length: no estimate on those days") in lines
+    assert "  units:       h in the file; conversion: none (h is already h)" in lines

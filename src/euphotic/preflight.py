@@ -151,6 +151,8 @@ class MonthRow:
     n_days: int
     all_inputs: int  # days covered by every input of COVERAGE_ROLES
     by_input: dict[str, int]
+    #: of ``all_inputs``, days a day-length input (when given) does not cover: no estimate
+    without_day_length: int = 0
 
 
 @dataclass
@@ -188,8 +190,9 @@ def plan_months(cfg: RunConfig, inputs: dict[str, xr.DataArray]) -> MonthPlan:
         together = np.ones(len(days), bool)
         for role in COVERAGE_ROLES:
             together &= covered.get(role, np.zeros(len(days), bool))
+        no_dl = int((together & ~covered["day_length"]).sum()) if "day_length" in covered else 0
         table.append(MonthRow(m, len(days), int(together.sum()),
-                              {r: int(c.sum()) for r, c in covered.items()}))
+                              {r: int(c.sum()) for r, c in covered.items()}, no_dl))
         (keep if together.any() else skipped).append(m)
     error = None
     if not keep:
@@ -395,7 +398,9 @@ def _input_report(role: str, spec: InputSpec, opened: OpenedInputs) -> InputRepo
     chl = opened.raw.get("chl")
     if role == "chl":
         rep.regrid = "none (this is the target grid)"
-    elif role in opened.on_grid and chl is not None:
+    elif chl is None:
+        rep.regrid = "not checked (the chlorophyll input, whose grid is the target, did not open)"
+    elif role in opened.on_grid:
         rep.regrid = _regrid_words(da, chl)
     starts, ends = da["period_start"].values, da["period_end"].values
     rep.n_periods = len(starts)
@@ -573,6 +578,12 @@ def check(cfg: RunConfig) -> Report:
         for m in plan.skipped:
             problems.append(Problem(
                 "warning", f"{cfg.path}: month {m} will be skipped: no day covered by all inputs"))
+        for row in plan.table:
+            if row.without_day_length and row.month in plan.months:
+                problems.append(Problem(
+                    "warning", f"{cfg.path} [inputs.day_length]: {row.without_day_length} day(s) "
+                               f"of {row.month} with chl, par and sst have no day length: no "
+                               "estimate on those days"))
 
     regions: list[RegionReport] = []
     estimate = None
