@@ -364,7 +364,7 @@ def test_attributes_iso_times_extents_and_provenance(demo_run):
     # [metadata] of configs/demo.toml
     assert a["id"] == "maren-demo_npp_vgpm_2025-04"
     assert a["creator_email"] == "demo@example.org"
-    assert a["license"] == NOT_SPECIFIED  # not set in the demo
+    assert a["license"] == "CC0-1.0 (invented demo data)"
     # provenance: paths relative to the config file, its hash and text
     first = a["input_files_chl"].split(", ")[0]
     assert first == "../sample_grids/chl/maren_chl_20250401.nc"

@@ -1,4 +1,5 @@
-"""Command line: ``euphotic run CONFIG.toml``, ``euphotic inspect FILES``, ``euphotic models``."""
+"""Command line: ``euphotic run CONFIG.toml``, ``euphotic check CONFIG.toml``, ``euphotic inspect FILES``,
+``euphotic models``."""
 
 from __future__ import annotations
 
@@ -137,6 +138,32 @@ def run(
             click.echo(f"wrote {p}")
         if result.manifest is not None:
             click.echo(f"wrote {result.manifest}")
+
+
+@main.command(name="check")
+@click.argument("config", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def check_command(config: Path, debug: bool) -> None:
+    """Check CONFIG before running it: inputs, months, regions, work and memory.
+
+    Lists every problem; exits 1 when the run would fail, 0 when it would start.
+    """
+    _log_warnings()
+    try:
+        from euphotic.config import config_problems, load_config
+        from euphotic.preflight import check
+
+        problems = config_problems(config)
+        if problems and not debug:  # every config problem, one line each
+            for p in problems:
+                click.echo(f"euphotic: error: {' '.join(str(p).split())}", err=True)
+            sys.exit(1)
+        report = check(load_config(config))
+    except Exception as exc:  # noqa: BLE001 - one line, as for `run`
+        _fail(exc, debug)
+        return
+    click.echo(report.text())
+    sys.exit(0 if report.ok else 1)
 
 
 def format_totals(rows: list[dict]) -> str:

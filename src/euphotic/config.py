@@ -1,33 +1,194 @@
-"""Read and check a run configuration (TOML). Every problem names the file and the key."""
+"""Read and check a run configuration (TOML). Every problem names the file and the key.
+
+Each key of each table is declared once in a small table (:data:`RUN_KEYS`,
+:data:`INPUT_KEYS`, :data:`OCEAN_KEYS`): a check that turns the TOML value into the value the
+run uses, and a description of what is expected, which is the error message when the check
+fails. TOML types are taken as they are: a boolean must be ``true``/``false`` (the string
+``"false"`` is an error, not a true value), a text must be a string.
+"""
 
 from __future__ import annotations
 
+import datetime as dt
+import json
+import logging
+import re
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from euphotic.errors import ConfigError
+from euphotic.errors import ConfigError, EuphoticError
 from euphotic.models import MODELS
 from euphotic.outputs import metadata_from_config
 from euphotic.readers import InputSpec
 from euphotic.regions import Region, regions_from_config
 
-_INPUT_KEYS = {"files", "variable", "units", "date_pattern", "date_format", "period"}
-_RUN_KEYS = {
-    "models",
-    "model",
-    "output_dir",
-    "start",
-    "end",
-    "earth",
-    "figures",
-    "title",
-    "output_format",
-    "months_per_compute",
+log = logging.getLogger("euphotic")
+
+
+class _Bad(Exception):
+    """A value does not fit its key; the message (if any) replaces the key's description."""
+
+
+@dataclass(frozen=True)
+class Key:
+    """One config key: ``check`` turns the TOML value into the run's value (raising
+    :class:`_Bad` when it does not fit) and ``expect`` says what is expected."""
+
+    check: Callable[[object], object]
+    expect: str
+
+
+def _shown(value) -> str:
+    """A value as it was written in TOML (strings quoted, booleans lower case)."""
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, str):
+        return json.dumps(value)
+    if isinstance(value, list):
+        return "[" + ", ".join(_shown(v) for v in value) + "]"
+    if isinstance(value, dict):
+        return "a table"
+    if isinstance(value, dt.date | dt.datetime | dt.time):
+        return value.isoformat()
+    return repr(value)
+
+
+# ---- checks: each returns the cleaned value or raises _Bad --------------------------------
+
+
+def _string(value) -> str:
+    if not isinstance(value, str) or not value.strip():
+        raise _Bad
+    return value
+
+
+def _boolean(value) -> bool:
+    if not isinstance(value, bool):
+        raise _Bad
+    return value
+
+
+def _choice(*allowed: str) -> Callable[[object], str]:
+    def check(value) -> str:
+        if not isinstance(value, str) or value not in allowed:
+            raise _Bad
+        return value
+
+    return check
+
+
+def _whole_number_min(low: int) -> Callable[[object], int]:
+    def check(value) -> int:
+        if not isinstance(value, int) or isinstance(value, bool) or value < low:
+            raise _Bad
+        return value
+
+    return check
+
+
+def _date(value) -> np.datetime64:
+    if isinstance(value, dt.datetime) or not isinstance(value, dt.date | str):
+        raise _Bad
+    if isinstance(value, str):
+        if not re.fullmatch(r"\d{4}-\d{2}-\d{2}", value.strip()):
+            raise _Bad
+        try:
+            value = dt.date.fromisoformat(value.strip())
+        except ValueError:
+            raise _Bad from None
+    return np.datetime64(value, "D")
+
+
+def _files(value) -> str | list[str]:
+    if isinstance(value, str) and value.strip():
+        return value
+    if (
+        isinstance(value, list)
+        and value
+        and all(isinstance(v, str) and v.strip() for v in value)
+    ):
+        return list(value)
+    raise _Bad
+
+
+def _date_pattern(value) -> str:
+    _string(value)
+    try:
+        compiled = re.compile(value)
+    except re.error as exc:
+        raise _Bad(f"`date_pattern` {_shown(value)} is not a regular expression ({exc})") from None
+    if "start" not in compiled.groupindex:
+        raise _Bad(f"`date_pattern` {_shown(value)} has no named group `(?P<start>...)`")
+    return value
+
+
+#: period names the readers understand (see readers._period_length)
+_PERIOD_NAMES = ("day", "daily", "month", "monthly")
+
+
+def _period(value) -> str | int:
+    if isinstance(value, str) and value in _PERIOD_NAMES:
+        return value
+    if isinstance(value, int) and not isinstance(value, bool) and value > 0:
+        return value
+    raise _Bad
+
+
+def _models(value) -> list[str]:
+    names = [value] if isinstance(value, str) else value
+    if not isinstance(names, list) or not all(isinstance(m, str) for m in names):
+        raise _Bad
+    if not names:
+        raise _Bad(
+            f"`models` is empty; name at least one of {', '.join(sorted(MODELS))}"
+        )
+    for m in names:
+        if m not in MODELS:
+            raise _Bad(f"unknown model {m!r}; choose from {', '.join(sorted(MODELS))}")
+    return list(dict.fromkeys(names))
+
+
+_MODELS_KEY = Key(_models, "a model name or a list of model names (strings)")
+
+#: [run] keys -> (check, what is expected)
+RUN_KEYS: dict[str, Key] = {
+    "models": _MODELS_KEY,
+    "model": _MODELS_KEY,
+    "output_dir": Key(_string, "a folder path (string)"),
+    "start": Key(_date, "a date: a TOML date (2025-04-01) or a string \"YYYY-MM-DD\""),
+    "end": Key(_date, "a date: a TOML date (2025-04-30) or a string \"YYYY-MM-DD\""),
+    "earth": Key(_choice("sphere", "wgs84"), '"sphere" or "wgs84"'),
+    "figures": Key(_boolean, "true or false (a TOML boolean, without quotes)"),
+    "title": Key(_string, "a non-empty string"),
+    "output_format": Key(_choice("netcdf", "zarr"), '"netcdf" or "zarr"'),
+    "months_per_compute": Key(_whole_number_min(0), "a whole number >= 0"),
 }
-_OCEAN_KEYS = {"source", "land_mask", "variable"}
+
+#: [inputs.<role>] keys
+INPUT_KEYS: dict[str, Key] = {
+    "files": Key(_files, "a path, a glob pattern or a list of them (strings)"),
+    "variable": Key(_string, "a variable name (string)"),
+    "units": Key(_string, "a units string such as \"mg m-3\""),
+    "date_pattern": Key(
+        _date_pattern, "a regular expression (string) with a named group (?P<start>...)"
+    ),
+    "date_format": Key(_string, "a strptime format (string) such as \"%Y%m%d\""),
+    "period": Key(_period, "\"day\", \"month\" or a whole number of days > 0"),
+}
+
+#: [ocean] keys
+OCEAN_KEYS: dict[str, Key] = {
+    "source": Key(_choice("file", "package", "temperature"), '"file", "package" or "temperature"'),
+    "land_mask": Key(_string, "a NetCDF file path (string)"),
+    "variable": Key(_string, "a variable name (string)"),
+}
+
+_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata"}
+_ROLES = ("chl", "par", "sst", "day_length")
 
 
 @dataclass
@@ -52,74 +213,140 @@ class RunConfig:
     land_mask_variable: str | None = None
     #: [metadata] keys set by the user (ACDD attributes; see outputs.metadata_from_config)
     metadata: dict[str, str] = field(default_factory=dict)
+    #: things worth knowing that are not errors (logged as warnings when the config is loaded)
+    notes: list[str] = field(default_factory=list)
 
 
-def _date(value, where: str, key: str) -> np.datetime64:
-    try:
-        return np.datetime64(str(value), "D")
-    except ValueError:
-        raise ConfigError(where, f"`{key}` = {value!r} is not a date (YYYY-MM-DD)") from None
-
-
-def _check_keys(table: dict, allowed: set, where: str) -> None:
-    unknown = sorted(set(table) - allowed)
+def _check_keys(table: dict, allowed, where: str, problems: list) -> None:
+    unknown = sorted(set(table) - set(allowed))
     if unknown:
-        raise ConfigError(
+        problems.append(ConfigError(
             where, f"unknown key(s) {', '.join(unknown)}; allowed: {', '.join(sorted(allowed))}"
+        ))
+
+
+def _table(raw: dict, key: str, where: str, problems: list, *, name: str) -> dict:
+    value = raw.get(key, {})
+    if not isinstance(value, dict):
+        problems.append(
+            ConfigError(where, f"`{key}` must be a table ({name}), not {_shown(value)}")
         )
+        return {}
+    return value
+
+
+def check_table(table: dict, keys: dict[str, Key], where: str, problems: list) -> dict:
+    """Check every key of one table against its declaration; the cleaned values of the keys
+    that fit.
+
+    Each key that does not fit adds a :class:`ConfigError` to ``problems``:
+    ``"<where>: `key` must be <expected>, not <given>"`` (or the key's own message, e.g. a
+    date pattern that does not compile); unknown keys add one listing them.
+    """
+    _check_keys(table, keys, where, problems)
+    out = {}
+    for key, value in table.items():
+        if key not in keys:
+            continue
+        try:
+            out[key] = keys[key].check(value)
+        except _Bad as bad:
+            problem = str(bad) or f"`{key}` must be {keys[key].expect}, not {_shown(value)}"
+            problems.append(ConfigError(where, problem))
+    return out
 
 
 def load_config(path: str | Path) -> RunConfig:
-    """Parse and check a TOML run configuration."""
-    path = Path(path)
+    """Parse and check a TOML run configuration.
+
+    Raises
+    ------
+    ConfigError
+        The first problem found (all of them: :func:`config_problems`); a region file that
+        cannot be read raises its :class:`~euphotic.errors.InputFileError`.
+    """
+    problems: list[EuphoticError] = []
+    cfg = _load(Path(path), problems)
+    if problems or cfg is None:
+        raise problems[0]
+    for note in cfg.notes:
+        log.warning("%s", note)
+    return cfg
+
+
+def config_problems(path: str | Path) -> list[EuphoticError]:
+    """Every problem of a configuration file (empty when :func:`load_config` would accept it),
+    each a one-line error naming the file, the table and the key."""
+    problems: list[EuphoticError] = []
+    _load(Path(path), problems)
+    return problems
+
+
+def _duplicate_notes(value) -> list[str]:
+    names = [value] if isinstance(value, str) else list(value)
+    notes = []
+    for m in dict.fromkeys(names):
+        n = names.count(m)
+        if n > 1:
+            times = "twice" if n == 2 else f"{n} times"
+            notes.append(f"models: {json.dumps(m)} listed {times}; running it once")
+    return notes
+
+
+def _load(path: Path, problems: list) -> RunConfig | None:
+    """The configuration, or None; every problem found is added to ``problems``."""
     try:
         text = path.read_text()
     except OSError as exc:
-        raise ConfigError(path, f"cannot read config ({exc.strerror or exc})") from None
+        problems.append(ConfigError(path, f"cannot read config ({exc.strerror or exc})"))
+        return None
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(path, f"not valid TOML: {exc}") from None
+        problems.append(ConfigError(path, f"not valid TOML: {exc}"))
+        return None
     base = path.resolve().parent
-    _check_keys(raw, {"run", "inputs", "ocean", "regions", "metadata"}, str(path))
+    _check_keys(raw, _TOP_LEVEL, str(path), problems)
+    try:
+        metadata = metadata_from_config(raw.get("metadata", {}), f"{path} [metadata]")
+    except ConfigError as exc:
+        problems.append(exc)
+        metadata = {}
 
-    run = raw.get("run", {})
-    _check_keys(run, _RUN_KEYS, f"{path} [run]")
+    where_run = f"{path} [run]"
+    run_raw = _table(raw, "run", str(path), problems, name="[run]")
+    run = check_table(run_raw, RUN_KEYS, where_run, problems)
+    if "models" in run_raw and "model" in run_raw:
+        problems.append(ConfigError(where_run, "give `models` or `model`, not both"))
     models = run.get("models", run.get("model", ["vgpm"]))
-    if isinstance(models, str):
-        models = [models]
-    for m in models:
-        if m not in MODELS:
-            raise ConfigError(
-                f"{path} [run]", f"unknown model {m!r}; choose from {', '.join(sorted(MODELS))}"
-            )
-    output_format = run.get("output_format", "netcdf")
-    if output_format not in ("netcdf", "zarr"):
-        raise ConfigError(
-            f"{path} [run]", f"`output_format` must be 'netcdf' or 'zarr', not {output_format!r}"
-        )
-    per = run.get("months_per_compute", 1)
-    if not isinstance(per, int) or isinstance(per, bool) or per < 0:
-        raise ConfigError(
-            f"{path} [run]", f"`months_per_compute` must be a whole number >= 0, not {per!r}"
-        )
-    earth = run.get("earth", "sphere")
-    if earth not in ("sphere", "wgs84"):
-        raise ConfigError(f"{path} [run]", f"`earth` must be 'sphere' or 'wgs84', not {earth!r}")
+    notes = []
+    for key in ("models", "model"):
+        if key in run:
+            notes = _duplicate_notes(run_raw[key])
 
+    inputs: dict[str, InputSpec] = {}
     inputs_raw = raw.get("inputs")
     if not isinstance(inputs_raw, dict):
-        raise ConfigError(path, "missing [inputs] with [inputs.chl], [inputs.par] and [inputs.sst]")
-    inputs: dict[str, InputSpec] = {}
-    for role in ("chl", "par", "sst", "day_length"):
-        table = inputs_raw.get(role)
-        if table is None:
-            if role == "day_length":
-                continue
-            raise ConfigError(path, f"missing [inputs.{role}] with `files`")
-        _check_keys(table, _INPUT_KEYS, f"{path} [inputs.{role}]")
+        problems.append(ConfigError(
+            path, "missing [inputs] with [inputs.chl], [inputs.par] and [inputs.sst]"
+        ))
+        inputs_raw = {}
+    extra = sorted(set(inputs_raw) - set(_ROLES))
+    if extra:
+        problems.append(ConfigError(f"{path} [inputs]", f"unknown input(s) {', '.join(extra)}"))
+    for role in _ROLES:
+        if role not in inputs_raw:
+            if role != "day_length" and "inputs" in raw:
+                problems.append(ConfigError(path, f"missing [inputs.{role}] with `files`"))
+            continue
+        where = f"{path} [inputs.{role}]"
+        table_raw = _table(inputs_raw, role, f"{path} [inputs]", problems,
+                           name=f"[inputs.{role}]")
+        table = check_table(table_raw, INPUT_KEYS, where, problems)
+        if "files" not in table_raw and isinstance(inputs_raw.get(role), dict):
+            problems.append(ConfigError(where, "missing `files` (a path or glob pattern)"))
         if "files" not in table:
-            raise ConfigError(f"{path} [inputs.{role}]", "missing `files` (a path or glob pattern)")
+            continue
         inputs[role] = InputSpec(
             role=role,
             files=table["files"],
@@ -130,49 +357,48 @@ def load_config(path: str | Path) -> RunConfig:
             period=table.get("period"),
             base_dir=base,
         )
-    extra = sorted(set(inputs_raw) - {"chl", "par", "sst", "day_length"})
-    if extra:
-        raise ConfigError(f"{path} [inputs]", f"unknown input(s) {', '.join(extra)}")
 
-    ocean = raw.get("ocean", {})
-    _check_keys(ocean, _OCEAN_KEYS, f"{path} [ocean]")
+    where_ocean = f"{path} [ocean]"
+    ocean_raw = _table(raw, "ocean", str(path), problems, name="[ocean]")
+    ocean = check_table(ocean_raw, OCEAN_KEYS, where_ocean, problems)
     land_mask = ocean.get("land_mask")
     source = ocean.get("source", "file" if land_mask else "package")
-    if source not in ("file", "package", "temperature"):
-        raise ConfigError(
-            f"{path} [ocean]",
-            f"`source` must be 'file', 'package' or 'temperature', not {source!r}",
-        )
-    if source == "file" and not land_mask:
-        raise ConfigError(f"{path} [ocean]", "source = 'file' needs `land_mask`")
+    if source == "file" and not land_mask and "land_mask" not in ocean_raw:
+        problems.append(ConfigError(where_ocean, "source = 'file' needs `land_mask`"))
 
+    regions: list[Region] = []
     regions_raw = raw.get("regions", [])
     if not isinstance(regions_raw, list):
-        raise ConfigError(path, "regions must be an array of tables ([[regions]])")
-    regions = regions_from_config(regions_raw, base, str(path))
+        problems.append(ConfigError(path, "regions must be an array of tables ([[regions]])"))
+    else:
+        try:
+            regions = regions_from_config(regions_raw, base, str(path))
+        except EuphoticError as exc:
+            problems.append(exc)
     if len(regions) > 64:
-        raise ConfigError(path, f"{len(regions)} regions: at most 64 per run")
+        problems.append(ConfigError(path, f"{len(regions)} regions: at most 64 per run"))
 
-    cfg = RunConfig(
+    start, end = run.get("start"), run.get("end")
+    if start is not None and end is not None and end < start:
+        problems.append(ConfigError(where_run, f"`end` ({end}) is before `start` ({start})"))
+    if problems:
+        return None
+    return RunConfig(
         path=path,
         inputs=inputs,
         regions=regions,
         models=list(models),
         output_dir=(base / run.get("output_dir", "euphotic_output")).resolve(),
-        earth=earth,
-        figures=bool(run.get("figures", True)),
-        title=str(run.get("title", "Ocean net primary production")),
-        output_format=output_format,
-        months_per_compute=per,
+        start=start,
+        end=end,
+        earth=run.get("earth", "sphere"),
+        figures=run.get("figures", True),
+        title=run.get("title", "Ocean net primary production"),
+        output_format=run.get("output_format", "netcdf"),
+        months_per_compute=run.get("months_per_compute", 1),
         ocean_source=source,
         land_mask=(base / land_mask).resolve() if land_mask else None,
         land_mask_variable=ocean.get("variable"),
-        metadata=metadata_from_config(raw.get("metadata", {}), f"{path} [metadata]"),
+        metadata=metadata,
+        notes=notes,
     )
-    if "start" in run:
-        cfg.start = _date(run["start"], f"{path} [run]", "start")
-    if "end" in run:
-        cfg.end = _date(run["end"], f"{path} [run]", "end")
-    if cfg.start is not None and cfg.end is not None and cfg.end < cfg.start:
-        raise ConfigError(f"{path} [run]", "`end` is before `start`")
-    return cfg

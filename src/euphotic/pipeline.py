@@ -15,12 +15,11 @@ import dask
 import numpy as np
 import xarray as xr
 
-from euphotic import aggregate, ocean, outputs, runfolder
+from euphotic import aggregate, ocean, outputs, preflight, runfolder
 from euphotic.config import RunConfig
-from euphotic.errors import ConfigError, NoOverlapError, NoValidDataError
+from euphotic.errors import ConfigError, NoValidDataError
 from euphotic.geo import cell_area
 from euphotic.models import get_model, get_month_block
-from euphotic.readers import match_grid, open_input
 
 log = logging.getLogger("euphotic")
 
@@ -58,49 +57,17 @@ class RunResult:
     manifest: Path | None = None
 
 
-def _span(da: xr.DataArray) -> str:
-    s = da["period_start"].values.min().astype("datetime64[D]")
-    e = da["period_end"].values.max().astype("datetime64[D]") - 1
-    return f"{s}..{e}"
-
-
 def prepare(cfg: RunConfig) -> Prepared:
     """Open and check every input and build masks; nothing on the grid is computed."""
-    chl = open_input(cfg.inputs["chl"])
-    others = {}
-    for role in ("par", "sst", "day_length"):
-        if role in cfg.inputs:
-            da = open_input(cfg.inputs[role])
-            others[role] = match_grid(da, chl, da.attrs["files"][0])
-            others[role].attrs["files"] = da.attrs["files"]
-    par, sst = others["par"], others["sst"]
+    # the checks `euphotic check` makes too (euphotic.preflight): inputs, grids, months
+    opened = preflight.open_inputs(cfg)
+    opened.raise_first()
+    chl, par, sst = (opened.on_grid[r] for r in ("chl", "par", "sst"))
     lat, lon = chl["lat"].values, chl["lon"].values
-
-    # months to produce: those the chlorophyll touches, within [start, end]
-    months = aggregate.months_touched(chl["period_start"].values, chl["period_end"].values)
-    if cfg.start is not None:
-        months = [m for m in months if m >= cfg.start.astype("datetime64[M]")]
-    if cfg.end is not None:
-        months = [m for m in months if m <= cfg.end.astype("datetime64[M]")]
-    if not months:
-        raise NoOverlapError(
-            f"{cfg.path}: no chlorophyll period ({_span(chl)}) falls within start/end of [run]"
-        )
-    keep, skipped = [], []
-    for m in months:
-        days = aggregate.month_days(m)
-        covered = np.ones(len(days), bool)
-        for da in (chl, par, sst):
-            covered &= (
-                aggregate.day_to_period(da["period_start"].values, da["period_end"].values, days)
-                >= 0
-            )
-        (keep if covered.any() else skipped).append(m)
-    if not keep:
-        raise NoOverlapError(
-            f"no day is covered by all inputs: chl {_span(chl)} ({chl.attrs['files'][0]}), "
-            f"par {_span(par)} ({par.attrs['files'][0]}), sst {_span(sst)} ({sst.attrs['files'][0]})"
-        )
+    plan = preflight.plan_months(cfg, opened.on_grid)
+    if plan.error is not None:
+        raise plan.error
+    keep, skipped = plan.months, plan.skipped
     for m in skipped:
         log.warning("skipping %s: no day of it is covered by all inputs (chl, par, sst)", m)
 
@@ -118,7 +85,7 @@ def prepare(cfg: RunConfig) -> Prepared:
         chl=chl,
         par=par,
         sst=sst,
-        day_length=others.get("day_length"),
+        day_length=opened.on_grid.get("day_length"),
         ocean=ocean_da,
         area_rows_m2=area_rows,
         months=keep,
