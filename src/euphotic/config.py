@@ -147,8 +147,6 @@ def load_config(path: str | Path) -> RunConfig:
     if not isinstance(regions_raw, list):
         raise ConfigError(path, "regions must be an array of tables ([[regions]])")
     regions = regions_from_config(regions_raw, base, str(path))
-    if len(regions) > 64:
-        raise ConfigError(path, f"{len(regions)} regions: at most 64 per run")
 
     cfg = RunConfig(
         path=path,

@@ -20,6 +20,7 @@ from euphotic.errors import NoOverlapError
 from euphotic.geo import cell_area
 from euphotic.models import get_model, get_month_block
 from euphotic.readers import match_grid, open_input
+from euphotic.regions import region_masks
 
 log = logging.getLogger("euphotic")
 
@@ -105,7 +106,7 @@ def prepare(cfg: RunConfig) -> Prepared:
     else:
         ocean_da = ocean.temperature_ocean_mask(sst)
     area_rows = cell_area(lat, lon[:2], earth=cfg.earth)[:, 0]  # regular grid: same along a row
-    masks = aggregate.RegionMasks.build((r.name, _region_mask(r, lat, lon)) for r in cfg.regions)
+    masks = region_masks(cfg.regions, lat, lon)
     return Prepared(
         chl=chl,
         par=par,
@@ -117,13 +118,6 @@ def prepare(cfg: RunConfig) -> Prepared:
         region_masks=masks,
         skipped_months=skipped,
     )
-
-
-def _region_mask(region, lat, lon) -> np.ndarray:
-    m = region.mask(lat, lon)
-    if not m.any():
-        log.warning("region %r contains no cell centre of the grid", region.name)
-    return m
 
 
 @contextlib.contextmanager
@@ -165,10 +159,11 @@ def _grid_masks(prep: Prepared, client):
     spatial = prep.chl.data.chunks[1:] if isinstance(prep.chl.data, da.Array) else "auto"
 
     def lazy(arr: np.ndarray) -> da.Array:
+        chunks = spatial if spatial == "auto" else (-1,) * (arr.ndim - 2) + tuple(spatial)
         if client is None:
-            return da.from_array(arr, chunks=spatial)
+            return da.from_array(arr, chunks=chunks)
         future = client.scatter(arr, broadcast=False)
-        return da.from_delayed(dask.delayed(future), shape=arr.shape, dtype=arr.dtype).rechunk(spatial)
+        return da.from_delayed(dask.delayed(future), shape=arr.shape, dtype=arr.dtype).rechunk(chunks)
 
     ocean_mask = prep.ocean
     if not isinstance(prep.ocean.data, da.Array):
@@ -242,7 +237,8 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, batch, ocean_mask, bits, input_
             temps.append(tmp)
             writes.append(outputs.write_lazy(ds, tmp, cfg.output_format))
             if names:
-                lazies.append(aggregate.region_sums(maps, names, bits, ocean_mask, prep.area_rows_m2))
+                lazies.append(aggregate.region_sums(maps, prep.region_masks, bits, ocean_mask,
+                                                    prep.area_rows_m2))
     return writes, lazies, placed
 
 
