@@ -462,3 +462,23 @@ def test_box_spanning_most_of_the_globe_warns_swapped(tmp_path, caplog):
     # the box is still taken as written (a warning, not an error)
     lat, lon = _centres(1.0)
     assert r.mask(lat, lon).sum() == 10 * 340
+
+
+@pytest.mark.slow
+def test_many_regions_benchmark_runs_tiny():
+    """The benchmark script runs end to end on a 1-degree grid (figures only, no timing
+    assertions); its previous-loop comparison reports the same sums."""
+    import subprocess
+    import sys
+
+    root = Path(__file__).resolve().parents[1]
+    res = subprocess.run(
+        [sys.executable, str(root / "benchmarks" / "many_regions.py"), "--res", "1",
+         "--repeats", "1", "--chunk", "60"],
+        capture_output=True, text=True, timeout=300, check=False,
+    )
+    assert res.returncode == 0, res.stdout + res.stderr
+    assert "1005 regions (1000 small non-overlapping + 5 large overlapping boxes)" in res.stdout
+    for phrase in ("mask build:", "masks held:", "regional sums per month, 1005 regions:",
+                   "previous per-region loop:", "(same sums: True)"):
+        assert phrase in res.stdout

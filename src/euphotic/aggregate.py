@@ -394,7 +394,7 @@ def _block_sums(npp, cov, ocean, area_rows, *planes, n_regions, n_label_layers, 
     )
     out = np.zeros((1, 1, n_regions, len(SUM_FIELDS)))
     for k in range(n_label_layers):
-        labels = np.asarray(planes[k]).ravel()
+        labels = np.asarray(planes[k]).ravel().astype(np.intp)  # once, not in each bincount
         for f, values in enumerate(fields):
             out[0, 0, :, f] += np.bincount(labels, weights=values.ravel(),
                                            minlength=n_regions + 1)[1:]
