@@ -427,6 +427,13 @@ def test_par_conversion_is_the_readers_conversion():
     )
 
 
+def test_par_pint_quantity_in_w_m2():
+    from euphotic.units import ureg
+
+    par = ureg.Quantity(np.array([40.0 / W_M2_TO_MOL_M2_D]), "W m-2")
+    assert vgpm(0.5, par, 20.0, 12.0)[0] == pytest.approx(VGPM_HAND, rel=1e-6)
+
+
 def test_par_without_time_is_refused():
     with pytest.raises(ValueError, match=r"^par: PAR unit 'mol m-2' has no time"):
         vgpm(0.5, _field([[40.0]], units="mol m-2"), 20.0, 12.0)

@@ -175,11 +175,29 @@ def test_region_bits_any_number_overlapping():
     # 100 random overlapping masks (more than the 64 bits of one integer), all packed as bits
     rng = np.random.default_rng(3)
     masks = [rng.random((5, 7)) > 0.5 for _ in range(100)]
-    bits = aggregate.region_bits(masks)
+    bits = aggregate.region_bits(masks).planes
     assert bits.dtype == np.uint16 and bits.shape == (7, 5, 7)  # ceil(100 / 16) planes
     for r, m in enumerate(masks):
         plane = bits[r // 16]
         np.testing.assert_array_equal(((plane >> np.uint16(r % 16)) & 1).astype(bool), m)
+    # the same planes read back through the Mapping, bits-only layout
+    unpacked = aggregate.RegionMasks([str(r) for r in range(100)], bits)
+    assert unpacked.bit_regions == tuple(range(100))
+    for r, m in enumerate(masks):
+        np.testing.assert_array_equal(unpacked[str(r)], m)
+
+
+def test_region_sums_refuses_names_with_a_bare_array():
+    # label planes read as bits would give wrong sums silently: refused instead
+    npp = xr.DataArray(np.ones((2, 2)), dims=("lat", "lon"))
+    maps = aggregate.MonthlyMaps(month=np.datetime64("2024-04"), model="vgpm", npp=npp,
+                                 coverage=npp, n_days=30)
+    masks = aggregate.RegionMasks.build([("a", np.eye(2, dtype=bool))])
+    ocean = xr.DataArray(np.ones((2, 2), bool), dims=("lat", "lon"))
+    with pytest.raises(TypeError, match="give the RegionMasks"):
+        aggregate.region_sums(maps, ["a"], masks.planes, ocean, np.ones(2))
+    z = aggregate.region_sums(maps, ["a"], masks, ocean, np.ones(2))
+    np.testing.assert_array_equal(z.sums.compute(), [[2.0, 2.0, 2.0, 2.0]])
 
 
 def test_demo_config_loads_all_region_kinds():

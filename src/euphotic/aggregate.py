@@ -264,6 +264,10 @@ class RegionMasks(Mapping):
         bit_regions: tuple[int, ...] = (),
     ):
         self.names = list(names)
+        if planes is not None and np.ndim(planes) == 2:  # one plane
+            planes = np.asarray(planes)[None]
+        if planes is not None and self.names and not n_label_layers and not bit_regions:
+            bit_regions = range(len(self.names))  # bits only, region r = bit r
         self.planes = planes
         self.n_label_layers = int(n_label_layers)
         self.bit_regions = tuple(int(r) for r in bit_regions)
@@ -366,15 +370,13 @@ class RegionMasks(Mapping):
         return len(self.names)
 
 
-def region_bits(masks: list[np.ndarray]) -> np.ndarray:
-    """Pack boolean (lat, lon) masks as bits only (bit r = region r), shape (planes, lat, lon).
+def region_bits(masks: list[np.ndarray]) -> RegionMasks:
+    """Boolean (lat, lon) masks stored as bits only (bit r = region r), any number of them.
 
-    Any number of masks; :func:`region_sums` reads this layout when given a list of names.
-    :class:`RegionMasks` (label layers first) is the compact form for many regions.
+    For small sets and tests; :func:`euphotic.regions.region_masks` builds the compact form
+    (label layers first) for a run. Pass the result as ``bits`` to :func:`region_sums`.
     """
-    return RegionMasks.build(
-        [(str(r), m) for r, m in enumerate(masks)], max_label_layers=0
-    ).planes
+    return RegionMasks.build([(str(r), m) for r, m in enumerate(masks)], max_label_layers=0)
 
 
 def _block_sums(npp, cov, ocean, area_rows, *planes, n_regions, n_label_layers, bit_regions):
@@ -432,20 +434,34 @@ def region_sums(
     Parameters
     ----------
     regions : RegionMasks, or a list of region names
-        The regions and the layout of ``bits``; a list of names means ``bits`` came from
-        :func:`region_bits` (every region a bit).
-    bits : integer array (numpy or dask), (planes, lat, lon)
-        ``regions.planes`` (or a dask array of it, e.g. scattered to a cluster's workers);
-        a 2-D array is one plane.
+        The regions, and the layout of the planes (label layers, bits).
+    bits : integer array (numpy or dask) (planes, lat, lon), or a RegionMasks
+        ``regions.planes``, or a dask array of them (e.g. scattered to a cluster's workers).
+        With a list of names, ``bits`` must be a :class:`RegionMasks` (e.g. from
+        :func:`region_bits`) so that the planes are read with their layout.
+
+    Raises
+    ------
+    TypeError
+        Names with a bare array: the layout of the planes would be unknown.
     ocean : boolean (lat, lon) DataArray (lazy when taken from temperature)
     area_rows_m2 : (lat,) area of one cell in each grid row, m2 (regular grid)
     """
     import dask.array as da
 
-    if isinstance(regions, RegionMasks):
-        names, n_layers, bit_regions = regions.names, regions.n_label_layers, regions.bit_regions
+    if isinstance(bits, RegionMasks):
+        layout, bits = bits, bits.planes
+    elif isinstance(regions, RegionMasks):
+        layout = regions
     else:
-        names, n_layers, bit_regions = list(regions), 0, tuple(range(len(regions)))
+        raise TypeError(
+            "region_sums: give the RegionMasks (as `regions` or `bits`), not only names and an "
+            "array: the planes hold label layers and bits"
+        )
+    names = list(regions.names if isinstance(regions, RegionMasks) else regions)
+    if len(names) != len(layout):
+        raise ValueError(f"region_sums: {len(names)} names for {len(layout)} region masks")
+    n_layers, bit_regions = layout.n_label_layers, layout.bit_regions
     npp = maps.npp.data
     if not isinstance(npp, da.Array):
         npp = da.from_array(np.asarray(npp), chunks=-1)
