@@ -262,8 +262,11 @@ class RegionMasks(Mapping):
         *,
         n_label_layers: int = 0,
         bit_regions: tuple[int, ...] = (),
+        windows: list[tuple[slice, slice]] | None = None,
     ):
         self.names = list(names)
+        # (rows, cols) slices holding each region's cells: unpacking reads only those
+        self.windows = windows
         if planes is not None and np.ndim(planes) == 2:  # one plane
             planes = np.asarray(planes)[None]
         if planes is not None and self.names and not n_label_layers and not bit_regions:
@@ -315,6 +318,7 @@ class RegionMasks(Mapping):
         layers: list[np.ndarray] = []
         bit_planes: list[np.ndarray] = []
         bit_regions: list[int] = []
+        windows: list[tuple[slice, slice]] = []
         for name, mask in named_masks:
             r = len(names)
             if r + 1 > np.iinfo(dtype).max:
@@ -325,6 +329,7 @@ class RegionMasks(Mapping):
                 if isinstance(mask, MaskWindow) or len(shape) != 2:
                     raise ValueError("give the grid `shape` when masks come as windows")
             names.append(name)
+            windows.append((win.rows, win.cols))
             sub = win.mask
             placed = False
             for layer in layers:
@@ -348,19 +353,22 @@ class RegionMasks(Mapping):
         n_layers = len(layers)
         planes = np.stack(layers + bit_planes) if (layers or bit_planes) else None
         del layers, bit_planes
-        return cls(names, planes, n_label_layers=n_layers, bit_regions=tuple(bit_regions))
+        return cls(names, planes, n_label_layers=n_layers, bit_regions=tuple(bit_regions),
+                   windows=windows)
 
     def __getitem__(self, name: str) -> np.ndarray:
         r = self._index[name]
         planes = self.planes
+        out = np.zeros(planes.shape[1:], dtype=bool)
+        win = self.windows[r] if self.windows is not None else (slice(None), slice(None))
         if r in self._bit_of:
             j = self._bit_of[r]
             nbits = planes.dtype.itemsize * 8
-            plane = planes[self.n_label_layers + j // nbits]
-            return ((plane >> plane.dtype.type(j % nbits)) & 1).astype(bool)
-        out = np.zeros(planes.shape[1:], dtype=bool)
+            plane = planes[self.n_label_layers + j // nbits][win]
+            out[win] = ((plane >> plane.dtype.type(j % nbits)) & 1).astype(bool)
+            return out
         for k in range(self.n_label_layers):
-            out |= planes[k] == r + 1
+            out[win] |= planes[k][win] == r + 1
         return out
 
     def __iter__(self):
