@@ -54,12 +54,27 @@ def check_same_grid(**named) -> None:
                 )
             if d in a.coords and d in ref.coords:
                 mine, theirs = a[d].values, ref[d].values
-                if not np.array_equal(mine, theirs):
-                    i = int(np.flatnonzero(mine != theirs)[0]) if mine.shape == theirs.shape else 0
+                if not _same_values(mine, theirs):
+                    i = int(np.flatnonzero(_differs(mine, theirs))[0])
                     raise InputMismatchError(
                         f"{name} coordinate {d!r} differs from {ref_name}'s (at index {i}: "
                         f"{mine[i]} vs {theirs[i]}): {_SAME_GRID}"
                     )
+
+
+def _differs(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Where two coordinate arrays of one length differ (NaN equal to NaN)."""
+    out = a != b
+    try:
+        out &= ~(np.isnan(a) & np.isnan(b))
+    except TypeError:  # strings, objects: no NaN
+        pass
+    return out
+
+
+def _same_values(a: np.ndarray, b: np.ndarray) -> bool:
+    """Identical coordinate values (NaN equal to NaN where the dtype has NaN)."""
+    return a.shape == b.shape and not _differs(a, b).any()
 
 
 def as_units(x, expected: str, name: str):
