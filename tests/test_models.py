@@ -378,3 +378,123 @@ def test_numpy_kernel_can_be_forced(monkeypatch):
     monkeypatch.setenv("EUPHOTIC_KERNEL", "numpy")
     slow = vgpm(np.array([0.5]), np.array([40.0]), np.array([20.0]), np.array([12.0]))
     np.testing.assert_allclose(fast, slow, rtol=1e-12)
+
+
+# --------------------------------------------------------------------------------------
+# Python API: PAR units as the readers take them; inputs on different grids are refused
+# --------------------------------------------------------------------------------------
+
+# Worked by hand: McCree (1972), Agricultural Meteorology 10:443-453: about 4.57 umol photons
+# per joule of daylight PAR; a daily-mean flux of 1 W m-2 is then
+# 4.57e-6 mol J-1 x 86,400 s d-1 = 0.394848 mol photons m-2 d-1.
+W_M2_TO_MOL_M2_D = 0.394848
+# 1 umol m-2 s-1 as a daily mean = 1e-6 x 86,400 = 0.0864 mol m-2 d-1 (by hand).
+UMOL_S_TO_MOL_D = 0.0864
+
+
+def _field(values, dims=("lat", "lon"), units=None, **coords):
+    values = np.asarray(values, dtype=np.float64)
+    return xr.DataArray(values, dims=dims, coords=coords or None,
+                        attrs={"units": units} if units else {})
+
+
+@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+@pytest.mark.parametrize(
+    ("par_units", "per_mol_d"),
+    [("W m-2", W_M2_TO_MOL_M2_D), ("W/m^2", W_M2_TO_MOL_M2_D),
+     ("umol m-2 s-1", UMOL_S_TO_MOL_D), ("einstein m-2 d-1", 1.0), ("mol m-2 d-1", 1.0)],
+)
+def test_par_dataarray_in_any_reader_unit(model, par_units, per_mol_d):
+    # 40 mol m-2 d-1 given in another unit gives the hand-worked VGPM value (rel 1e-12: one
+    # multiplication by a factor pint works out in float64).
+    par = _field([[40.0 / per_mol_d]], units=par_units)
+    canonical = model(0.5, 40.0, 20.0, 12.0)
+    out = model(_field([[0.5]], units="mg m-3"), par, 20.0, 12.0)
+    assert float(out[0, 0]) == pytest.approx(float(canonical), rel=1e-12)
+    if model is vgpm:
+        assert float(out[0, 0]) == pytest.approx(VGPM_HAND, rel=1e-6)
+
+
+def test_par_conversion_is_the_readers_conversion():
+    # One shared function (units.par_factors) for the command line and the Python API.
+    from euphotic import units
+
+    factor, kind = units.par_factors("W m-2")
+    assert (factor, kind) == (pytest.approx(W_M2_TO_MOL_M2_D, rel=1e-12), "energy")
+    par = _field([[100.0, 250.0]], units="W m-2")
+    np.testing.assert_array_equal(
+        vgpm(0.5, par, 20.0, 12.0).values, vgpm(0.5, par.values * factor, 20.0, 12.0)
+    )
+
+
+def test_par_pint_quantity_in_w_m2():
+    from euphotic.units import ureg
+
+    par = ureg.Quantity(np.array([40.0 / W_M2_TO_MOL_M2_D]), "W m-2")
+    assert vgpm(0.5, par, 20.0, 12.0)[0] == pytest.approx(VGPM_HAND, rel=1e-6)
+
+
+def test_par_without_time_is_refused():
+    with pytest.raises(ValueError, match=r"^par: PAR unit 'mol m-2' has no time"):
+        vgpm(0.5, _field([[40.0]], units="mol m-2"), 20.0, 12.0)
+
+
+def test_different_dimension_names_are_refused():
+    """chl on (time, latitude, longitude), SST on (time, lat, lon): xarray would broadcast
+    them to the outer product of both grids (5 dims); the models refuse, naming both."""
+    from euphotic.errors import EuphoticError
+    from euphotic.models import InputMismatchError
+
+    t = np.array(["2025-04-01"], dtype="datetime64[ns]")
+    lat, lon = np.array([10.0, 11.0]), np.array([20.0, 21.0, 22.0])
+    chl = _field(np.full((1, 2, 3), 0.5), ("time", "latitude", "longitude"), "mg m-3",
+                 time=t, latitude=lat, longitude=lon)
+    par = chl.copy(data=np.full((1, 2, 3), 40.0)).assign_attrs(units="mol m-2 d-1")
+    sst = _field(np.full((1, 2, 3), 20.0), ("time", "lat", "lon"), "degC", time=t, lat=lat,
+                 lon=lon)
+    with pytest.raises(InputMismatchError) as err:
+        vgpm(chl, par, sst, 12.0)
+    assert str(err.value) == (
+        "sst has dims ('time', 'lat', 'lon') but chl has ('time', 'latitude', 'longitude'): "
+        "give all inputs the same dimension names and grid"
+    )
+    assert isinstance(err.value, ValueError) and isinstance(err.value, EuphoticError)
+    # a day length on (lat,) beside inputs on latitude/longitude is refused the same way
+    dl = _field([12.0, 12.5], ("lat",), "h", lat=lat)
+    with pytest.raises(InputMismatchError, match=r"^day_length has dims \('lat',\) but chl"):
+        eppley_vgpm(chl, par, chl.copy(data=np.full((1, 2, 3), 20.0)), dl)
+
+
+def test_different_grids_are_refused():
+    from euphotic.models import InputMismatchError
+
+    lat, lon = np.array([10.0, 11.0]), np.array([20.0, 21.0, 22.0])
+    chl = _field(np.full((2, 3), 0.5), units="mg m-3", lat=lat, lon=lon)
+    sst = _field(np.full((2, 3), 20.0), units="degC", lat=lat + 0.5, lon=lon)
+    with pytest.raises(InputMismatchError) as err:
+        vgpm(chl, 40.0, sst, 12.0)
+    assert str(err.value) == (
+        "sst coordinate 'lat' differs from chl's (at index 0: 10.5 vs 10.0): give all inputs "
+        "the same dimension names and grid"
+    )
+    par = _field(np.full((2, 2), 40.0), units="mol m-2 d-1", lat=lat, lon=lon[:2])
+    with pytest.raises(InputMismatchError) as err:
+        vgpm(chl, par, 20.0, 12.0)
+    assert str(err.value) == (
+        "par has 2 values along 'lon' but chl has 3: give all inputs the same dimension "
+        "names and grid"
+    )
+
+
+def test_broadcasting_a_day_length_by_latitude_and_scalars_stays_allowed():
+    # every DataArray's dims a subset of the largest input's, same coordinates on shared dims
+    t = np.array(["2025-04-01", "2025-04-02"], dtype="datetime64[ns]")
+    lat, lon = np.array([10.0, 11.0]), np.array([20.0, 21.0, 22.0])
+    chl = _field(np.full((2, 2, 3), 0.5), ("time", "lat", "lon"), "mg m-3", time=t, lat=lat,
+                 lon=lon)
+    dl = _field([12.0, 6.0], ("lat",), "h", lat=lat)
+    sst_on_lon_lat = _field(np.full((3, 2), 20.0), ("lon", "lat"), "degC", lon=lon, lat=lat)
+    out = vgpm(chl, 40.0, sst_on_lon_lat, dl)
+    assert out.dims == ("time", "lat", "lon")
+    np.testing.assert_allclose(out.values[:, 0, :], VGPM_HAND, rtol=1e-6)
+    np.testing.assert_allclose(out.values[:, 1, :], VGPM_HAND / 2, rtol=1e-6)

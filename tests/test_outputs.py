@@ -27,7 +27,6 @@ from euphotic.errors import ConfigError
 from euphotic.outputs import (
     CAUTION,
     METADATA_DEFAULTS,
-    NOT_SPECIFIED,
     TOTALS_COLUMNS,
     TOTALS_SPEC,
     month_dataset,

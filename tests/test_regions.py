@@ -7,6 +7,7 @@ a general-purpose geometry library) on the same cell centres.
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -170,18 +171,36 @@ def test_totals_arithmetic_hand_worked():
     assert corner["ocean_area_km2"] == pytest.approx(1.0)
 
 
-def test_region_bits_many_overlapping():
+def test_region_bits_any_number_overlapping():
+    # 100 random overlapping masks (more than the 64 bits of one integer), all packed as bits
     rng = np.random.default_rng(3)
-    masks = [rng.random((5, 7)) > 0.5 for _ in range(40)]
-    bits = aggregate.region_bits(masks)
-    assert bits.dtype == np.uint64
+    masks = [rng.random((5, 7)) > 0.5 for _ in range(100)]
+    bits = aggregate.region_bits(masks).planes
+    assert bits.dtype == np.uint16 and bits.shape == (7, 5, 7)  # ceil(100 / 16) planes
     for r, m in enumerate(masks):
-        np.testing.assert_array_equal(((bits >> np.uint64(r)) & np.uint64(1)).astype(bool), m)
+        plane = bits[r // 16]
+        np.testing.assert_array_equal(((plane >> np.uint16(r % 16)) & 1).astype(bool), m)
+    # the same planes read back through the Mapping, bits-only layout
+    unpacked = aggregate.RegionMasks([str(r) for r in range(100)], bits)
+    assert unpacked.bit_regions == tuple(range(100))
+    for r, m in enumerate(masks):
+        np.testing.assert_array_equal(unpacked[str(r)], m)
+
+
+def test_region_sums_refuses_names_with_a_bare_array():
+    # label planes read as bits would give wrong sums silently: refused instead
+    npp = xr.DataArray(np.ones((2, 2)), dims=("lat", "lon"))
+    maps = aggregate.MonthlyMaps(month=np.datetime64("2024-04"), model="vgpm", npp=npp,
+                                 coverage=npp, n_days=30)
+    masks = aggregate.RegionMasks.build([("a", np.eye(2, dtype=bool))])
+    ocean = xr.DataArray(np.ones((2, 2), bool), dims=("lat", "lon"))
+    with pytest.raises(TypeError, match="give the RegionMasks"):
+        aggregate.region_sums(maps, ["a"], masks.planes, ocean, np.ones(2))
+    z = aggregate.region_sums(maps, ["a"], masks, ocean, np.ones(2))
+    np.testing.assert_array_equal(z.sums.compute(), [[2.0, 2.0, 2.0, 2.0]])
 
 
 def test_demo_config_loads_all_region_kinds():
-    from pathlib import Path
-
     cfg = load_config(Path(__file__).resolve().parents[1] / "configs" / "demo.toml")
     assert [r.name for r in cfg.regions] == [
         "Skerrow Shelf",
@@ -189,3 +208,295 @@ def test_demo_config_loads_all_region_kinds():
         "Tollan Bank",
         "Whole Maren Sea",
     ]
+
+
+# --------------------------------------------------------------------------------------
+# Many regions: label layers + packed bits, checked against plain boolean masks
+# --------------------------------------------------------------------------------------
+
+
+def _random_polygons(rng, n, lon0, lat0, size):
+    """Convex hulls of 6 random points in boxes of ``size`` degrees: valid, overlapping."""
+    from shapely.geometry import MultiPoint
+
+    out = []
+    for _ in range(n):
+        x = lon0 + rng.uniform(0, 40)
+        y = lat0 + rng.uniform(0, 30)
+        pts = np.column_stack([x + rng.uniform(0, size, 6), y + rng.uniform(0, size, 6)])
+        out.append(MultiPoint(pts).convex_hull)
+    return out
+
+
+def _reference_sums(masks, npp, cov, ocean, area_rows):
+    """Per-region sums with one plain numpy boolean mask per region (independent of the
+    label/bit machinery): ocean area, observed area, area integral, coverage area."""
+    w = np.broadcast_to(area_rows[:, None], npp.shape) * ocean
+    obs = np.isfinite(npp)
+    out = []
+    for m in masks:
+        wm = w * m
+        out.append([wm.sum(), (wm * obs).sum(), (wm * np.where(obs, npp, 0)).sum(),
+                    (wm * np.nan_to_num(cov)).sum()])
+    return np.array(out)
+
+
+@pytest.fixture(scope="module")
+def overlapping_case():
+    """300 random overlapping polygons plus one box over them all on a 0.5-degree grid
+    (lon -70..0, lat -30..30), their shapely ``contains_xy`` masks, random fields, and the
+    per-region sums from plain numpy boolean masks."""
+    rng = np.random.default_rng(20)
+    lat = np.arange(-29.75, 30, 0.5)
+    lon = np.arange(-69.75, 0, 0.5)
+    polys = _random_polygons(rng, 300, -60.0, -20.0, 6.0) + [box(-62, -22, -10, 20)]
+    names = [f"R{i}" for i in range(len(polys))]
+    expect_masks = [_shapely_mask(g, lat, lon) for g in polys]
+    npp = rng.uniform(0, 2000, (lat.size, lon.size))
+    npp[rng.random(npp.shape) < 0.3] = np.nan
+    cov = np.where(np.isfinite(npp), rng.uniform(0, 1, npp.shape), np.nan)
+    ocean = rng.random(npp.shape) < 0.8
+    area_rows = np.cos(np.deg2rad(lat)) * 3.0e9
+    expected = _reference_sums(expect_masks, npp, cov, ocean, area_rows)
+    return lat, lon, polys, names, expect_masks, (npp, cov, ocean, area_rows), expected
+
+
+@pytest.mark.parametrize("max_layers", [0, 1, aggregate.MAX_LABEL_LAYERS, 50])
+@pytest.mark.parametrize("backend", ["numpy", "dask"])
+def test_many_overlapping_polygon_sums_match_plain_masks(overlapping_case, max_layers, backend):
+    """Masks equal shapely ``contains_xy`` on the cell centres, and the regional sums equal
+    per-region boolean-mask sums (float64; rel 1e-12 for summation order only). The layout
+    (labels only, labels + bits, bits only) must not change a number."""
+    import dask.array as da
+
+    lat, lon, polys, names, expect_masks, fields, expected = overlapping_case
+    npp, cov, ocean, area_rows = fields
+    masks = aggregate.RegionMasks.build(
+        list(zip(names, [polygon_mask(g, lat, lon) for g in polys], strict=True)),
+        max_label_layers=max_layers,
+    )
+    assert masks.n_label_layers <= max_layers
+    if max_layers == 0:
+        assert masks.bit_regions == tuple(range(len(polys)))
+    elif max_layers == 50:
+        assert masks.bit_regions == ()  # random overlaps fit in a few layers
+    else:  # labels and bits both in use
+        assert masks.n_label_layers == max_layers and len(masks.bit_regions) > 16
+    for n, m in zip(names, expect_masks, strict=True):
+        np.testing.assert_array_equal(masks[n], m)
+
+    def wrap(a):
+        return xr.DataArray(da.from_array(a, chunks=(45, 50)) if backend == "dask" else a,
+                            dims=("lat", "lon"))
+
+    maps = aggregate.MonthlyMaps(month=np.datetime64("2025-04"), model="vgpm", npp=wrap(npp),
+                                 coverage=wrap(cov), n_days=30)
+    planes = masks.planes if backend == "numpy" else da.from_array(masks.planes,
+                                                                    chunks=(-1, 30, 70))
+    z = aggregate.region_sums(maps, masks, planes, wrap(ocean), area_rows)
+    got = np.asarray(z.sums.compute())
+    assert z.regions == names
+    np.testing.assert_allclose(got, expected, rtol=1e-12, atol=0)
+
+
+def test_non_overlapping_regions_are_one_label_layer():
+    """1,000 small non-overlapping boxes in a 40 x 25 grid plus a box over all of them: one
+    layer of labels for the 1,000 and a second for the big box; no bits. Memory: two uint16
+    planes, 4 bytes a cell (the old one-integer packing stopped at 64 regions)."""
+    lat, lon = _centres(0.25)
+    regions = [
+        {"name": f"cell {i}-{j}", "box": [-50 + i, -10 + j, -49 + i, -9 + j]}
+        for i in range(40) for j in range(25)
+    ] + [{"name": "all", "box": [-50, -10, -10, 15]}]
+    from euphotic.regions import region_masks
+
+    masks = region_masks(regions_from_config(regions, Path("."), "t"), lat, lon)
+    assert len(masks) == 1001
+    assert masks.n_label_layers == 2 and masks.bit_regions == ()
+    assert masks.planes.dtype == np.uint16
+    assert masks.nbytes == 2 * 2 * lat.size * lon.size
+    # each 1-degree box holds 4 x 4 centres at 0.25 degrees; the big box 160 x 100
+    assert masks["cell 0-0"].sum() == 16 and masks["cell 39-24"].sum() == 16
+    assert masks["all"].sum() == 160 * 100
+    la, lo = np.meshgrid(lat, lon, indexing="ij")
+    np.testing.assert_array_equal(masks["cell 3-7"], (lo > -47) & (lo < -46) & (la > -3)
+                                  & (la < -2))
+
+
+def test_more_than_64_regions_load(tmp_path):
+    """The config once stopped at 64 regions; 300 load and keep their order."""
+    body = "[inputs.chl]\nfiles = 'x.nc'\n[inputs.par]\nfiles = 'x.nc'\n[inputs.sst]\nfiles = 'x.nc'\n"
+    body += "".join(f"[[regions]]\nname = 'r{i}'\nbox = [{i % 180}, 0, {i % 180 + 1}, 1]\n"
+                    for i in range(300))
+    (tmp_path / "c.toml").write_text(body)
+    cfg = load_config(tmp_path / "c.toml")
+    assert [r.name for r in cfg.regions] == [f"r{i}" for i in range(300)]
+
+
+def test_run_with_many_regions_parts_add_up_to_whole(tmp_path):
+    """A run with 101 regions: a 10 x 10 partition of a box and the box itself. The parts'
+    totals add up to the whole's (additivity of area integrals, rel 1e-12 for summation
+    order), and every part has its own row."""
+    import csv
+
+    from euphotic.pipeline import run
+
+    from ._grids import CHL_STD, PAR_STD, SST_STD, grid, write_field
+
+    lat, lon = grid(0.0, 10.0, 0.0, 10.0, 0.25)
+    rng = np.random.default_rng(7)
+    shape = (lat.size, lon.size)
+    chl = np.exp(rng.normal(-1, 1, shape))
+    chl[rng.random(shape) < 0.2] = np.nan
+    write_field(tmp_path / "chl" / "c.nc", "chl", CHL_STD, "mg m-3", chl, lat, lon,
+                start="2024-03-01", end="2024-03-08")
+    write_field(tmp_path / "par" / "p.nc", "par", PAR_STD, "einstein m-2 day-1",
+                rng.uniform(5, 50, shape), lat, lon, start="2024-03-01", end="2024-03-08")
+    write_field(tmp_path / "sst" / "s.nc", "sst", SST_STD, "degC", rng.uniform(0, 25, shape),
+                lat, lon, start="2024-03-01", end="2024-03-08")
+    parts = "".join(f"[[regions]]\nname = 'p{i}{j}'\nbox = [{i}, {j}, {i + 1}, {j + 1}]\n"
+                    for i in range(10) for j in range(10))
+    (tmp_path / "run.toml").write_text(f"""
+[run]
+models = ["vgpm"]
+output_dir = "out"
+figures = false
+[inputs.chl]
+files = "chl/*.nc"
+[inputs.par]
+files = "par/*.nc"
+[inputs.sst]
+files = "sst/*.nc"
+[ocean]
+source = "temperature"
+[[regions]]
+name = "whole"
+box = [0, 0, 10, 10]
+{parts}""")
+    result = run(load_config(tmp_path / "run.toml"), progress=False)
+    rows = {r["region"]: r for r in result.rows}  # full precision (the CSV rounds)
+    assert len(rows) == 101
+    with open(tmp_path / "out" / "regional_totals.csv") as fh:
+        assert len(list(csv.DictReader(fh))) == 101
+    whole = rows.pop("whole")
+    for key in ("total_TgC", "ocean_area_km2", "observed_area_km2"):
+        assert sum(float(r[key]) for r in rows.values()) == pytest.approx(float(whole[key]),
+                                                                          rel=1e-12)
+    assert float(whole["total_TgC"]) > 0
+
+
+# --------------------------------------------------------------------------------------
+# Invalid polygons, swapped boxes, feature names
+# --------------------------------------------------------------------------------------
+
+
+def _feature(coords, **props):
+    return {"type": "Feature", "properties": props,
+            "geometry": {"type": "Polygon", "coordinates": [coords]}}
+
+
+_SQUARE = [[0, 0], [4, 0], [4, 4], [0, 4], [0, 0]]
+_BOW_TIE = [[10, 10], [20, 20], [20, 10], [10, 20], [10, 10]]
+
+
+def _geojson(tmp_path, feats, name="r.geojson"):
+    (tmp_path / name).write_text(json.dumps({"type": "FeatureCollection", "features": feats}))
+    return tmp_path / name
+
+
+def test_bow_tie_polygon_is_an_error_naming_file_and_feature(tmp_path):
+    """A self-intersecting ring (a "bow-tie"): shapely's is_valid is False and explain_validity
+    says "Self-intersection[15 15]" (the crossing of the two diagonals, worked by hand). The
+    error names the file, the feature's index and name, and shapely's reason; it is not
+    repaired."""
+    from shapely.validation import explain_validity
+
+    from euphotic.errors import InputFileError
+
+    path = _geojson(tmp_path, [_feature(_SQUARE, name="Fine"),
+                               _feature(_BOW_TIE, name="Knot Reach")])
+    assert explain_validity(Polygon(_BOW_TIE)) == "Self-intersection[15 15]"
+    for item in ({"geojson": "r.geojson", "name_property": "name"},
+                 {"geojson": "r.geojson", "name": "all"}):
+        with pytest.raises(InputFileError) as err:
+            regions_from_config([item], tmp_path, "cfg.toml")
+        assert str(err.value) == (
+            f"{path.resolve()}: feature 1 ('Knot Reach') is not a valid polygon: "
+            "Self-intersection[15 15] (fix the polygon in the file, e.g. a self-intersecting "
+            "ring)"
+        )
+
+
+def test_bow_tie_through_the_command_line(tmp_path):
+    """Exit code 1, one line naming the file and the feature, no output folder content."""
+    from click.testing import CliRunner
+
+    from euphotic.cli import main
+
+    from ._grids import box_run_config
+
+    _geojson(tmp_path, [_feature(_BOW_TIE)], "bad.geojson")
+    cfg = box_run_config(tmp_path / "run.toml", "Box", [0.0, 0.0, 4.0, 4.0])
+    cfg.write_text(cfg.read_text() + '[[regions]]\nname = "Bad"\ngeojson = "bad.geojson"\n')
+    res = CliRunner().invoke(main, ["run", str(cfg), "-q"])
+    assert res.exit_code == 1
+    lines = [ln for ln in res.stderr.splitlines() if ln.strip()]
+    assert lines == [f"euphotic: error: {(tmp_path / 'bad.geojson').resolve()}: feature 0 is not a "
+                     "valid polygon: Self-intersection[15 15] (fix the polygon in the file, e.g. "
+                     "a self-intersecting ring)"]
+    assert not (tmp_path / "out").exists()
+
+
+def test_name_property_missing_or_repeated_names_the_feature(tmp_path):
+    from euphotic.errors import InputFileError
+
+    path = _geojson(tmp_path, [_feature(_SQUARE, label="A"), _feature(_SQUARE, other="x")])
+    with pytest.raises(InputFileError) as err:
+        regions_from_config([{"geojson": "r.geojson", "name_property": "label"}], tmp_path, "c")
+    assert str(err.value) == (f"{path.resolve()}: feature 1 has no property 'label' "
+                              "(`name_property` names every feature)")
+    path = _geojson(tmp_path, [_feature(_SQUARE, label="A"), _feature(_SQUARE, label="B"),
+                               _feature(_SQUARE, label="A")])
+    with pytest.raises(InputFileError) as err:
+        regions_from_config([{"geojson": "r.geojson", "name_property": "label"}], tmp_path, "c")
+    assert str(err.value) == (f"{path.resolve()}: feature 2 has label 'A', already used by "
+                              "feature 0: region names must be unique")
+
+
+def test_box_spanning_most_of_the_globe_warns_swapped(tmp_path, caplog):
+    """[10, 0, -10, 10] crosses the antimeridian and spans 340 degrees: a warning naming the
+    region. [170, 0, -170, 10] spans 20 degrees across the antimeridian: no warning."""
+    import logging
+
+    with caplog.at_level(logging.WARNING, logger="euphotic"):
+        regions_from_config([{"name": "Dateline", "box": [170, 0, -170, 10]}], tmp_path, "c")
+        assert caplog.records == []
+        (r,) = regions_from_config([{"name": "Backwards", "box": [10, 0, -10, 10]}],
+                                   tmp_path, "c")
+    assert [rec.getMessage() for rec in caplog.records] == [
+        "c: [[regions]] #1: box of region 'Backwards' has west 10 > east -10, so it crosses "
+        "the antimeridian and spans 340 degrees of longitude: probably west and east swapped"
+    ]
+    # the box is still taken as written (a warning, not an error)
+    lat, lon = _centres(1.0)
+    assert r.mask(lat, lon).sum() == 10 * 340
+
+
+@pytest.mark.slow
+def test_many_regions_benchmark_runs_tiny():
+    """The benchmark script runs end to end on a 1-degree grid (figures only, no timing
+    assertions); its previous-loop comparison reports the same sums."""
+    import subprocess
+    import sys
+
+    root = Path(__file__).resolve().parents[1]
+    res = subprocess.run(
+        [sys.executable, str(root / "benchmarks" / "many_regions.py"), "--res", "1",
+         "--repeats", "1", "--chunk", "60"],
+        capture_output=True, text=True, timeout=300, check=False,
+    )
+    assert res.returncode == 0, res.stdout + res.stderr
+    assert "1005 regions (1000 small non-overlapping + 5 large overlapping boxes)" in res.stdout
+    for phrase in ("mask build:", "masks held:", "regional sums per month, 1005 regions:",
+                   "previous per-region loop:", "(same sums: True)"):
+        assert phrase in res.stdout

@@ -12,7 +12,7 @@ estimate; ``coverage`` is the fraction of the month's days with one.
 from __future__ import annotations
 
 import logging
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Iterable, Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -214,48 +214,170 @@ def _finish_month(sums: np.ndarray, ocean: np.ndarray, dark_rows: np.ndarray, n_
 SUM_FIELDS = ("ocean_area_m2", "observed_area_m2", "integral_mg_d", "coverage_area_m2")
 
 
-def region_bits(masks: list[np.ndarray]) -> np.ndarray:
-    """Pack up to 64 boolean (lat, lon) masks into one integer array (bit r = region r).
+#: Most label layers a :class:`RegionMasks` holds before further overlapping regions are
+#: packed as bits instead (a layer costs 2 bytes a cell, a bit plane 2 bytes per 16 regions).
+MAX_LABEL_LAYERS = 4
 
-    One small array stands for every region, overlapping ones included, so a single pass over
-    the map computes all regional sums.
+
+@dataclass(frozen=True)
+class MaskWindow:
+    """A region's boolean mask inside the rows and columns of the grid it can touch.
+
+    ``rows`` and ``cols`` are slices of the (lat, lon) grid; ``mask`` has their shape.
     """
-    return RegionMasks.build((str(r), m) for r, m in enumerate(masks)).bits
+
+    rows: slice
+    cols: slice
+    mask: np.ndarray
+
+    @classmethod
+    def of(cls, mask: np.ndarray) -> MaskWindow:
+        """The smallest window holding every True cell of a full (lat, lon) mask."""
+        mask = np.asarray(mask, dtype=bool)
+        r = np.flatnonzero(mask.any(axis=1))
+        c = np.flatnonzero(mask.any(axis=0))
+        if r.size == 0:
+            return cls(slice(0, 0), slice(0, 0), np.zeros((0, 0), bool))
+        rows, cols = slice(int(r[0]), int(r[-1]) + 1), slice(int(c[0]), int(c[-1]) + 1)
+        return cls(rows, cols, mask[rows, cols])
+
+
+def _label_dtype(n_regions: int | None):
+    """uint16 holds labels 1..65535 (0 is "no region"); uint32 beyond (or when unknown)."""
+    return np.uint16 if n_regions is not None and n_regions < 65535 else np.uint32
 
 
 class RegionMasks(Mapping):
-    """Region name -> boolean (lat, lon) mask, stored packed in one bit array.
+    """Region name -> boolean (lat, lon) mask, stored as a few integer planes.
 
-    Each mask is unpacked only when asked for, so a run with many regions holds one small
-    integer array instead of one boolean grid per region.
+    ``planes`` (shape (n_planes, lat, lon)) holds first ``n_label_layers`` label layers: each
+    cell holds ``r + 1`` for the region ``r`` it belongs to in that layer, 0 for none; regions
+    in one layer never share a cell. Each region goes into the first layer where it overlaps no
+    region already there, so a set of non-overlapping regions (provinces, zones) is one layer
+    however many regions it has, and a "whole sea" box over them adds a second. A region that
+    would need more than :data:`MAX_LABEL_LAYERS` layers is packed instead as one bit of the
+    remaining planes (``bit_regions[j]`` is bit ``j % B`` of bit plane ``j // B``, ``B`` the
+    bits of the dtype). The dtype is uint16 below 65,535 regions, else uint32.
+
+    Memory: 2 bytes a cell per layer (4 with uint32), plus 2 bytes a cell per 16 packed
+    regions. Masks are unpacked only when asked for (figures).
     """
 
-    def __init__(self, names: list[str], bits: np.ndarray | None):
+    def __init__(
+        self,
+        names: list[str],
+        planes: np.ndarray | None,
+        *,
+        n_label_layers: int = 0,
+        bit_regions: tuple[int, ...] = (),
+        windows: list[tuple[slice, slice]] | None = None,
+    ):
         self.names = list(names)
-        self.bits = bits
+        # (rows, cols) slices holding each region's cells: unpacking reads only those
+        self.windows = windows
+        if planes is not None and np.ndim(planes) == 2:  # one plane
+            planes = np.asarray(planes)[None]
+        if planes is not None and self.names and not n_label_layers and not bit_regions:
+            bit_regions = range(len(self.names))  # bits only, region r = bit r
+        self.planes = planes
+        self.n_label_layers = int(n_label_layers)
+        self.bit_regions = tuple(int(r) for r in bit_regions)
+        self._index = {n: i for i, n in enumerate(self.names)}
+        self._bit_of = {r: j for j, r in enumerate(self.bit_regions)}
+
+    @property
+    def bits(self) -> np.ndarray | None:
+        """The planes array (name kept for callers of the single packed bit array)."""
+        return self.planes
+
+    @property
+    def nbytes(self) -> int:
+        """Bytes held by the planes."""
+        return 0 if self.planes is None else int(self.planes.nbytes)
 
     @classmethod
-    def build(cls, named_masks) -> RegionMasks:
-        """Pack masks given as ``(name, mask)`` pairs, one at a time (an iterator is fine)."""
-        names, bits = [], None
+    def build(
+        cls,
+        named_masks: Iterable[tuple[str, np.ndarray | MaskWindow]],
+        *,
+        shape: tuple[int, int] | None = None,
+        n_regions: int | None = None,
+        max_label_layers: int = MAX_LABEL_LAYERS,
+    ) -> RegionMasks:
+        """Store masks given as ``(name, mask)`` pairs, one at a time (an iterator is fine).
+
+        Parameters
+        ----------
+        named_masks : iterable of (str, mask)
+            ``mask`` is a full boolean (lat, lon) array or a :class:`MaskWindow`.
+        shape : (int, int), optional
+            Grid shape; needed when the first mask is a window, else taken from it.
+        n_regions : int, optional
+            Number of regions, to choose the dtype up front (default: ``len(named_masks)``
+            when it has one).
+        max_label_layers : int
+            Label layers before further overlapping regions are packed as bits (0: all bits).
+        """
+        if n_regions is None and hasattr(named_masks, "__len__"):
+            n_regions = len(named_masks)
+        dtype = np.dtype(_label_dtype(n_regions))
+        nbits = dtype.itemsize * 8
+        names: list[str] = []
+        layers: list[np.ndarray] = []
+        bit_planes: list[np.ndarray] = []
+        bit_regions: list[int] = []
+        windows: list[tuple[slice, slice]] = []
         for name, mask in named_masks:
             r = len(names)
-            if r == 64:
-                raise ValueError("at most 64 regions per bit array")
-            # the smallest integer type that holds every region's bit, widened as regions come
-            dtype = np.uint8 if r < 8 else np.uint16 if r < 16 else np.uint32 if r < 32 else np.uint64
-            if bits is None:
-                bits = np.zeros(np.shape(mask), dtype=dtype)
-            elif bits.dtype != dtype:
-                bits = bits.astype(dtype)
-            ones = np.ascontiguousarray(mask, dtype=bool).view(np.uint8).astype(dtype, copy=False)
-            bits |= ones << dtype(r)
+            if r + 1 > np.iinfo(dtype).max:
+                raise ValueError(f"more than {np.iinfo(dtype).max} regions: pass n_regions")
+            win = mask if isinstance(mask, MaskWindow) else MaskWindow.of(mask)
+            if shape is None:
+                shape = np.shape(mask)
+                if isinstance(mask, MaskWindow) or len(shape) != 2:
+                    raise ValueError("give the grid `shape` when masks come as windows")
             names.append(name)
-        return cls(names, bits)
+            windows.append((win.rows, win.cols))
+            sub = win.mask
+            placed = False
+            for layer in layers:
+                view = layer[win.rows, win.cols]
+                if not view[sub].any():
+                    view[sub] = r + 1
+                    placed = True
+                    break
+            if placed:
+                continue
+            if len(layers) < max_label_layers and not bit_planes:
+                layer = np.zeros(shape, dtype=dtype)
+                layer[win.rows, win.cols][sub] = r + 1
+                layers.append(layer)
+                continue
+            j = len(bit_regions)
+            if j % nbits == 0:
+                bit_planes.append(np.zeros(shape, dtype=dtype))
+            bit_planes[-1][win.rows, win.cols] |= sub.astype(dtype) << dtype.type(j % nbits)
+            bit_regions.append(r)
+        n_layers = len(layers)
+        planes = np.stack(layers + bit_planes) if (layers or bit_planes) else None
+        del layers, bit_planes
+        return cls(names, planes, n_label_layers=n_layers, bit_regions=tuple(bit_regions),
+                   windows=windows)
 
     def __getitem__(self, name: str) -> np.ndarray:
-        r = self.names.index(name)
-        return ((self.bits >> self.bits.dtype.type(r)) & 1).astype(bool)
+        r = self._index[name]
+        planes = self.planes
+        out = np.zeros(planes.shape[1:], dtype=bool)
+        win = self.windows[r] if self.windows is not None else (slice(None), slice(None))
+        if r in self._bit_of:
+            j = self._bit_of[r]
+            nbits = planes.dtype.itemsize * 8
+            plane = planes[self.n_label_layers + j // nbits][win]
+            out[win] = ((plane >> plane.dtype.type(j % nbits)) & 1).astype(bool)
+            return out
+        for k in range(self.n_label_layers):
+            out[win] |= planes[k][win] == r + 1
+        return out
 
     def __iter__(self):
         return iter(self.names)
@@ -264,19 +386,44 @@ class RegionMasks(Mapping):
         return len(self.names)
 
 
-def _block_sums(npp, cov, ocean, bits, area_rows, n_regions):
-    """Per-block partial sums, shape (1, 1, n_regions, 4) (see :data:`SUM_FIELDS`)."""
+def region_bits(masks: list[np.ndarray]) -> RegionMasks:
+    """Boolean (lat, lon) masks stored as bits only (bit r = region r), any number of them.
+
+    For small sets and tests; :func:`euphotic.regions.region_masks` builds the compact form
+    (label layers first) for a run. Pass the result as ``bits`` to :func:`region_sums`.
+    """
+    return RegionMasks.build([(str(r), m) for r, m in enumerate(masks)], max_label_layers=0)
+
+
+def _block_sums(npp, cov, ocean, area_rows, *planes, n_regions, n_label_layers, bit_regions):
+    """Per-block partial sums, shape (1, 1, n_regions, 4) (see :data:`SUM_FIELDS`).
+
+    One pass over the block per label layer (``np.bincount`` on the labels, weighted by each
+    field) gives every region of that layer at once; regions packed as bits are summed one by
+    one (only those that overflow the label layers).
+    """
     w = np.broadcast_to(area_rows, npp.shape) * np.asarray(ocean, bool)
     observed = np.isfinite(npp)
-    rate = np.where(observed, npp, 0.0)
-    cv = np.where(np.isfinite(cov), cov, 0.0)
+    fields = (
+        w,
+        w * observed,
+        w * np.where(observed, npp, 0.0),
+        w * np.where(np.isfinite(cov), cov, 0.0),
+    )
     out = np.zeros((1, 1, n_regions, len(SUM_FIELDS)))
-    for r in range(n_regions):
-        wr = np.where((bits >> bits.dtype.type(r)) & 1, w, 0.0)
-        out[0, 0, r, 0] = wr.sum()
-        out[0, 0, r, 1] = (wr * observed).sum()
-        out[0, 0, r, 2] = (wr * rate).sum()
-        out[0, 0, r, 3] = (wr * cv).sum()
+    for k in range(n_label_layers):
+        labels = np.asarray(planes[k]).ravel().astype(np.intp)  # once, not in each bincount
+        for f, values in enumerate(fields):
+            out[0, 0, :, f] += np.bincount(labels, weights=values.ravel(),
+                                           minlength=n_regions + 1)[1:]
+    if bit_regions:
+        bit_planes = [np.asarray(p) for p in planes[n_label_layers:]]
+        nbits = bit_planes[0].dtype.itemsize * 8
+        flat = np.stack([v.ravel() for v in fields], axis=1)  # (cells, 4)
+        for j, r in enumerate(bit_regions):
+            plane = bit_planes[j // nbits]
+            inside = ((plane >> plane.dtype.type(j % nbits)) & 1).astype(bool).ravel()
+            out[0, 0, r, :] = flat[inside].sum(axis=0)
     return out
 
 
@@ -293,8 +440,8 @@ class RegionSumsLazy:
 
 def region_sums(
     maps: MonthlyMaps,
-    regions: list[str],
-    bits: np.ndarray,
+    regions: RegionMasks | list[str],
+    bits,
     ocean: xr.DataArray,
     area_rows_m2: np.ndarray,
 ) -> RegionSumsLazy:
@@ -302,13 +449,35 @@ def region_sums(
 
     Parameters
     ----------
-    bits : integer (lat, lon) array (numpy or dask) from :func:`region_bits` (bit r set: in
-        ``regions[r]``)
+    regions : RegionMasks, or a list of region names
+        The regions, and the layout of the planes (label layers, bits).
+    bits : integer array (numpy or dask) (planes, lat, lon), or a RegionMasks
+        ``regions.planes``, or a dask array of them (e.g. scattered to a cluster's workers).
+        With a list of names, ``bits`` must be a :class:`RegionMasks` (e.g. from
+        :func:`region_bits`) so that the planes are read with their layout.
+
+    Raises
+    ------
+    TypeError
+        Names with a bare array: the layout of the planes would be unknown.
     ocean : boolean (lat, lon) DataArray (lazy when taken from temperature)
     area_rows_m2 : (lat,) area of one cell in each grid row, m2 (regular grid)
     """
     import dask.array as da
 
+    if isinstance(bits, RegionMasks):
+        layout, bits = bits, bits.planes
+    elif isinstance(regions, RegionMasks):
+        layout = regions
+    else:
+        raise TypeError(
+            "region_sums: give the RegionMasks (as `regions` or `bits`), not only names and an "
+            "array: the planes hold label layers and bits"
+        )
+    names = list(regions.names if isinstance(regions, RegionMasks) else regions)
+    if len(names) != len(layout):
+        raise ValueError(f"region_sums: {len(names)} names for {len(layout)} region masks")
+    n_layers, bit_regions = layout.n_label_layers, layout.bit_regions
     npp = maps.npp.data
     if not isinstance(npp, da.Array):
         npp = da.from_array(np.asarray(npp), chunks=-1)
@@ -319,23 +488,31 @@ def region_sums(
         if isinstance(ocean.data, da.Array)
         else da.from_array(np.asarray(ocean.values), chunks=chunks)
     )
-    b = bits.rechunk(chunks) if isinstance(bits, da.Array) else da.from_array(np.asarray(bits), chunks=chunks)
+    if bits.ndim == 2:
+        bits = bits[None]
+    b = (
+        bits.rechunk((-1,) + chunks)
+        if isinstance(bits, da.Array)
+        else da.from_array(np.asarray(bits), chunks=(-1,) + chunks)
+    )
     rows = da.from_array(np.asarray(area_rows_m2, np.float64)[:, None], chunks=(chunks[0], 1))
-    n = len(regions)
+    n = len(names)
     parts = da.map_blocks(
         _block_sums,
         npp,
         cov,
         oc,
-        b,
         rows,
-        n,
+        *[b[k] for k in range(b.shape[0])],
+        n_regions=n,
+        n_label_layers=n_layers,
+        bit_regions=tuple(bit_regions),
         new_axis=[2, 3],
         chunks=((1,) * len(chunks[0]), (1,) * len(chunks[1]), (n,), (len(SUM_FIELDS),)),
         dtype=np.float64,
     )
     return RegionSumsLazy(
-        regions=list(regions),
+        regions=list(names),
         month=maps.month,
         model=maps.model,
         n_days=maps.n_days,

@@ -375,8 +375,6 @@ def _load(path: Path, problems: list) -> RunConfig | None:
             regions = regions_from_config(regions_raw, base, str(path))
         except EuphoticError as exc:
             problems.append(exc)
-    if len(regions) > 64:
-        problems.append(ConfigError(path, f"{len(regions)} regions: at most 64 per run"))
 
     start, end = run.get("start"), run.get("end")
     if start is not None and end is not None and end < start:

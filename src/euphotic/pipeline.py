@@ -20,6 +20,7 @@ from euphotic.config import RunConfig
 from euphotic.errors import ConfigError, NoValidDataError
 from euphotic.geo import cell_area
 from euphotic.models import get_model, get_month_block
+from euphotic.regions import region_masks
 
 log = logging.getLogger("euphotic")
 
@@ -80,7 +81,7 @@ def prepare(cfg: RunConfig) -> Prepared:
     else:
         ocean_da = ocean.temperature_ocean_mask(sst)
     area_rows = cell_area(lat, lon[:2], earth=cfg.earth)[:, 0]  # regular grid: same along a row
-    masks = aggregate.RegionMasks.build((r.name, _region_mask(r, lat, lon)) for r in cfg.regions)
+    masks = region_masks(cfg.regions, lat, lon)
     return Prepared(
         chl=chl,
         par=par,
@@ -92,13 +93,6 @@ def prepare(cfg: RunConfig) -> Prepared:
         region_masks=masks,
         skipped_months=skipped,
     )
-
-
-def _region_mask(region, lat, lon) -> np.ndarray:
-    m = region.mask(lat, lon)
-    if not m.any():
-        log.warning("region %r contains no cell centre of the grid", region.name)
-    return m
 
 
 @contextlib.contextmanager
@@ -140,10 +134,11 @@ def _grid_masks(prep: Prepared, client):
     spatial = prep.chl.data.chunks[1:] if isinstance(prep.chl.data, da.Array) else "auto"
 
     def lazy(arr: np.ndarray) -> da.Array:
+        chunks = spatial if spatial == "auto" else (-1,) * (arr.ndim - 2) + tuple(spatial)
         if client is None:
-            return da.from_array(arr, chunks=spatial)
+            return da.from_array(arr, chunks=chunks)
         future = client.scatter(arr, broadcast=False)
-        return da.from_delayed(dask.delayed(future), shape=arr.shape, dtype=arr.dtype).rechunk(spatial)
+        return da.from_delayed(dask.delayed(future), shape=arr.shape, dtype=arr.dtype).rechunk(chunks)
 
     ocean_mask = prep.ocean
     if not isinstance(prep.ocean.data, da.Array):
@@ -288,7 +283,7 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_
         writes.append(outputs.write_lazy(ds, stage.file(name), cfg.output_format))
         counts.append(maps.npp.notnull().sum().data)
         lazies.append(
-            aggregate.region_sums(maps, names, bits, ocean_mask, prep.area_rows_m2)
+            aggregate.region_sums(maps, prep.region_masks, bits, ocean_mask, prep.area_rows_m2)
             if names else None
         )
     return writes, lazies, counts, files

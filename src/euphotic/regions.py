@@ -7,13 +7,22 @@ rasterio (shapely geometries, antimeridian-split MultiPolygons included).
 from __future__ import annotations
 
 import json
+import logging
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 import xarray as xr
 
+from euphotic.aggregate import MaskWindow, RegionMasks
 from euphotic.errors import ConfigError, InputFileError
+
+log = logging.getLogger("euphotic")
+
+#: A box whose west > east (crossing the antimeridian) spanning more than this many degrees of
+#: longitude draws a warning: more likely west and east swapped than a box around most of the
+#: globe (a judgement, not a standard).
+SWAPPED_BOX_SPAN_DEG = 180.0
 
 
 @dataclass
@@ -31,6 +40,33 @@ class Region:
         if self.geometry is not None:
             return polygon_mask(self.geometry, lat, lon, self.name)
         return netcdf_mask(self.mask_file, self.mask_variable, self.mask_values, lat, lon)
+
+    def window(self, lat: np.ndarray, lon: np.ndarray) -> MaskWindow:
+        """The region's mask within the grid rows and columns it can reach (same cells as
+        :meth:`mask`, without allocating a whole grid for a small polygon)."""
+        if self.geometry is not None:
+            win = _polygon_window(self.geometry, lat, lon)
+            if win is not None:
+                return win
+        return MaskWindow.of(self.mask(lat, lon))
+
+
+def region_masks(regions: list[Region], lat: np.ndarray, lon: np.ndarray) -> RegionMasks:
+    """Masks of every region on the (lat, lon) grid of cell centres, stored compactly.
+
+    Regions are burnt in one at a time, each only within its bounding window, into the label
+    layers of a :class:`euphotic.aggregate.RegionMasks`. A region with no cell centre on the
+    grid is kept (its totals are empty) with a warning.
+    """
+
+    def windows():
+        for r in regions:
+            win = r.window(lat, lon)
+            if not win.mask.any():
+                log.warning("region %r contains no cell centre of the grid", r.name)
+            yield r.name, win
+
+    return RegionMasks.build(windows(), shape=(len(lat), len(lon)), n_regions=len(regions))
 
 
 def box_geometry(west: float, south: float, east: float, north: float):
@@ -53,43 +89,60 @@ def polygon_mask(geometry, lat: np.ndarray, lon: np.ndarray, name: str = "region
     its centre is inside; copies shifted by 360 degrees cover grids in 0..360); on an irregular
     grid shapely tests every centre.
     """
-    from shapely.affinity import translate
-
     lat = np.asarray(lat, dtype=np.float64)
     lon = np.asarray(lon, dtype=np.float64)
-    shapes = [geometry]
-    lo, hi = float(lon.min()), float(lon.max())
-    if hi > 180.0:
-        shapes.append(translate(geometry, xoff=360.0))
-    if lo < -180.0:
-        shapes.append(translate(geometry, xoff=-360.0))
-    if len(lat) > 1 and len(lon) > 1 and _regular(lat) and _regular(lon):
-        from rasterio.features import rasterize
-        from rasterio.transform import Affine
-
-        dlat, dlon = (lat[-1] - lat[0]) / (len(lat) - 1), (lon[-1] - lon[0]) / (len(lon) - 1)
+    win = _polygon_window(geometry, lat, lon)
+    if win is not None:
         out = np.zeros((len(lat), len(lon)), dtype=bool)
-        # burn only the window of rows and columns the shapes' bounds can reach (+1 cell)
-        x0, y0, x1, y1 = np.array([g.bounds for g in shapes], dtype=np.float64).T
-        if not np.isfinite([x0, y0, x1, y1]).all():  # an empty geometry
-            return out
-        rows = np.sort(np.clip(((np.array([y0.min(), y1.max()]) - lat[0]) / dlat).round(), 0,
-                               len(lat) - 1).astype(int))
-        cols = np.sort(np.clip(((np.array([x0.min(), x1.max()]) - lon[0]) / dlon).round(), 0,
-                               len(lon) - 1).astype(int))
-        r0, r1 = max(rows[0] - 1, 0), min(rows[1] + 2, len(lat))
-        c0, c1 = max(cols[0] - 1, 0), min(cols[1] + 2, len(lon))
-        transform = Affine(dlon, 0.0, lon[c0] - dlon / 2, 0.0, dlat, lat[r0] - dlat / 2)
-        burnt = rasterize(
-            [(g, 1) for g in shapes], out_shape=(r1 - r0, c1 - c0), transform=transform,
-            fill=0, dtype="uint8", all_touched=False,
-        )
-        out[r0:r1, c0:c1] = burnt.astype(bool)
+        out[win.rows, win.cols] = win.mask
         return out
     import shapely
 
     glon, glat = np.meshgrid(lon, lat)
-    return np.logical_or.reduce([shapely.contains_xy(g, glon, glat) for g in shapes])
+    return np.logical_or.reduce(
+        [shapely.contains_xy(g, glon, glat) for g in _shifted_copies(geometry, lon)]
+    )
+
+
+def _shifted_copies(geometry, lon: np.ndarray) -> list:
+    """The geometry, plus copies shifted by +-360 degrees when the grid's longitudes need them."""
+    from shapely.affinity import translate
+
+    shapes = [geometry]
+    if float(np.max(lon)) > 180.0:
+        shapes.append(translate(geometry, xoff=360.0))
+    if float(np.min(lon)) < -180.0:
+        shapes.append(translate(geometry, xoff=-360.0))
+    return shapes
+
+
+def _polygon_window(geometry, lat, lon) -> MaskWindow | None:
+    """Cell-centre mask of a geometry on a regular grid, burnt by rasterio within the rows and
+    columns its bounds can reach (+1 cell); None on an irregular grid."""
+    lat = np.asarray(lat, dtype=np.float64)
+    lon = np.asarray(lon, dtype=np.float64)
+    if not (len(lat) > 1 and len(lon) > 1 and _regular(lat) and _regular(lon)):
+        return None
+    from rasterio.features import rasterize
+    from rasterio.transform import Affine
+
+    shapes = _shifted_copies(geometry, lon)
+    dlat, dlon = (lat[-1] - lat[0]) / (len(lat) - 1), (lon[-1] - lon[0]) / (len(lon) - 1)
+    x0, y0, x1, y1 = np.array([g.bounds for g in shapes], dtype=np.float64).T
+    if not np.isfinite([x0, y0, x1, y1]).all():  # an empty geometry
+        return MaskWindow(slice(0, 0), slice(0, 0), np.zeros((0, 0), bool))
+    rows = np.sort(np.clip(((np.array([y0.min(), y1.max()]) - lat[0]) / dlat).round(), 0,
+                           len(lat) - 1).astype(int))
+    cols = np.sort(np.clip(((np.array([x0.min(), x1.max()]) - lon[0]) / dlon).round(), 0,
+                           len(lon) - 1).astype(int))
+    r0, r1 = max(rows[0] - 1, 0), min(rows[1] + 2, len(lat))
+    c0, c1 = max(cols[0] - 1, 0), min(cols[1] + 2, len(lon))
+    transform = Affine(dlon, 0.0, lon[c0] - dlon / 2, 0.0, dlat, lat[r0] - dlat / 2)
+    burnt = rasterize(
+        [(g, 1) for g in shapes], out_shape=(r1 - r0, c1 - c0), transform=transform,
+        fill=0, dtype="uint8", all_touched=False,
+    )
+    return MaskWindow(slice(int(r0), int(r1)), slice(int(c0), int(c1)), burnt.astype(bool))
 
 
 def _regular(v: np.ndarray) -> bool:
@@ -168,6 +221,7 @@ def _to_lat_lon(da: xr.DataArray, path) -> xr.DataArray:
 
 def _geojson_geometries(path: Path, name_property: str | None):
     from shapely.geometry import shape
+    from shapely.validation import explain_validity
 
     try:
         obj = json.loads(Path(path).read_text())
@@ -189,16 +243,34 @@ def _geojson_geometries(path: Path, name_property: str | None):
         geom = f.get("geometry")
         if geom is None or geom.get("type") not in ("Polygon", "MultiPolygon"):
             raise InputFileError(path, f"feature {i} is not a Polygon or MultiPolygon")
+        props = f.get("properties") or {}
+        if not isinstance(props, dict):
+            props = {}
+        label = props.get(name_property) if name_property else None
+        what = _feature_label(i, props, name_property)
         try:
             g = shape(geom)
         except Exception as exc:
-            raise InputFileError(path, f"feature {i} has an invalid geometry ({exc})") from None
-        props = f.get("properties") or {}
-        label = props.get(name_property) if name_property else None
+            raise InputFileError(path, f"{what} has an invalid geometry ({exc})") from None
+        if not g.is_valid:
+            # explain_validity gives the reason and a point, e.g. "Self-intersection[2 2]";
+            # the polygon is not repaired (make_valid would change the region silently)
+            raise InputFileError(
+                path, f"{what} is not a valid polygon: {explain_validity(g)} "
+                "(fix the polygon in the file, e.g. a self-intersecting ring)"
+            )
         out.append((label, g))
     if not out:
         raise InputFileError(path, "GeoJSON has no features")
     return out
+
+
+def _feature_label(i: int, props: dict, name_property: str | None) -> str:
+    """``feature 12`` or ``feature 12 ('Name')``, with the name property or a ``name``."""
+    for key in (name_property, "name"):
+        if key and props.get(key) not in (None, ""):
+            return f"feature {i} ({props[key]!r})"
+    return f"feature {i}"
 
 
 def regions_from_config(items: list[dict], base_dir: Path, source: str) -> list[Region]:
@@ -225,15 +297,34 @@ def regions_from_config(items: list[dict], base_dir: Path, source: str) -> list[
                 regions.append(Region(name, geometry=box_geometry(*map(float, b))))
             except ValueError as exc:
                 raise ConfigError(where, str(exc)) from None
+            west, east = float(b[0]), float(b[2])
+            span = 360.0 - (west - east)
+            if west > east and span > SWAPPED_BOX_SPAN_DEG:
+                log.warning(
+                    "%s: box of region %r has west %g > east %g, so it crosses the "
+                    "antimeridian and spans %g degrees of longitude: probably west and east "
+                    "swapped", where, name, west, east, span,
+                )
         elif kind == "geojson":
             path = (base_dir / item["geojson"]).resolve()
             name_property = item.get("name_property")
             geoms = _geojson_geometries(path, name_property)
             if name_property:
-                for label, g in geoms:
-                    if not label:
-                        raise InputFileError(path, f"a feature has no property {name_property!r}")
-                    regions.append(Region(str(label), geometry=g))
+                first: dict[str, int] = {}
+                for j, (label, g) in enumerate(geoms):
+                    if label is None or str(label).strip() == "":
+                        raise InputFileError(
+                            path, f"feature {j} has no property {name_property!r} "
+                            "(`name_property` names every feature)"
+                        )
+                    label = str(label)
+                    if label in first:
+                        raise InputFileError(
+                            path, f"feature {j} has {name_property} {label!r}, already used by "
+                            f"feature {first[label]}: region names must be unique"
+                        )
+                    first[label] = j
+                    regions.append(Region(label, geometry=g))
             else:
                 if not name:
                     raise ConfigError(where, "a geojson region needs a `name` (or `name_property`)")

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 
+from euphotic.models._apply import InputMismatchError, check_same_grid
 from euphotic.models._compiled import use_compiled
 from euphotic.models.eppley_vgpm import eppley_vgpm, eppley_vgpm_month_block, pb_opt_eppley
 from euphotic.models.morel_berthon import euphotic_depth
@@ -60,6 +61,8 @@ def get_model(name: str) -> Callable:
 __all__ = [
     "CITATIONS",
     "MODELS",
+    "InputMismatchError",
+    "check_same_grid",
     "eppley_vgpm",
     "euphotic_depth",
     "get_model",

@@ -9,24 +9,116 @@ import numpy as np
 import xarray as xr
 
 from euphotic import units
+from euphotic.errors import EuphoticError
+
+
+class InputMismatchError(EuphoticError):
+    """Model inputs (DataArrays) whose dimension names, sizes or coordinates differ, which
+    xarray would otherwise broadcast against each other instead of matching cell by cell."""
+
+
+_SAME_GRID = "give all inputs the same dimension names and grid"
+
+
+def check_same_grid(**named) -> None:
+    """Refuse DataArray inputs that would broadcast instead of lining up cell by cell.
+
+    The rule: the DataArray with the most dimensions (the first one given, on a tie) is the
+    reference; every other DataArray's dims must be a subset of its dims (in any order), with
+    the same length and identical coordinate values on every shared dim (where both have a
+    coordinate there). So a 1-D ``day_length(lat)`` or a scalar broadcasts; chlorophyll on
+    ``latitude/longitude`` beside SST on ``lat/lon``, or two different grids, do not.
+
+    Raises
+    ------
+    InputMismatchError
+        Naming the argument, its dims or coordinate, and the reference's.
+    """
+    arrays = [(k, v) for k, v in named.items() if isinstance(v, xr.DataArray)]
+    if len(arrays) < 2:
+        return
+    ref_name, ref = max(arrays, key=lambda kv: kv[1].ndim)
+    for name, a in arrays:
+        if a is ref:
+            continue
+        if not set(a.dims) <= set(ref.dims):
+            raise InputMismatchError(
+                f"{name} has dims {tuple(a.dims)} but {ref_name} has {tuple(ref.dims)}: "
+                f"{_SAME_GRID}"
+            )
+        for d in a.dims:
+            if a.sizes[d] != ref.sizes[d]:
+                raise InputMismatchError(
+                    f"{name} has {a.sizes[d]} values along {d!r} but {ref_name} has "
+                    f"{ref.sizes[d]}: {_SAME_GRID}"
+                )
+            if d in a.coords and d in ref.coords:
+                mine, theirs = a[d].values, ref[d].values
+                if not _same_values(mine, theirs):
+                    i = int(np.flatnonzero(_differs(mine, theirs))[0])
+                    raise InputMismatchError(
+                        f"{name} coordinate {d!r} differs from {ref_name}'s (at index {i}: "
+                        f"{mine[i]} vs {theirs[i]}): {_SAME_GRID}"
+                    )
+
+
+def _differs(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Where two coordinate arrays of one length differ (NaN equal to NaN)."""
+    out = a != b
+    try:
+        out &= ~(np.isnan(a) & np.isnan(b))
+    except TypeError:  # strings, objects: no NaN
+        pass
+    return out
+
+
+def _same_values(a: np.ndarray, b: np.ndarray) -> bool:
+    """Identical coordinate values (NaN equal to NaN where the dtype has NaN)."""
+    return a.shape == b.shape and not _differs(a, b).any()
 
 
 def as_units(x, expected: str, name: str):
     """Convert ``x`` to ``expected`` units when it says its own (xarray ``units`` attribute or a
-    pint Quantity); a bare array is taken to be in ``expected`` units already."""
+    pint Quantity); a bare array is taken to be in ``expected`` units already.
+
+    PAR (``expected`` = :data:`euphotic.units.PAR_UNITS`) goes through
+    :func:`euphotic.units.par_factors`, the readers' conversion: a daily dose, a daily-mean
+    photon flux (x 86,400 s) or a daily-mean energy flux in W m-2 (McCree's 4.57 umol J-1).
+    """
     if isinstance(x, xr.DataArray):
         given = x.attrs.get("units")
         if given is not None and str(given).strip():
-            try:
-                a, b = units.linear_factors(given, expected)
-            except units.UnitError as exc:
-                raise ValueError(f"{name}: {exc}") from None
+            a, b = _factors(str(given), expected, name)
             if (a, b) != (1.0, 0.0):
                 x = x * a + b if b else x * a
         return x
     if hasattr(x, "magnitude") and hasattr(x, "units"):  # pint Quantity
+        if expected == units.PAR_UNITS:
+            a, _ = _factors(str(x.units), expected, name)
+            return x.magnitude * a
         return x.to(units.parse_units(expected)).magnitude
     return x
+
+
+def _factors(given: str, expected: str, name: str) -> tuple[float, float]:
+    try:
+        if expected == units.PAR_UNITS:
+            return units.par_factors(given)[0], 0.0
+        return units.linear_factors(given, expected)
+    except units.UnitError as exc:
+        raise ValueError(f"{name}: {exc}") from None
+
+
+def model_inputs(chl, par, sst, day_length) -> tuple:
+    """The four model inputs checked (:func:`check_same_grid`) and in canonical units:
+    chl mg m-3, PAR mol photons m-2 d-1, SST degC, day length h."""
+    check_same_grid(chl=chl, par=par, sst=sst, day_length=day_length)
+    return (
+        as_units(chl, units.CHL_UNITS, "chl"),
+        as_units(par, units.PAR_UNITS, "par"),
+        as_units(sst, units.SST_UNITS, "sst"),
+        as_units(day_length, units.DAY_LENGTH_UNITS, "day_length"),
+    )
 
 
 def apply_kernel(kernel: Callable, *args, name: str, attrs: dict | None = None):

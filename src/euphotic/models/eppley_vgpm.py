@@ -6,7 +6,7 @@ from functools import partial
 
 import numpy as np
 
-from euphotic.models._apply import apply_kernel, as_units
+from euphotic.models._apply import apply_kernel, model_inputs
 from euphotic.models._compiled import block_kernel, jit_loop, jit_point, month_block, use_compiled
 from euphotic.models.vgpm import _OUTPUT_ATTRS, vgpm_kernel, vgpm_point_with
 
@@ -79,19 +79,17 @@ eppley_vgpm_month_block = month_block(jit_loop(_eppley_vgpm_accumulate))
 def eppley_vgpm(chl, par, sst, day_length):
     """Net primary production by the VGPM with Eppley's temperature function, mg C m-2 d-1.
 
-    Same arguments, units and behaviour as :func:`euphotic.models.vgpm` (chl mg m-3, PAR
-    mol photons m-2 d-1, SST degC, day length h); only P^B_opt(T) differs
-    (:func:`pb_opt_eppley`).
+    Same arguments, units, conversions and checks as :func:`euphotic.models.vgpm` (chl
+    mg m-3, PAR mol photons m-2 d-1 or a DataArray in W m-2 / umol m-2 s-1, SST degC, day
+    length h; DataArrays on different dims or grids raise ``InputMismatchError``); only
+    P^B_opt(T) differs (:func:`pb_opt_eppley`).
 
     References
     ----------
     Behrenfeld and Falkowski (1997), Limnol. Oceanogr. 42:1-20; Eppley (1972), Fish. Bull.
     70:1063-1085.
     """
-    chl = as_units(chl, "mg m-3", "chl")
-    par = as_units(par, "mol m-2 d-1", "par")
-    sst = as_units(sst, "degC", "sst")
-    day_length = as_units(day_length, "h", "day_length")
+    chl, par, sst, day_length = model_inputs(chl, par, sst, day_length)
     kernel = (
         eppley_vgpm_block if (eppley_vgpm_block is not None and use_compiled()) else _eppley_kernel
     )

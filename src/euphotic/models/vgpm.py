@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from euphotic.models._apply import apply_kernel, as_units
+from euphotic.models._apply import apply_kernel, model_inputs
 from euphotic.models._compiled import block_kernel, jit_loop, jit_point, month_block, use_compiled
 from euphotic.models.morel_berthon import euphotic_depth, euphotic_depth_point
 
@@ -142,7 +142,11 @@ def vgpm(chl, par, sst, day_length):
     chl : array_like, dask array or xarray.DataArray
         Surface chlorophyll-a, mg m-3. Values <= 0 or non-finite are missing.
     par : array_like, dask array or xarray.DataArray
-        Daily photosynthetically active radiation at the surface, mol photons m-2 d-1.
+        Daily photosynthetically active radiation at the surface, mol photons m-2 d-1. A
+        DataArray whose ``units`` say otherwise is converted as the file readers do
+        (:func:`euphotic.units.par_factors`): a daily dose (``einstein m-2 d-1``), a daily-mean
+        photon flux (``umol m-2 s-1``, x 86,400 s) or a daily-mean energy flux (``W m-2``,
+        x 4.57 umol J-1 after McCree 1972, x 86,400 s).
     sst : array_like, dask array or xarray.DataArray
         Sea surface temperature, degC (a DataArray in K is converted from its units).
     day_length : array_like, dask array or xarray.DataArray
@@ -153,6 +157,17 @@ def vgpm(chl, par, sst, day_length):
     same kind as the inputs
         Net primary production integrated over the euphotic layer, mg C m-2 d-1
         (float64; NaN where an input is missing, 0 where day_length is 0).
+
+    Raises
+    ------
+    InputMismatchError
+        DataArray inputs that would broadcast instead of lining up cell by cell: each
+        DataArray's dims must be a subset of the largest input's dims, with identical
+        coordinate values on the shared dims (so a ``day_length(lat)`` or a scalar is fine;
+        ``latitude/longitude`` beside ``lat/lon``, or two different grids, are not). See
+        :func:`euphotic.models.check_same_grid`.
+    ValueError
+        A ``units`` attribute that cannot be converted, naming the argument.
 
     Notes
     -----
@@ -166,9 +181,6 @@ def vgpm(chl, par, sst, day_length):
     Behrenfeld and Falkowski (1997), Limnol. Oceanogr. 42:1-20, equations 10 and 11.
     Morel and Berthon (1989), Limnol. Oceanogr. 34:1545-1562.
     """
-    chl = as_units(chl, "mg m-3", "chl")
-    par = as_units(par, "mol m-2 d-1", "par")
-    sst = as_units(sst, "degC", "sst")
-    day_length = as_units(day_length, "h", "day_length")
+    chl, par, sst, day_length = model_inputs(chl, par, sst, day_length)
     kernel = vgpm_block if (vgpm_block is not None and use_compiled()) else vgpm_kernel
     return apply_kernel(kernel, chl, par, sst, day_length, name="npp", attrs=_OUTPUT_ATTRS)
