@@ -437,3 +437,21 @@ def test_full_disk_on_a_real_small_file_system(tmp_path):
         assert _debris(mnt / "out") == []
     finally:
         subprocess.run(["umount", str(mnt)])
+
+
+def test_figures_follow_their_maps(tmp_path):
+    """A map figure is kept while its map is reused (also with --no-figures) and redrawn
+    whenever the map is recomputed (--force)."""
+    cfg_path = _months_case(tmp_path, 2)
+    cfg_path.write_text(cfg_path.read_text().replace("figures = false", "figures = true"))
+    out = tmp_path / "out"
+    assert CliRunner().invoke(main, ["run", str(cfg_path)]).exit_code == 0
+    png = out / "npp_vgpm_2023-01.png"
+    ino = png.stat().st_ino
+    assert CliRunner().invoke(main, ["run", str(cfg_path), "--no-figures"]).exit_code == 0
+    assert png.stat().st_ino == ino
+    assert not (out / "regional_totals.png").exists()  # the chart follows the new table
+    _consistent(out)
+    assert CliRunner().invoke(main, ["run", str(cfg_path), "--force"]).exit_code == 0
+    assert png.stat().st_ino != ino
+    _consistent(out)

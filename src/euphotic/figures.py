@@ -83,7 +83,9 @@ def map_figure(
                     name, (lon[ix], lat[iy]), color=c, fontsize=8, ha="center", fontweight="bold"
                 )
     mean_cov = float(np.nanmean(cov.values)) if np.isfinite(cov.values).any() else 0.0
-    ax.set_title(f"{title}\nmean coverage {mean_cov:.0%} of days", fontsize=10)
+    import textwrap
+
+    ax.set_title(textwrap.fill(title, 80) + f"\nmean coverage {mean_cov:.0%} of days", fontsize=10)
     ax.set_xlabel("longitude (degrees east)")
     ax.set_ylabel("latitude (degrees north)")
     ax.set_aspect(1.0 / np.cos(np.deg2rad(np.clip(np.mean(lat), -80, 80))))

@@ -197,7 +197,7 @@ def run(
 #: Bumped when a change of the code changes the bytes of maps for the same inputs.
 MAP_FORMAT = 1
 #: Bumped when map figures change.
-FIGURE_FORMAT = 1
+FIGURE_FORMAT = 2
 #: RunConfig fields that do not change what a month's map or totals contain.
 _NOT_IN_FINGERPRINT = {"path", "output_dir", "figures", "months_per_compute", "start", "end",
                        "models"}
@@ -497,7 +497,7 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
         png = name.rsplit(".", 1)[0] + ".png"
         fp = runfolder.config_fingerprint([entries[name]["fingerprint"], FIGURE_FORMAT])
         old = prev_outputs.get(png)
-        if old and old.get("fingerprint") == fp and _intact(out_dir / png, old):
+        if name in keep and old and old.get("fingerprint") == fp and _intact(out_dir / png, old):
             entries[png] = old
             keep.add(png)
             figures.append(out_dir / png)
