@@ -468,7 +468,8 @@ def _threads() -> int:
 
 
 def estimate_memory(
-    *, cells: int, block_cells: int, threads: int, n_regions: int, figures: bool
+    *, cells: int, block_cells: int, threads: int, n_regions: int, figures: bool,
+    overlap_depth: int | None = None,
 ) -> dict[str, int]:
     """Peak resident memory of a run on the local threaded scheduler, by part (bytes).
 
@@ -492,7 +493,11 @@ def estimate_memory(
     computed graph (``months_per_compute = 1``); more months per graph keep more accumulators
     alive.
     """
-    bits = 1 if n_regions <= 8 else 2 if n_regions <= 16 else 4 if n_regions <= 32 else 8
+    # region masks (aggregate.RegionMasks): one uint16 label layer per level of overlap, up to
+    # 4; deeper overlaps go to bit planes of 16 regions each (counted at their most)
+    depth = min(n_regions, 4) if overlap_depth is None else overlap_depth
+    planes = depth if depth <= 4 else 4 + -(-n_regions // 16)
+    bits = 2 * planes
     parts = {
         "base": BASE_RSS_BYTES,
         "masks": cells * (MASK_BYTES_PER_CELL + (bits if n_regions else 0)),
@@ -595,18 +600,20 @@ def check(cfg: RunConfig) -> Report:
         except (EuphoticError, OSError) as exc:
             problems.append(Problem("error", str(exc)))
             ocean_np = None
+        depth = np.zeros((len(lat), len(lon)), np.uint16)  # regions over each cell
         for region in cfg.regions:
             rr = RegionReport(region.name)
             try:
-                mask = region.mask(lat, lon)
+                win = region.window(lat, lon)  # only the rows and columns it can reach
             except (EuphoticError, OSError) as exc:
                 rr.error = str(exc)
                 problems.append(Problem("error", f"region {region.name!r}: {exc}"))
                 regions.append(rr)
                 continue
-            rr.cells = int(mask.sum())
+            rr.cells = int(win.mask.sum())
+            depth[win.rows, win.cols] += win.mask
             if ocean_np is not None:
-                rr.ocean_cells = int((mask & ocean_np).sum())
+                rr.ocean_cells = int((win.mask & ocean_np[win.rows, win.cols]).sum())
             if rr.cells == 0:
                 problems.append(Problem(
                     "warning", f"{cfg.path}: region {region.name!r} contains no cell centre of "
@@ -616,7 +623,7 @@ def check(cfg: RunConfig) -> Report:
                     "warning", f"{cfg.path}: region {region.name!r} has {rr.cells} cells on the "
                                "grid but no ocean cell; its totals will be empty"))
             regions.append(rr)
-        estimate = _estimate(cfg, opened, reports, plan)
+        estimate = _estimate(cfg, opened, reports, plan, int(depth.max(initial=0)))
 
     return Report(
         config=Path(cfg.path),
@@ -651,7 +658,8 @@ def _output_problems(cfg: RunConfig) -> list[Problem]:
     return []
 
 
-def _estimate(cfg, opened: OpenedInputs, reports, plan) -> Estimate:
+def _estimate(cfg, opened: OpenedInputs, reports, plan, overlap_depth: int | None = None
+              ) -> Estimate:
     chl = opened.raw["chl"]
     cells = int(chl.sizes["lat"] * chl.sizes["lon"])
     chunk = getattr(chl.data, "chunksize", chl.shape)
@@ -660,7 +668,8 @@ def _estimate(cfg, opened: OpenedInputs, reports, plan) -> Estimate:
     days = sum(r.all_inputs for r in plan.table if r.month in plan.months) if plan else 0
     threads = _threads()
     parts = estimate_memory(cells=cells, block_cells=block, threads=threads,
-                            n_regions=len(cfg.regions), figures=cfg.figures)
+                            n_regions=len(cfg.regions), figures=cfg.figures,
+                            overlap_depth=overlap_depth)
     return Estimate(
         cells=cells, days=days, models=len(cfg.models),
         files=sum(len(r.files) for r in reports),
@@ -752,7 +761,7 @@ def format_report(rep: Report) -> str:
         p = e.parts
         basis = [
             f"base {_size(p['base'])} (libraries and compiled kernels, measured)",
-            f"masks {_size(p['masks'])} (ocean and region bits over {e.cells:,} cells)",
+            f"masks {_size(p['masks'])} (ocean and region labels over {e.cells:,} cells)",
             f"tasks {_size(p['tasks'])} ({e.threads} threads x {BLOCKS_PER_THREAD} blocks of "
             f"{e.block_cells:,} cells x {TASK_BYTES_PER_BLOCK_CELL} B)",
         ]
