@@ -43,6 +43,17 @@ from euphotic.readers import InputSpec, match_grid, open_input
 from ._files import STD, axis, write_grid
 
 
+@pytest.fixture(autouse=True)
+def _no_physical_screen(monkeypatch):
+    """The tests here check decoding, dating, units and grids with values chosen for the
+    arithmetic (e.g. SST -5 degC, PAR 172,800 mol m-2 d-1), not for realism: the physical
+    range screen is switched off (infinite ranges) and tested in test_screen.py."""
+    from euphotic import screen
+
+    monkeypatch.setattr(screen, "DEFAULT_VALID_RANGE",
+                        {r: (-np.inf, np.inf) for r in screen.DEFAULT_VALID_RANGE})
+
+
 def _d(text: str) -> np.datetime64:
     return np.datetime64(text, "ns")
 

@@ -8,12 +8,14 @@ from pathlib import Path
 
 import numpy as np
 
+from euphotic import screen
 from euphotic.errors import ConfigError
 from euphotic.models import MODELS
 from euphotic.readers import InputSpec
 from euphotic.regions import Region, regions_from_config
 
 _INPUT_KEYS = {"files", "variable", "units", "date_pattern", "date_format", "period"}
+_INPUT_KEYS |= screen.INPUT_KEYS  # input screening: duplicates, valid_range (euphotic.screen)
 _RUN_KEYS = {
     "models",
     "model",
@@ -126,6 +128,7 @@ def load_config(path: str | Path) -> RunConfig:
             date_format=table.get("date_format", "%Y%m%d"),
             period=table.get("period"),
             base_dir=base,
+            **screen.input_options(table, role, f"{path} [inputs.{role}]"),
         )
     extra = sorted(set(inputs_raw) - {"chl", "par", "sst", "day_length"})
     if extra:

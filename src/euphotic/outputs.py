@@ -62,6 +62,7 @@ def month_dataset(
     title: str,
     input_files: dict[str, Sequence[str]],
     command: str,
+    extra_attrs: dict | None = None,
 ) -> xr.Dataset:
     """A lazy CF-1.8 dataset for one month: ``npp``, ``coverage``, coordinates and metadata."""
     start = np.datetime64(maps.month, "D")
@@ -163,6 +164,7 @@ def month_dataset(
     }
     if "day_length" in files:
         ds.attrs["input_files_day_length"] = ", ".join(files["day_length"])
+    ds.attrs.update(extra_attrs or {})
     return ds
 
 

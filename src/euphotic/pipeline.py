@@ -14,7 +14,7 @@ import dask
 import numpy as np
 import xarray as xr
 
-from euphotic import aggregate, ocean, outputs
+from euphotic import aggregate, ocean, outputs, screen
 from euphotic.config import RunConfig
 from euphotic.errors import NoOverlapError
 from euphotic.geo import cell_area
@@ -213,7 +213,7 @@ def run(
 
 
 def _batch_graph(cfg: RunConfig, prep: Prepared, batch, ocean_mask, bits, input_files, command,
-                 temps: list):
+                 temps: list, extra_attrs: dict | None = None):
     """Lazy writes and regional sums of the months in ``batch`` for every model, and the
     (temporary, final) output path of each (model, month). Each temporary path is added to
     ``temps`` before anything is written there."""
@@ -234,7 +234,8 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, batch, ocean_mask, bits, input_
                 day_length=prep.day_length,
                 month_block=get_month_block(model_name),
             )
-            ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command)
+            ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files,
+                                       command=command, extra_attrs=extra_attrs)
             suffix = "zarr" if cfg.output_format == "zarr" else "nc"
             final = out_dir / f"{outputs.month_stem(maps)}.{suffix}"
             tmp = outputs.temp_path(final)
@@ -258,6 +259,9 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
     if prep.day_length is not None:
         input_files["day_length"] = prep.day_length.attrs["files"]
 
+    # input screening (euphotic.screen): ranges known now, counts computed with each batch
+    report = screen.Report({"chl": prep.chl, "par": prep.par, "sst": prep.sst,
+                            "day_length": prep.day_length})
     ocean_mask, bits = _grid_masks(prep, client)
     per = cfg.months_per_compute or len(prep.months)
     batches = [prep.months[i : i + per] for i in range(0, len(prep.months), per)]
@@ -267,13 +271,17 @@ def _run(cfg: RunConfig, *, progress: bool, command: str, client) -> RunResult:
             # one graph per batch of months (all models), computed once: memory and graph
             # size stay those of one batch however many years a run covers
             writes, lazies, placed = _batch_graph(cfg, prep, batch, ocean_mask, bits,
-                                                  input_files, command, temps)
+                                                  input_files, command, temps,
+                                                  extra_attrs=report.static_attrs())
             finals_by.update(placed)
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
                 print(f"computing {span} ({i + 1} of {len(batches)})", file=sys.stderr)
-            _, computed = _compute([writes, [z.sums for z in lazies]], client=client,
-                                   progress=progress)
+            _, computed, counts = _compute([writes, [z.sums for z in lazies], report.lazy(batch)],
+                                           client=client, progress=progress)
+            screen_attrs = report.finish(batch, counts)  # warnings; counts into each month's file
+            for (_, month), (tmp, _) in placed.items():
+                screen.record_in_file(tmp, screen_attrs[np.datetime64(month, "M")], cfg.output_format)
             for z, sums in zip(lazies, computed, strict=True):
                 rows_by[(z.model, z.month)] = aggregate.finish_totals(z, sums)  # month: [M]
     except BaseException:
