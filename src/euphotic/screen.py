@@ -404,9 +404,9 @@ class MonthNumbers:
         """One line, e.g. ``chl 2025-04: 1,234 values above 100 mg m-3 masked (0.3 %)``."""
         parts = []
         if self.below:
-            parts.append(f"{self.below:,} values below {self.lo:g} {self.units}")
+            parts.append(f"{_n_values(self.below)} below {self.lo:g} {self.units}")
         if self.above:
-            parts.append(f"{self.above:,} values above {self.hi:g} {self.units}")
+            parts.append(f"{_n_values(self.above)} above {self.hi:g} {self.units}")
         return f"{self.role} {self.month}: {' and '.join(parts)} masked ({100 * self.fraction:.1f} %)"
 
     def attrs(self) -> dict:
@@ -417,6 +417,10 @@ class MonthNumbers:
             f"screen_{r}_values_above_range": np.int64(self.above),
             f"screen_{r}_values_in_range": np.int64(self.valid),
         }
+
+
+def _n_values(n: int) -> str:
+    return f"{n:,} value" + ("" if n == 1 else "s")
 
 
 def month_numbers(da: xr.DataArray, months: Sequence[np.datetime64], computed) -> list[MonthNumbers]:
