@@ -461,3 +461,87 @@ def test_masked_values_warning_on_stderr(tmp_path):
     assert proc.returncode == 0, proc.stderr
     assert proc.stderr.splitlines() == [
         "euphotic: warning: chl 2024-03: 1 value above 100 mg m-3 masked (1.6 %)"]
+
+
+# ------------------------------------------------------------------------------------------
+# counting reads nothing twice and holds nothing back
+# ------------------------------------------------------------------------------------------
+
+
+def _held_bytes(cfg, *, counts: bool) -> int:
+    """Most bytes of results the local scheduler holds at once during a run."""
+    from dask.callbacks import Callback
+
+    from euphotic.pipeline import run
+
+    peak = [0]
+
+    class Held(Callback):
+        def _posttask(self, key, result, dsk, state, id):
+            peak[0] = max(peak[0], sum(getattr(x, "nbytes", 0) for x in state["cache"].values()))
+
+    with pytest.MonkeyPatch.context() as mp, Held():
+        if not counts:
+            mp.setattr(screen.Report, "lazy", lambda self, months: [[] for _ in self.inputs])
+            mp.setattr(screen.Report, "finish", lambda self, months, computed: {
+                np.datetime64(m, "M"): {} for m in months})
+        run(cfg, progress=False)
+    return peak[0]
+
+
+@pytest.mark.slow
+def test_counting_holds_no_block_back(tmp_path):
+    """The counts are small targets of the one compute; they must not make the scheduler read
+    a month's blocks ahead of the model and keep them. Measured on the bundled demo (30 daily
+    files per input): one target gathering a month's counts held 36 MB instead of 4 MB."""
+    import shutil
+
+    root = Path(__file__).resolve().parents[1]
+    shutil.copytree(root / "configs", tmp_path / "configs")
+    (tmp_path / "sample_grids").symlink_to(root / "sample_grids")
+    cfg = load_config(tmp_path / "configs" / "demo.toml")
+    cfg.figures = False
+    cfg.models = ["vgpm"]
+    without = _held_bytes(cfg, counts=False)
+    with_counts = _held_bytes(cfg, counts=True)
+    assert with_counts <= 1.5 * without + 1e6, (with_counts, without)
+
+
+def test_counting_reads_each_block_once(tmp_path):
+    days = [f"2024-03-{d:02d}" for d in range(1, 4)]
+    cfg = _case(tmp_path, days=days)
+    from euphotic import readers
+
+    reads: list[str] = []
+    real = readers._NamedReads.__getitem__  # write_field files are contiguous: library path
+
+    def counted(self, key):
+        reads.append(self.path)
+        return real(self, key)
+
+    with pytest.MonkeyPatch.context() as mp:
+        mp.setattr(readers._NamedReads, "__getitem__", counted)
+        from euphotic.pipeline import run
+
+        run(load_config(cfg), progress=False)
+    # one read per file (each is one block), screening included
+    inputs = [str(p) for r in ("chl", "par", "sst") for p in (tmp_path / r).glob("*.nc")]
+    assert sorted(reads) == sorted(inputs)
+
+
+def test_screen_range_on_many_blocks_matches_numpy():
+    """Masking and counting block by block (7 x 9 blocks, uneven edges) equals numpy on the
+    whole array (numpy is the reference)."""
+    import dask.array as dsa
+    import xarray as xr
+
+    x = np.random.default_rng(0).uniform(-10, 200, (3, 23, 31)).astype("f4")
+    x[0, 0, :5] = np.nan
+    da = xr.DataArray(dsa.from_array(x, chunks=(1, 7, 9)), dims=("time", "lat", "lon"),
+                      attrs={"units": "mg m-3"})
+    masked, counts = screen.screen_range(da, role="chl", lo=0.001, hi=100.0)
+    assert masked.data.chunks == da.data.chunks
+    np.testing.assert_array_equal(masked.values, np.where((x < 0.001) | (x > 100), np.nan, x))
+    want = [[(x[i] < 0.001).sum(), (x[i] > 100).sum(), ((x[i] >= 0.001) & (x[i] <= 100)).sum()]
+            for i in range(3)]
+    np.testing.assert_array_equal(counts.totals.compute(), want)
