@@ -346,7 +346,8 @@ def _block_counts(x: np.ndarray, lo: float, hi: float) -> np.ndarray:
     """Counts of one block (time, lat, lon): (time, 1, 1, 3) of below, above, within."""
     below = (x < lo).sum(axis=(1, 2))
     above = (x > hi).sum(axis=(1, 2))
-    inside = ((x >= lo) & (x <= hi)).sum(axis=(1, 2))
+    missing = np.isnan(x).sum(axis=(1, 2)) if x.dtype.kind == "f" else 0
+    inside = x.shape[1] * x.shape[2] - below - above - missing
     return np.stack([below, above, inside], axis=-1).astype(np.int64)[:, None, None, :]
 
 
