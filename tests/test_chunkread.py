@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 
 from euphotic import chunkread
+from euphotic.errors import InputFileError
 from euphotic.readers import InputSpec, open_input
 
 
@@ -145,8 +146,13 @@ def test_corrupt_checksum_is_an_error(tmp_path):
     raw = bytearray(path.read_bytes())
     raw[offset + 10] ^= 0xFF
     path.write_bytes(bytes(raw))
-    with pytest.raises(OSError, match="checksum"):
+    with pytest.raises(InputFileError) as excinfo:
         chunkread.dask_array(str(path), "x").compute()
+    # The file and the chunk are named; the chunk index (0, 0, 0) and byte offset come from
+    # h5py's chunk map (the stored chunk whose byte was flipped).
+    assert str(excinfo.value) == (
+        f"{path}: stored chunk (0, 0, 0) at byte {offset} fails its checksum "
+        "(OSError: Fletcher-32 checksum mismatch): the file is damaged")
     del arr
 
 

@@ -55,18 +55,18 @@ def test_demo_checks_clean_through_the_cli(demo_config):
         '[inputs.chl] files = "../sample_grids/chl/maren_chl_*.nc"',
         "  files:       30 (maren_chl_20250401.nc .. maren_chl_20250430.nc), 2.9 MiB on disk",
         "  variable:    chlor, identified by standard_name "
-        "mass_concentration_of_chlorophyll_a_in_sea_water",
-        "  units:       mg m-3 in the file; conversion: none (mg m-3 is already mg m-3)",
+        "'mass_concentration_of_chlorophyll_a_in_sea_water'",
+        "  units:       mg m-3 in the file; conversion: none",
         "  grid:        240 x 264 cells, lat 40.0417..59.9583 step 0.0833333, "
         "lon -35.9583..-14.0417 step 0.0833333",
         # umol m-2 s-1 -> mol m-2 d-1: 1e-6 mol/umol x 86,400 s/d = 0.0864 (SI)
-        "  units:       umol m-2 s-1 in the file; conversion: umol m-2 s-1 -> mol m-2 d-1: "
-        "x 0.0864",
+        "  units:       umol m-2 s-1 in the file; conversion: umol m-2 s-1 -> mol m-2 d-1 "
+        "(x 0.0864)",
         "  regridding:  none (same grid as the chlorophyll)",
         # K -> degC: minus 273.15 (SI definition of the degree Celsius)
-        "  units:       K in the file; conversion: K -> degC: - 273.15",
+        "  units:       K in the file; conversion: K -> degC (- 273.15)",
         "  grid:        80 x 88 cells, lat 40.125..59.875 step 0.25, lon -35.875..-14.125 step 0.25",
-        "  in the file: latitude descending, longitude 0..360 (324.125..345.875)",
+        "  in the file: latitude descending, longitude [0, 360)",
         "  regridding:  lat interpolated linearly (0.25 -> 0.0833333 deg); "
         "lon interpolated linearly (0.25 -> 0.0833333 deg)",
         "  periods:     30, 1 day(s) long, 2025-04-01..2025-04-30",
@@ -238,26 +238,38 @@ def test_duplicates_and_overlaps_are_reported(tmp_path):
     _daily(tmp_path, "chl", MARCH)
     _daily(tmp_path, "sst", MARCH)
     _daily(tmp_path, "par", MARCH)
-    _daily(tmp_path, "par", ["2024-03-02"], name="again")  # the same day a second time
     lat, lon = grid(0.0, 4.0, 0.0, 4.0, 0.5)
+    # the same day a second time, with other values (a reprocessed file beside the old one)
+    write_field(tmp_path / "par" / "again_20240302.nc", "par", PAR_STD, "einstein m-2 day-1",
+                np.full((len(lat), len(lon)), 35.0), lat, lon, start="2024-03-02",
+                end="2024-03-02")
     # an 8-day composite 2024-03-01..03-08 (bounds end at midnight of 03-09: exclusive)
     write_field(tmp_path / "par" / "par_8day.nc", "par", PAR_STD, "einstein m-2 day-1",
                 np.full((len(lat), len(lon)), 30.0), lat, lon,
                 time_bounds=("2024-03-01", "2024-03-09"))
     cfg = _config(tmp_path)
     res = _check([cfg])
+    assert res.exit_code == 1, res.output  # duplicates are an error unless a rule is chosen
+    lines = res.stdout.splitlines()
+    again, first = tmp_path / "par" / "again_20240302.nc", tmp_path / "par" / "par_20240302.nc"
+    assert (f"  error: {again}: par period 2024-03-02 is given 2 times, by {again}, {first}; keep "
+            'one file per period or set duplicates = "first" or "last" in [inputs.par]') in lines
+    assert "The run would fail." in lines
+
+    # with a rule the run goes ahead: the periods, duplicates and overlaps are listed
+    cfg.write_text(cfg.read_text().replace('[inputs.par]\n', '[inputs.par]\nduplicates = "last"\n'))
+    res = _check([cfg])
     assert res.exit_code == 0, res.output
     lines = res.stdout.splitlines()
-    assert "  duplicates:  2024-03-02 x2" in lines
-    assert "  periods:     7, 1, 8 day(s) long, 2024-03-01..2024-03-08" in lines
-    assert (f'  warning: {cfg} [inputs.par]: period 2024-03-02 given 2 times (files = '
-            '"par/*.nc"); the run uses one of them') in lines
+    assert "  periods:     6, 1, 8 day(s) long, 2024-03-01..2024-03-08" in lines
     # the composite shares days with each of the five daily periods
     assert (f"  warning: {cfg} [inputs.par]: 5 pair(s) of periods share days: "
             "2024-03-01 and 2024-03-01..2024-03-08; 2024-03-01..2024-03-08 and 2024-03-02; "
             "2024-03-01..2024-03-08 and 2024-03-03; 2024-03-01..2024-03-08 and 2024-03-04; "
             "2024-03-01..2024-03-08 and 2024-03-05; on shared days the shortest period is used"
             ) in lines
+    assert (f'euphotic: warning: par 2024-03-02: 2 files for one period; used {first} '
+            f'(duplicates = "last"), ignored {again}') in res.stderr.splitlines()
     assert "The run would start." in lines
 
 
@@ -312,8 +324,8 @@ def test_regrid_problem_is_reported_with_the_others(tmp_path):
     res = _check([_config(tmp_path)])
     assert res.exit_code == 1
     # W m-2 -> mol m-2 d-1: 4.57e-6 mol/J (McCree 1972) x 86,400 s/d = 0.394848
-    assert ("  units:       W m-2 in the file; conversion: W m-2 -> mol m-2 d-1: x 0.394848 "
-            "(4.57 umol J-1 for daylight PAR, McCree 1972, and 86400 s d-1)"
+    assert ("  units:       W m-2 in the file; conversion: W m-2 -> mol m-2 d-1 (x 0.394848: "
+            "4.57 umol J-1 for daylight PAR, McCree 1972, and 86400 s d-1)"
             ) in res.stdout.splitlines()
     errors = [ln.strip() for ln in res.stdout.splitlines() if ln.startswith("  error")]
     assert len(errors) == 1 and errors[0].startswith(f"error: {tmp_path}/sst/sst_20240301.nc: ")
@@ -399,4 +411,4 @@ def test_day_length_input_in_the_month_table(tmp_path):
     assert "  2024-03  5/31  5/31  5/31  5/31  3/31        partial" in lines
     assert (f"  warning: {cfg} [inputs.day_length]: 2 day(s) of 2024-03 with chl, par and sst "
             "have no day length: no estimate on those days") in lines
-    assert "  units:       h in the file; conversion: none (h is already h)" in lines
+    assert "  units:       h in the file; conversion: none" in lines

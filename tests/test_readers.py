@@ -43,6 +43,17 @@ from euphotic.readers import InputSpec, match_grid, open_input
 from ._files import STD, axis, write_grid
 
 
+@pytest.fixture(autouse=True)
+def _no_physical_screen(monkeypatch):
+    """The tests here check decoding, dating, units and grids with values chosen for the
+    arithmetic (e.g. SST -5 degC, PAR 172,800 mol m-2 d-1), not for realism: the physical
+    range screen is switched off (infinite ranges) and tested in test_screen.py."""
+    from euphotic import screen
+
+    monkeypatch.setattr(screen, "DEFAULT_VALID_RANGE",
+                        {r: (-np.inf, np.inf) for r in screen.DEFAULT_VALID_RANGE})
+
+
 def _d(text: str) -> np.datetime64:
     return np.datetime64(text, "ns")
 
@@ -897,3 +908,73 @@ def test_series_stacked_like_files_read_one_by_one(tmp_path, monkeypatch, how):
     np.testing.assert_array_equal(got.period_end.values, want.period_end.values)
     assert got.period_start.values[0] == np.datetime64("2024-04-01")
     assert got.attrs["files"] == want.attrs["files"]
+    # The file of each time step, aligned with the time axis (the stack and the odd file).
+    assert got.attrs["period_files"] == [str(tmp_path / f"sst_202404{d:02d}.nc")
+                                         for d in range(1, 6)]
+    assert got.attrs["period_files"] == want.attrs["period_files"]
+
+
+# ------------------------------------------------------------------------------------------
+# How each input was read (attrs shown by the pre-flight check)
+# ------------------------------------------------------------------------------------------
+
+
+def test_attrs_say_how_a_packed_kelvin_file_was_read(tmp_path):
+    lat = axis(1.5, -1.0, 3)  # stored north to south
+    lon = axis(0.5, 1.0, 360)  # 0.5 .. 359.5 degrees_east
+    packed = np.full((3, 360), 1500, dtype="i2")  # 15.00 K above 273.15 K: 15 degC
+    path = write_grid(tmp_path / "sst.nc", packed, lat, lon, name="analysed_sst", dtype="i2",
+                      var_attrs={"standard_name": STD["sst"], "units": "kelvin",
+                                 "scale_factor": 0.01, "add_offset": 273.15},
+                      global_attrs=ONE_DAY)
+    da = open_input(InputSpec(role="sst", files=str(path)))
+    assert {k: da.attrs[k] for k in ("identified_by", "units_in_file", "conversion",
+                                     "file_lat_order", "file_lon_convention")} == {
+        "identified_by": "standard_name 'sea_surface_temperature'",
+        "units_in_file": "kelvin",
+        "conversion": "kelvin -> degC (- 273.15)",  # 0 degC = 273.15 K (SI)
+        "file_lat_order": "descending",
+        "file_lon_convention": "[0, 360)",
+    }
+
+
+def test_attrs_say_how_a_named_par_flux_was_read(tmp_path):
+    path = write_grid(tmp_path / "par.nc", np.full((2, 3), 400.0), [0.5, 1.5],
+                      [-1.0, 0.0, 1.0], name="light",
+                      var_attrs={"units": "umol m-2 s-1"}, global_attrs=ONE_DAY)
+    da = open_input(InputSpec(role="par", files=str(path), variable="light"))
+    assert da.attrs["identified_by"] == "config variable 'light'"
+    # 1 umol s-1 = 1e-6 mol x 86,400 s d-1 = 0.0864 mol d-1 (SI)
+    assert da.attrs["conversion"] == "umol m-2 s-1 -> mol m-2 d-1 (x 0.0864)"
+    assert da.attrs["file_lat_order"] == "ascending"
+    assert da.attrs["file_lon_convention"] == "[-180, 180)"
+    assert da.attrs["period_files"] == [str(path)]
+
+
+def test_damaged_temperature_chunk_found_by_the_open_time_sample(tmp_path):
+    """A temperature file's values are sampled when it is opened (kelvin check): a damaged
+    chunk there is reported like any other damaged chunk, naming the file."""
+    path = tmp_path / "sst.nc"
+    with netCDF4.Dataset(path, "w") as ds:
+        for k, v in ONE_DAY.items():
+            ds.setncattr(k, v)
+        for name, n in (("lat", 4), ("lon", 5)):
+            ds.createDimension(name, n)
+            c = ds.createVariable(name, "f8", (name,))
+            c.units = "degrees_north" if name == "lat" else "degrees_east"
+            c[:] = np.arange(n) + 0.5
+        v = ds.createVariable("sst", "f4", ("lat", "lon"), zlib=True, chunksizes=(4, 5))
+        v.standard_name, v.units = STD["sst"], "degC"
+        v[:] = np.linspace(10, 20, 20).reshape(4, 5)
+    import h5py
+
+    with h5py.File(path, "r") as f:
+        info = f["sst"].id.get_chunk_info(0)
+    raw = bytearray(path.read_bytes())
+    raw[int(info.byte_offset) + int(info.size) // 2] ^= 0xFF
+    path.write_bytes(bytes(raw))
+    with pytest.raises(InputFileError) as excinfo:
+        open_input(InputSpec(role="sst", files=str(path)))
+    # netCDF-C's error string for a failed HDF5 filter (NC_EHDFERR) is "NetCDF: HDF error".
+    assert str(excinfo.value) == (f"{path}: reading values failed (RuntimeError: NetCDF: HDF "
+                                  "error): the file is damaged or unreadable")

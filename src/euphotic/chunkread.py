@@ -23,6 +23,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from euphotic.errors import InputFileError
+
 try:  # libdeflate: whole-buffer inflate, 1.6-2x faster than ISA-L or zlib on float chunks
     import deflate as _libdeflate
 except ImportError:  # pragma: no cover
@@ -137,7 +139,7 @@ def decode_chunk(raw: bytes, cmap: ChunkMap, filter_mask: int) -> np.ndarray:
             stored = int.from_bytes(buf[-4:], "little")
             buf = buf[:-4]
             if _fletcher32(buf) != stored:
-                raise OSError(f"{cmap.path}: Fletcher-32 checksum mismatch in a chunk")
+                raise OSError("Fletcher-32 checksum mismatch")
         elif fid == H5Z_DEFLATE:
             buf = _inflate(buf, cmap.chunk_nbytes)
         elif fid == H5Z_SHUFFLE:
@@ -145,6 +147,19 @@ def decode_chunk(raw: bytes, cmap: ChunkMap, filter_mask: int) -> np.ndarray:
             if size > 1:
                 buf = _unshuffle(buf, size)
     return np.frombuffer(buf, dtype=cmap.dtype).reshape(cmap.chunks)
+
+
+def _decode_or_fail(raw: bytes, cmap: ChunkMap, mask: int, index: tuple, offset: int):
+    """:func:`decode_chunk`, with any failure reported as a damaged file naming the chunk."""
+    try:
+        return decode_chunk(raw, cmap, mask)
+    except (zlib.error, OSError, ValueError) as exc:
+        what = "fails its checksum" if "checksum" in str(exc) else "cannot be decoded"
+        raise InputFileError(
+            cmap.path,
+            f"stored chunk {tuple(int(i) for i in index)} at byte {offset} {what} "
+            f"({exc.__class__.__name__}: {exc}): the file is damaged",
+        ) from None
 
 
 def _inflate(buf, nbytes: int) -> bytes:
@@ -198,7 +213,7 @@ class ChunkedArray:
                     block = np.full(self.cmap.chunks, self.cmap.fill, dtype=self.dtype)
                 else:
                     offset, size, mask = entry
-                    block = decode_chunk(os.pread(fd, size, offset), self.cmap, mask)
+                    block = _decode_or_fail(os.pread(fd, size, offset), self.cmap, mask, ci, offset)
                 src, dst = [], []
                 for d, (a, b) in enumerate(bounds):
                     s0 = max(a, lo[d])

@@ -20,6 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
+from euphotic import screen
 from euphotic.errors import ConfigError, EuphoticError
 from euphotic.models import MODELS
 from euphotic.outputs import metadata_from_config
@@ -178,6 +179,9 @@ INPUT_KEYS: dict[str, Key] = {
     ),
     "date_format": Key(_string, "a strptime format (string) such as \"%Y%m%d\""),
     "period": Key(_period, "\"day\", \"month\" or a whole number of days > 0"),
+    # input screening, checked by euphotic.screen.input_options
+    "duplicates": Key(lambda v: v, '"error", "first" or "last"'),
+    "valid_range": Key(lambda v: v, "[low, high] in the input's converted units"),
 }
 
 #: [ocean] keys
@@ -347,6 +351,11 @@ def _load(path: Path, problems: list) -> RunConfig | None:
             problems.append(ConfigError(where, "missing `files` (a path or glob pattern)"))
         if "files" not in table:
             continue
+        try:  # duplicates, valid_range: euphotic.screen
+            screen_options = screen.input_options(table, role, where)
+        except ConfigError as exc:
+            problems.append(exc)
+            screen_options = {}
         inputs[role] = InputSpec(
             role=role,
             files=table["files"],
@@ -356,6 +365,7 @@ def _load(path: Path, problems: list) -> RunConfig | None:
             date_format=table.get("date_format", "%Y%m%d"),
             period=table.get("period"),
             base_dir=base,
+            **screen_options,
         )
 
     where_ocean = f"{path} [ocean]"

@@ -17,6 +17,9 @@ class ConfigError(EuphoticError):
         self.problem = problem
         super().__init__(f"{source}: {problem}")
 
+    def __reduce__(self):
+        return (self.__class__, (self.source, self.problem))
+
 
 class InputFileError(EuphoticError):
     """An input file cannot be used: missing variable, unknown unit, no dates, bad grid..."""
@@ -25,6 +28,13 @@ class InputFileError(EuphoticError):
         self.path = str(path)
         self.problem = problem
         super().__init__(f"{path}: {problem}")
+
+    def __reduce__(self):  # rebuilt from (path, problem) when sent back from a dask worker
+        return (self.__class__, (self.path, self.problem))
+
+
+class DuplicatePeriodError(InputFileError):
+    """Several files (or time steps) of one input give the same period."""
 
 
 class GridMismatchError(InputFileError):

@@ -15,7 +15,7 @@ import dask
 import numpy as np
 import xarray as xr
 
-from euphotic import aggregate, ocean, outputs, preflight, runfolder
+from euphotic import aggregate, ocean, outputs, preflight, runfolder, screen
 from euphotic.config import RunConfig
 from euphotic.errors import ConfigError, NoValidDataError
 from euphotic.geo import cell_area
@@ -257,7 +257,7 @@ def _item_fingerprints(cfg: RunConfig, prep: Prepared) -> dict[tuple[str, np.dat
 
 
 def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_files, command,
-                 stage: runfolder.Stage, provenance: dict):
+                 stage: runfolder.Stage, provenance: dict, extra_attrs: dict | None = None):
     """Lazy writes into the stage, regional sums and valid-cell counts of the (model, month)
     items of one batch. Returns (writes, sums, counts, names) in item order."""
     names = prep.region_masks.names
@@ -277,7 +277,8 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_
             month_block=get_month_block(model_name),
         )
         ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command,
-                                   earth=cfg.earth, provenance=provenance, metadata=cfg.metadata)
+                                   earth=cfg.earth, provenance=provenance, metadata=cfg.metadata,
+                                   extra_attrs=extra_attrs)
         name = f"{outputs.month_stem(maps)}.{suffix}"
         files.append(name)
         writes.append(outputs.write_lazy(ds, stage.file(name), cfg.output_format))
@@ -340,6 +341,9 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
     pending = folder.recover()
     input_files = _input_files(prep)
     provenance = outputs.provenance_attrs(cfg, input_files)  # once per run
+    # input screening (euphotic.screen): ranges known now, counts computed with each batch
+    report = screen.Report({"chl": prep.chl, "par": prep.par, "sst": prep.sst,
+                            "day_length": prep.day_length})
     fps = _item_fingerprints(cfg, prep)
     suffix = "zarr" if cfg.output_format == "zarr" else "nc"
 
@@ -386,14 +390,21 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             # size stay those of one batch however many years a run covers
             items = [(m, mo) for (m, mo) in todo if mo in batch]
             writes, lazies, counts, names = _batch_graph(cfg, prep, items, ocean_mask, bits,
-                                                         input_files, command, stage, provenance)
+                                                         input_files, command, stage, provenance,
+                                                         extra_attrs=report.static_attrs())
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
                 print(f"computing {span} ({i + 1} of {len(batches)})", file=sys.stderr)
             with _writing(out_dir, "the monthly maps"):
-                _, sums, n_valid = _compute(
-                    [writes, [z.sums for z in lazies if z is not None], counts],
+                _, sums, n_valid, screened = _compute(
+                    [writes, [z.sums for z in lazies if z is not None], counts,
+                     report.lazy(batch)],
                     client=client, progress=progress)
+                # screening: warnings, and the counts of masked values into each month's file
+                screen_attrs = report.finish(batch, screened)
+                for (_, month), name in zip(items, names, strict=True):
+                    screen.record_in_file(stage.file(name), screen_attrs[np.datetime64(month, "M")],
+                                          cfg.output_format)
             sums = iter(sums)
             for (model_name, month), z, nv, name in zip(items, lazies, n_valid, names,
                                                         strict=True):

@@ -22,8 +22,8 @@ import cftime
 import numpy as np
 import xarray as xr
 
-from euphotic import chunkread, units
-from euphotic.errors import GridMismatchError, InputFileError
+from euphotic import chunkread, screen, units
+from euphotic.errors import EuphoticError, GridMismatchError, InputFileError
 from euphotic.regrid import axis_step, is_regular, regrid_like, same_axis
 
 Role = Literal["chl", "par", "sst", "day_length"]
@@ -84,6 +84,10 @@ class InputSpec:
     #: length of each file's period when only a start date is known: "day", "month" or N (days)
     period: str | int | None = None
     base_dir: Path = field(default_factory=Path.cwd)
+    #: files (or time steps) with the same period: "error", or keep the "first"/"last" by path
+    duplicates: str = "error"
+    #: plausible range in the model's units; None: ``screen.DEFAULT_VALID_RANGE[role]``
+    valid_range: tuple[float, float] | None = None
 
     def paths(self) -> list[str]:
         """Expand the file pattern(s) into a sorted list of existing paths."""
@@ -242,6 +246,14 @@ class _Piece:
     detached: bool = False
     #: paths of the files stacked into ``data`` (just ``path`` for one file)
     paths: list[str] = field(default_factory=list)
+    #: how the file was read (the ``open_input`` attrs of the pre-flight contract)
+    info: dict = field(default_factory=dict)
+    #: what the open-time value sample needs to read another file laid out alike
+    enc: dict = field(default_factory=dict)
+    sample_attrs: dict = field(default_factory=dict)
+    #: files whose sample covered every value and found none valid
+    empty: list[str] = field(default_factory=list)
+    grid_dims: tuple = ()  # the file's (lat, lon) dimension names
 
 
 def _find_variable(ds: xr.Dataset, spec: InputSpec, path: str) -> str:
@@ -344,6 +356,26 @@ def _convert_units(da: xr.DataArray, spec: InputSpec, path: str, name: str) -> x
     return out
 
 
+def _conversion_text(spec: InputSpec, given: str) -> str:
+    """How values are converted, e.g. ``"K -> degC (- 273.15)"`` or ``"none"``."""
+    target = TARGET_UNITS[spec.role]
+    try:
+        if spec.role == "par":
+            (a, kind), b = units.par_factors(given), 0.0
+            if kind == "energy":
+                return (f"{given} -> {target} (x {a:g}: 4.57 umol J-1 for daylight PAR, "
+                        "McCree 1972, and 86400 s d-1)")
+        else:
+            a, b = units.linear_factors(given, target)
+    except units.UnitError:
+        return "unknown"
+    if a == 1.0 and b == 0.0:
+        return "none"
+    ops = ([f"x {a:g}"] if a != 1.0 else []) + (
+        [f"{'-' if b < 0 else '+'} {abs(b):g}"] if b != 0.0 else [])
+    return f"{given} -> {target} ({', '.join(ops)})"
+
+
 def normalize_lon(da: xr.DataArray, path: str, convention: str | None = None) -> xr.DataArray:
     """Wrap longitudes to [-180, 180) (or [0, 360)), sort them, and check the grid is regular."""
     lon = da["lon"].values.astype(np.float64)
@@ -377,7 +409,81 @@ def _lazy_values(da: xr.DataArray, name: str, enc: dict, path: str) -> xr.DataAr
         raw = chunkread.dask_array(path, name)
         if raw is not None and raw.shape == da.shape:
             return da.copy(data=_decode_raw(raw, da.dims, name, enc))
-    return da.chunk(enc.get("preferred_chunks") or {d: -1 for d in da.dims})
+    return _library_read(da, enc, path)
+
+
+class _NamedReads:
+    """Array-like over a variable read through the netCDF library that names the file when
+    a read fails (the library's own message, e.g. ``NetCDF: HDF error``, does not)."""
+
+    def __init__(self, var: xr.Variable, path: str):
+        self.var, self.path = var, path
+        self.shape, self.dtype, self.ndim = var.shape, var.dtype, var.ndim
+
+    def __getitem__(self, key) -> np.ndarray:
+        try:
+            return np.asarray(self.var[key].values)
+        except EuphoticError:
+            raise
+        except Exception as exc:  # the netCDF/HDF5 libraries raise RuntimeError, OSError...
+            raise InputFileError(
+                self.path, f"reading values failed ({exc.__class__.__name__}: {exc}): the file "
+                "is damaged or unreadable",
+            ) from None
+
+
+def _library_read(da: xr.DataArray, enc: dict, path: str) -> xr.DataArray:
+    """``da`` (an open, undecoded-by-dask variable) as dask chunks in the file's own chunks,
+    read through the netCDF library."""
+    import dask.array as dsa
+    from dask.base import tokenize
+
+    pref = enc.get("preferred_chunks") or {}
+    chunks = tuple(pref.get(d, n) for d, n in zip(da.dims, da.shape, strict=True))
+    st = os.stat(path)
+    name = "ncread-" + tokenize(path, da.name, chunks, st.st_mtime_ns, st.st_size)
+    arr = dsa.from_array(_NamedReads(da.variable, path), chunks=chunks, name=name, lock=False,
+                         asarray=False, fancy=False, meta=np.empty((0,) * da.ndim, da.dtype))
+    return da.copy(data=arr)
+
+
+#: Cells read per axis for the open-time sample of a contiguous (unchunked) variable.
+_SAMPLE_CELLS = 256
+
+
+def _sample_index(shape, dims, chunks, lat_d: str, lon_d: str) -> tuple[tuple, bool]:
+    """Index of the stored chunk holding the centre of the first time step (a centre block for
+    unchunked data), and whether that covers the whole time step."""
+    idx, whole = [], True
+    for d, n, c in zip(dims, shape, chunks or [None] * len(shape), strict=True):
+        if d in (lat_d, lon_d):
+            size = c or min(n, _SAMPLE_CELLS)
+            a = (n // 2 // size) * size if c else max(0, n // 2 - size // 2)
+            idx.append(slice(a, min(n, a + size)))
+            whole &= size >= n
+        else:
+            idx.append(0)
+    return tuple(idx), whole
+
+
+def _decoded_sample(raw: np.ndarray, dims, name: str, enc: dict, attrs: dict) -> np.ndarray:
+    """CF-decoded values of a raw sample, with the file's valid range applied."""
+    coding = {k: enc[k] for k in _CF_CODING_KEYS if k in enc}
+    var = xr.conventions.decode_cf_variable(
+        name, xr.Variable(dims, np.asarray(raw), attrs=coding), mask_and_scale=True,
+        decode_times=False)
+    da = xr.DataArray(np.asarray(var.values, dtype=np.float64), dims=dims)
+    return np.asarray(_apply_valid_range(da, enc, attrs).values)
+
+
+def _check_sample(spec: InputSpec, path: str, values: np.ndarray, whole: bool, n_steps: int,
+                  units_used: str, what: str, empty: list) -> None:
+    """Open-time checks on a sample of a temperature file: a kelvin field labelled Celsius is
+    an error; a sample that covers the whole (single) time step and holds no value is noted."""
+    screen.check_kelvin_label(values, units_used, path=path, what=what, role=spec.role)
+    if whole and n_steps == 1 and not np.isfinite(values).any():
+        screen.log.warning("%s: %s has no valid value: every value is missing", path, spec.role)
+        empty.append(path)
 
 
 def _dates(spec: InputSpec, ds: xr.Dataset, time_d: str | None, n_time: int, path: str):
@@ -482,6 +588,19 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
     file_dims = tuple(da.dims)
     lat_d = _find_axis(ds, da, "lat", path)
     lon_d = _find_axis(ds, da, "lon", path)
+    units_used = spec.units or da.attrs.get("units")
+    std_name = da.attrs.get("standard_name")
+    lat_raw = np.asarray(ds[lat_d].values, dtype=np.float64)
+    lon_raw = np.asarray(ds[lon_d].values, dtype=np.float64)
+    info = {
+        "identified_by": (f"config variable {name!r}" if spec.variable
+                          else f"standard_name {std_name!r}"),
+        "units_in_file": str(units_used),
+        "conversion": _conversion_text(spec, str(units_used)) if units_used else "unknown",
+        "file_lat_order": "descending" if lat_raw.size > 1 and lat_raw[1] < lat_raw[0]
+        else "ascending",
+        "file_lon_convention": "[0, 360)" if (lon_raw > 180.0).any() else "[-180, 180)",
+    }
     time_d, squeeze = None, []
     for d in da.dims:
         if d in (lat_d, lon_d):
@@ -504,6 +623,23 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
 
     # --- dates (of this file; a stack's dates are given by the caller)
     start, end, stamps = _dates(spec, ds, time_d, da.sizes[time_d] if time_d else 1, path)
+
+    # --- a look at a few values (temperature only): one stored chunk, no dask
+    empty: list[str] = []
+    sample_attrs = dict(da.attrs)
+    if spec.role == "sst" and units_used and stack is None:
+        index, whole = _sample_index(da.shape, file_dims, enc.get("chunksizes"), lat_d, lon_d)
+        try:
+            decoded = ds[name].variable[index]  # read (and CF-decoded) by the netCDF library
+            values = np.asarray(_apply_valid_range(
+                xr.DataArray(np.asarray(decoded.values, np.float64), dims=decoded.dims),
+                enc, sample_attrs).values)
+        except Exception as exc:  # noqa: BLE001 - the library's read errors
+            raise InputFileError(path, f"reading values failed ({exc.__class__.__name__}: "
+                                 f"{exc}): the file is damaged or unreadable") from None
+        n_steps = da.sizes[time_d] if time_d else 1
+        _check_sample(spec, path, values, whole, n_steps, str(units_used), std_name or name,
+                      empty)
 
     file_time_d = time_d
     if stack is None:
@@ -551,7 +687,8 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
     }
     return _Piece(path=path, data=da, start=start, end=end, stamps=stamps, variable=name,
                   time_dim=file_time_d, file_dims=file_dims,
-                  detached=detached, paths=[path])
+                  detached=detached, paths=[path], info=info, enc=enc,
+                  sample_attrs=sample_attrs, empty=empty, grid_dims=(lat_d, lon_d))
 
 
 #: HDF5 attributes that netCDF-4 and dimension scales manage themselves (not metadata).
@@ -642,6 +779,19 @@ def _like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
             ds = _h5_time_dataset(f, spec, first.time_dim, n_time)
         except (KeyError, OSError, ValueError, TypeError):
             return None  # anything unexpected: the full open reports it properly
+        if spec.role == "sst" and first.info.get("units_in_file") not in (None, "None"):
+            lat_d, lon_d = first.grid_dims
+            index, whole = _sample_index(var.shape, first.file_dims, var.chunks, lat_d, lon_d)
+            try:
+                raw = var[index]
+            except OSError as exc:
+                raise InputFileError(path, f"reading values failed ({exc}): the file is "
+                                     "damaged or unreadable") from None
+            dims = [d for d, k in zip(first.file_dims, index, strict=True) if isinstance(k, slice)]
+            values = _decoded_sample(raw, dims, first.variable, first.enc, first.sample_attrs)
+            what = first.sample_attrs.get("standard_name") or first.variable
+            _check_sample(spec, path, values, whole, n_time, first.info["units_in_file"], what,
+                          first.empty)
     start, end, stamps = _dates(spec, ds, first.time_dim, n_time, path)
     if (stamps is None) != (first.stamps is None):
         return None
@@ -681,6 +831,7 @@ def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
         stacked.start = np.concatenate([x[1] for x in same])
         stacked.end = np.concatenate([x[2] for x in same])
     stacked.paths = [x[0] for x in same]
+    stacked.info, stacked.empty = first.info, first.empty
     return [stacked] + others
 
 
@@ -728,12 +879,20 @@ def open_input(spec: InputSpec) -> xr.DataArray:
     -------
     xarray.DataArray
         Dask-backed, with coords ``period_start`` and ``period_end`` (datetime64[D], end
-        exclusive) along ``time`` and attrs ``units``, ``long_name`` and ``files``.
+        exclusive) along ``time`` and attrs ``units``, ``long_name`` and ``files``; the
+        screening attrs ``period_files`` (the file of each time step), ``valid_range`` (lo, hi
+        in ``units``; values outside are masked), ``screen_counts`` (lazy per-period counts,
+        :class:`euphotic.screen.LazyCounts`) and ``empty_files``; and how the files were read:
+        ``identified_by``, ``units_in_file``, ``conversion``, ``file_lat_order``,
+        ``file_lon_convention`` (of the first file; ``"mixed: ..."`` when files differ).
 
     Raises
     ------
     InputFileError
-        Naming the file and the problem (missing variable, unknown unit, no dates...).
+        Naming the file and the problem (missing variable, unknown unit, no dates, a kelvin
+        field labelled Celsius, a damaged chunk...).
+    DuplicatePeriodError
+        Two files (or time steps) with the same period, unless ``spec.duplicates`` picks one.
     """
     paths = spec.paths()
     _small_chunk_cache()
@@ -773,12 +932,38 @@ def open_input(spec: InputSpec) -> xr.DataArray:
         period_start=("time", starts.astype("datetime64[ns]")),
         period_end=("time", ends.astype("datetime64[ns]")),
     )
+    step_files = np.array([f for p in pieces for f in _step_files(p)], dtype=object)
     order = np.argsort(starts, kind="stable")
     if not np.all(order == np.arange(len(order))):
         out = out.isel(time=order)
+        starts, ends, step_files = starts[order], ends[order], step_files[order]
+    # --- screening: repeated periods, overlaps, implausible values (see euphotic.screen)
+    keep = screen.resolve_duplicates(starts, ends, list(step_files), role=spec.role,
+                                     rule=spec.duplicates)
+    if len(keep) < len(starts):
+        out = out.isel(time=keep)
+        starts, ends, step_files = starts[keep], ends[keep], step_files[keep]
+    screen.log_overlaps(starts, ends, list(step_files), role=spec.role)
+    lo, hi = screen.valid_range(spec.role, spec.valid_range)
+    out, counts = screen.screen_range(out, role=spec.role, lo=lo, hi=hi)
     out.attrs["files"] = sorted(q for p in pieces for q in p.paths)
+    out.attrs["period_files"] = [str(f) for f in step_files]
+    out.attrs["screen_counts"] = counts
+    out.attrs["valid_range"] = (lo, hi)
+    out.attrs["empty_files"] = [f for p in pieces for f in p.empty]
+    for key in ("identified_by", "units_in_file", "conversion", "file_lat_order",
+                "file_lon_convention"):
+        seen = list(dict.fromkeys(p.info.get(key, "unknown") for p in pieces))
+        out.attrs[key] = seen[0] if len(seen) == 1 else "mixed: " + "; ".join(seen)
     out.name = spec.role
     return out
+
+
+def _step_files(piece: _Piece) -> list[str]:
+    """The file of each time step of a piece (stacked files hold equally many steps)."""
+    n = piece.data.sizes["time"]
+    per = n // max(len(piece.paths), 1)
+    return [f for f in piece.paths for _ in range(per)]
 
 
 def match_grid(da: xr.DataArray, target: xr.DataArray, path: str) -> xr.DataArray:

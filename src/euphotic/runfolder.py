@@ -164,11 +164,12 @@ class Lock:
     def release(self) -> None:
         if self.fd is None:
             return
-        info = self._read() or {}
-        info.update(state="released", released=now_iso())
-        with contextlib.suppress(OSError):
-            os.ftruncate(self.fd, 0)
-            os.pwrite(self.fd, json.dumps(info).encode(), 0)
+        info = self._read()
+        if info is not None:  # None: the lock file was removed with its new, empty folder
+            info.update(state="released", released=now_iso())
+            with contextlib.suppress(OSError):
+                os.ftruncate(self.fd, 0)
+                os.pwrite(self.fd, json.dumps(info).encode(), 0)
         fcntl.flock(self.fd, fcntl.LOCK_UN)
         os.close(self.fd)
         self.fd = None
@@ -242,6 +243,7 @@ class OutputFolder:
     @contextlib.contextmanager
     def locked(self, command: str) -> Iterator[OutputFolder]:
         """Hold the folder for one run; a second run refuses with :class:`OutputBusyError`."""
+        created = not self.path.exists()
         self.path.mkdir(parents=True, exist_ok=True)
         self.lock.acquire(command)
         try:
@@ -253,7 +255,14 @@ class OutputFolder:
                 )
             yield self
         finally:
-            self.lock.release()
+            if created and [p.name for p in self.path.iterdir()] == [LOCK_NAME]:
+                # a first run into a new folder that failed: leave no folder behind
+                self.lock.path.unlink()
+                self.lock.release()
+                with contextlib.suppress(OSError):
+                    self.path.rmdir()
+            else:
+                self.lock.release()
 
     # ---- what is there ----------------------------------------------------------------------
 
