@@ -62,23 +62,33 @@ def write_config(path: Path, body: str) -> Path:
     return path
 
 
-def box_run_config(path: Path, name: str, box: list[float], *, chl: str = "chl/*.nc",
-                   models: str = "") -> Path:
-    """A run config over chl/, par/ and sst/ beside ``path``, ocean from temperature, one box."""
-    run_models = f"models = [{models}]\n" if models else ""
-    return write_config(path, f"""
-[run]
-{run_models}output_dir = "out"
-figures = false
-[inputs.chl]
-files = "{chl}"
+#: The [inputs] tables of a run over chl/, par/ and sst/ beside its config.
+INPUTS = """[inputs.chl]
+files = "chl/*.nc"
 [inputs.par]
 files = "par/*.nc"
 [inputs.sst]
 files = "sst/*.nc"
-[ocean]
-source = "temperature"
-[[regions]]
-name = "{name}"
-box = {box}
-""")
+"""
+
+
+def run_config(path: Path, *, run: str = "", regions: list[tuple[str, list]] = (),
+               ocean: str = 'source = "temperature"', inputs: str = INPUTS,
+               extra: str = "") -> Path:
+    """A run config writing to out/ without figures: ``run`` adds [run] lines, ``regions``
+    are (name, box) pairs, ``extra`` is appended (more tables)."""
+    boxes = "".join(f'[[regions]]\nname = "{n}"\nbox = {list(b)}\n' for n, b in regions)
+    return write_config(path, f"""[run]
+output_dir = "out"
+figures = false
+{run}
+{inputs}[ocean]
+{ocean}
+{boxes}{extra}""")
+
+
+def box_run_config(path: Path, name: str, box: list[float], *, chl: str = "chl/*.nc",
+                   models: str = "") -> Path:
+    """A run config over chl/, par/ and sst/ beside ``path``, ocean from temperature, one box."""
+    return run_config(path, run=f"models = [{models}]" if models else "", regions=[(name, box)],
+                      inputs=INPUTS.replace('"chl/*.nc"', f'"{chl}"'))

@@ -17,16 +17,7 @@ from euphotic.cli import main
 from euphotic.config import config_problems, load_config
 from euphotic.errors import ConfigError
 
-from ._grids import CHL_STD, PAR_STD, SST_STD, grid, write_field
-
-INPUTS = """
-[inputs.chl]
-files = "chl/*.nc"
-[inputs.par]
-files = "par/*.nc"
-[inputs.sst]
-files = "sst/*.nc"
-"""
+from ._grids import CHL_STD, INPUTS, PAR_STD, SST_STD, grid, write_field
 
 
 def _cfg(tmp: Path, run: str = "", inputs: str = INPUTS, extra: str = "") -> Path:

@@ -34,7 +34,7 @@ from euphotic.outputs import (
 )
 from euphotic.pipeline import run
 
-from ._grids import CHL_STD, PAR_STD, SST_STD, grid, write_config, write_field
+from ._grids import CHL_STD, PAR_STD, SST_STD, grid, run_config, write_field
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -90,28 +90,10 @@ def _two_month_case(tmp: Path, *, metadata: dict | None = None, fmt: str = "netc
                     np.full(shape, 40.0), lat, lon, time_bounds=(a, b))
         write_field(tmp / "sst" / f"s{m}.nc", "sst", SST_STD, "degC", sst, lat, lon,
                     time_bounds=(a, b))
-    return write_config(tmp / "run.toml", f"""
-[run]
-models = ["vgpm"]
-output_dir = "out"
-figures = false
-earth = "{earth}"
-output_format = "{fmt}"
-[inputs.chl]
-files = "chl/*.nc"
-[inputs.par]
-files = "par/*.nc"
-[inputs.sst]
-files = "sst/*.nc"
-[ocean]
-source = "temperature"
-[[regions]]
-name = "Sea"
-box = [11.0, -1.0, 12.0, 1.0]
-[[regions]]
-name = "Land"
-box = [10.0, -1.0, 11.0, 1.0]
-""" + (_toml_table(metadata) if metadata else ""))
+    return run_config(tmp / "run.toml",
+                      run=f'models = ["vgpm"]\nearth = "{earth}"\noutput_format = "{fmt}"',
+                      regions=[("Sea", [11.0, -1.0, 12.0, 1.0]), ("Land", [10.0, -1.0, 11.0, 1.0])],
+                      extra=_toml_table(metadata) if metadata else "")
 
 
 @contextlib.contextmanager

@@ -23,7 +23,7 @@ from euphotic.errors import InputFileError
 from euphotic.pipeline import prepare
 
 from ._files import write_grid
-from ._grids import CHL_STD, PAR_STD, SST_STD, grid, write_field
+from ._grids import CHL_STD, INPUTS, PAR_STD, SST_STD, grid, run_config, write_field
 
 ROOT = Path(__file__).resolve().parents[1]
 D = np.datetime64
@@ -170,25 +170,8 @@ MARCH = [f"2024-03-{d:02d}" for d in range(1, 6)]
 
 
 def _config(tmp: Path, *, sst="sst/*.nc", ocean='source = "temperature"', regions="") -> Path:
-    path = tmp / "run.toml"
-    path.write_text(f"""
-[run]
-output_dir = "out"
-figures = false
-[inputs.chl]
-files = "chl/*.nc"
-[inputs.par]
-files = "par/*.nc"
-[inputs.sst]
-files = "{sst}"
-[ocean]
-{ocean}
-[[regions]]
-name = "Box"
-box = [0.0, 0.0, 4.0, 4.0]
-{regions}
-""")
-    return path
+    return run_config(tmp / "run.toml", ocean=ocean, regions=[("Box", [0.0, 0.0, 4.0, 4.0])],
+                      inputs=INPUTS.replace('"sst/*.nc"', f'"{sst}"'), extra=regions)
 
 
 def test_two_problems_in_two_inputs_are_both_reported(tmp_path, no_compute):

@@ -341,7 +341,7 @@ def test_run_with_many_regions_parts_add_up_to_whole(tmp_path):
 
     from euphotic.pipeline import run
 
-    from ._grids import CHL_STD, PAR_STD, SST_STD, grid, write_field
+    from ._grids import CHL_STD, PAR_STD, SST_STD, grid, run_config, write_field
 
     lat, lon = grid(0.0, 10.0, 0.0, 10.0, 0.25)
     rng = np.random.default_rng(7)
@@ -356,23 +356,8 @@ def test_run_with_many_regions_parts_add_up_to_whole(tmp_path):
                 lat, lon, start="2024-03-01", end="2024-03-08")
     parts = "".join(f"[[regions]]\nname = 'p{i}{j}'\nbox = [{i}, {j}, {i + 1}, {j + 1}]\n"
                     for i in range(10) for j in range(10))
-    (tmp_path / "run.toml").write_text(f"""
-[run]
-models = ["vgpm"]
-output_dir = "out"
-figures = false
-[inputs.chl]
-files = "chl/*.nc"
-[inputs.par]
-files = "par/*.nc"
-[inputs.sst]
-files = "sst/*.nc"
-[ocean]
-source = "temperature"
-[[regions]]
-name = "whole"
-box = [0, 0, 10, 10]
-{parts}""")
+    run_config(tmp_path / "run.toml", run='models = ["vgpm"]',
+               regions=[("whole", [0, 0, 10, 10])], extra=parts)
     result = run(load_config(tmp_path / "run.toml"), progress=False)
     rows = {r["region"]: r for r in result.rows}  # full precision (the CSV rounds)
     assert len(rows) == 101
