@@ -27,8 +27,6 @@ from euphotic import aggregate
 from euphotic.config import RunConfig
 from euphotic.errors import EuphoticError, NoOverlapError
 from euphotic.readers import (
-    STANDARD_NAMES,
-    TARGET_UNITS,
     InputSpec,
     grid_summary,
     match_grid,
@@ -228,28 +226,25 @@ def find_gaps(starts, ends) -> list[tuple[np.datetime64, np.datetime64]]:
 
 
 def find_duplicates(starts, ends) -> list[tuple[np.datetime64, np.datetime64, int]]:
-    """Periods given more than once: (first day, last day inclusive, how many times)."""
-    s, e = _days(starts), _days(ends)
-    pairs, counts = np.unique(np.stack([s.astype(np.int64), e.astype(np.int64)], axis=1),
-                              axis=0, return_counts=True)
-    return [
-        (np.datetime64(int(a), "D"), np.datetime64(int(b), "D") - 1, int(n))
-        for (a, b), n in zip(pairs, counts, strict=True) if n > 1
-    ]
+    """Periods given more than once: (first day, last day inclusive, how many times); the
+    detection is :func:`euphotic.screen.find_duplicates`."""
+    from euphotic import screen
+
+    files = [""] * len(starts)
+    return [(d.start, d.end - 1, len(d.indices))
+            for d in screen.find_duplicates(starts, ends, files)]
 
 
 def find_overlaps(starts, ends) -> list[tuple[tuple, tuple]]:
-    """Pairs of different periods sharing at least one day, each as (first, last inclusive)."""
-    s, e = _days(starts), _days(ends)
-    uniq = sorted({(a, b) for a, b in zip(s.tolist(), e.tolist(), strict=True)})
-    out, open_ = [], []
-    for a, b in uniq:
-        open_ = [(c, d) for c, d in open_ if d > a]  # periods still running at this start
-        for c, d in open_:
-            out.append(((np.datetime64(c, "D"), np.datetime64(d, "D") - 1),
-                        (np.datetime64(a, "D"), np.datetime64(b, "D") - 1)))
-        open_.append((a, b))
-    return out
+    """Pairs of different periods sharing at least one day, each as (first, last inclusive),
+    once per pair of distinct periods; the detection is :func:`euphotic.screen.find_overlaps`."""
+    from euphotic import screen
+
+    pairs = {
+        tuple(sorted(((o.period_a[0], o.period_a[1] - 1), (o.period_b[0], o.period_b[1] - 1))))
+        for o in screen.find_overlaps(starts, ends, [""] * len(starts))
+    }
+    return sorted(pairs)
 
 
 def day_ranges(ranges) -> str:
@@ -289,63 +284,6 @@ class InputReport:
     error: str | None = None
 
 
-def _file_facts(path: str, variable: str) -> dict:
-    """Attributes and axis order of ``variable`` in one file (metadata and 1-D coordinates
-    only), for what the opened input does not carry."""
-    import netCDF4
-
-    facts: dict = {}
-    with netCDF4.Dataset(path) as ds:
-        v = ds.variables.get(variable)
-        if v is None:
-            return facts
-        facts["units"] = getattr(v, "units", None)
-        facts["standard_name"] = getattr(v, "standard_name", None)
-        for d in v.dimensions:
-            c = ds.variables.get(d)
-            if c is None or c.ndim != 1:
-                continue
-            std, units_ = getattr(c, "standard_name", ""), str(getattr(c, "units", ""))
-            low = d.lower()
-            if std == "latitude" or units_.startswith("degree") and "north" in units_.lower() or \
-                    low in ("lat", "latitude"):
-                lat = np.asarray(c[:], dtype=np.float64)
-                if lat.size > 1:
-                    facts["lat_order"] = "descending" if lat[1] < lat[0] else "ascending"
-            elif std == "longitude" or units_.startswith("degree") and "east" in units_.lower() or \
-                    low in ("lon", "longitude"):
-                lon = np.asarray(c[:], dtype=np.float64)
-                if lon.size:
-                    facts["lon_convention"] = (
-                        "0..360" if lon.max() > 180.0 else "-180..180"
-                    ) + f" ({lon.min():g}..{lon.max():g})"
-    return facts
-
-
-def describe_conversion(role: str, given: str | None) -> str:
-    """How values in ``given`` units are turned into the model's units, in words."""
-    from euphotic import units
-
-    target = TARGET_UNITS[role]
-    if given is None:
-        return "none possible: no units"
-    try:
-        if role == "par":
-            factor, kind = units.par_factors(given)
-            how = "" if factor == 1.0 else f"x {factor:g}"
-            if kind == "energy":
-                how += " (4.57 umol J-1 for daylight PAR, McCree 1972, and 86400 s d-1)"
-        else:
-            a, b = units.linear_factors(given, target)
-            how = " ".join(p for p in (
-                "" if a == 1.0 else f"x {a:g}",
-                "" if b == 0.0 else f"{'+' if b > 0 else '-'} {abs(b):g}",
-            ) if p)
-    except units.UnitError as exc:
-        return f"none possible: {exc}"
-    return f"{given} -> {target}: {how}" if how else f"none ({given} is already {target})"
-
-
 def _regrid_words(src: xr.DataArray, dst: xr.DataArray) -> str:
     words = []
     for dim in ("lat", "lon"):
@@ -376,24 +314,14 @@ def _input_report(role: str, spec: InputSpec, opened: OpenedInputs) -> InputRepo
     rep.files = list(da.attrs.get("files", rep.files))
     rep.variable = da.attrs.get("source_variable")
     rep.units = da.attrs.get("units")
-    facts = {}
-    if rep.files and rep.variable:
-        try:
-            facts = _file_facts(rep.files[0], rep.variable)
-        except OSError:
-            facts = {}
-    std = facts.get("standard_name")
-    rep.identified_by = da.attrs.get("identified_by") or (
-        f"`variable` = {rep.variable!r} in the config" if spec.variable
-        else f"standard_name {std}" if std in STANDARD_NAMES[role] else None
-    )
-    rep.units_in_file = da.attrs.get("units_in_file", facts.get("units"))
-    given = spec.units or rep.units_in_file
-    rep.conversion = da.attrs.get("conversion") or describe_conversion(role, given)
+    # how the reader found the variable and converted it (euphotic.readers.open_input)
+    rep.identified_by = da.attrs.get("identified_by")
+    rep.units_in_file = da.attrs.get("units_in_file")
+    rep.conversion = da.attrs.get("conversion", "unknown")
     if spec.units:
         rep.conversion += f" (units {spec.units!r} from the config)"
-    rep.file_lat_order = da.attrs.get("file_lat_order", facts.get("lat_order"))
-    rep.file_lon_convention = da.attrs.get("file_lon_convention", facts.get("lon_convention"))
+    rep.file_lat_order = da.attrs.get("file_lat_order")
+    rep.file_lon_convention = da.attrs.get("file_lon_convention")
     rep.grid = grid_summary(da)
     chl = opened.raw.get("chl")
     if role == "chl":
