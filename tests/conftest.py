@@ -48,6 +48,7 @@ def demo_run(tmp_path_factory):
     out = base / "demo_output"
     res = CliRunner().invoke(main, ["run", str(base / "configs" / "demo.toml"), "-q"])
     assert res.exit_code == 0, res.output
+    assert "Caution: " in res.output  # the factor-of-two caution is printed with the totals
     return out
 
 

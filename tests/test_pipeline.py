@@ -269,18 +269,11 @@ def test_failure_in_a_later_batch_puts_no_month_in_place(tmp_path, monkeypatch):
     assert folder_bytes(out) == {k: v for k, v in before.items() if k != "npp_vgpm_2024-01.nc"}
 
 
-def test_demo_run_end_to_end(tmp_path):
-    """The bundled demo: the totals table has the promised rows, columns and units."""
-    from click.testing import CliRunner
-
-    from euphotic.cli import main
-
+def test_demo_run_end_to_end(demo_run):
+    """The bundled demo (run once per session by the ``demo_run`` fixture, through the CLI):
+    the totals table has the promised rows, columns and units."""
+    tmp_path = demo_run
     root = Path(__file__).resolve().parents[1]
-    res = CliRunner().invoke(
-        main, ["run", str(root / "configs" / "demo.toml"), "-o", str(tmp_path), "-q"]
-    )
-    assert res.exit_code == 0, res.output
-    assert "Caution" in res.output
     with open(tmp_path / "regional_totals.csv") as fh:
         rows = list(csv.DictReader(fh))
     assert list(rows[0]) == TOTALS_COLUMNS
@@ -321,6 +314,7 @@ def test_demo_run_end_to_end(tmp_path):
     assert img.shape[0] > 300 and img[..., :3].std() > 0.05
 
 
+@pytest.mark.slow
 def test_local_cluster_gives_identical_results(tmp_path):
     """A 2-process dask.distributed LocalCluster reproduces the threaded run bit for bit."""
     root = Path(__file__).resolve().parents[1]
@@ -376,6 +370,7 @@ def test_fused_monthly_pass_matches_model_then_mean(tmp_path, monkeypatch):
         assert ra["total_TgC"] == pytest.approx(rb["total_TgC"], rel=1e-6)
 
 
+@pytest.mark.slow
 def test_external_scheduler_address(tmp_path):
     """`--scheduler ADDRESS`: the CLI connects to a scheduler it did not start (here one started
     by distributed's own LocalCluster in this test) and gives the threaded run's numbers."""

@@ -35,12 +35,12 @@ import netCDF4
 import numpy as np
 import pytest
 import xarray as xr
-from dask.callbacks import Callback
 
 from euphotic.errors import GridMismatchError, InputFileError
 from euphotic.readers import InputSpec, match_grid, open_input
 
 from ._files import STD, axis, write_grid
+from .conftest import NoCompute
 
 
 @pytest.fixture(autouse=True)
@@ -75,16 +75,6 @@ def _assert_error_names(excinfo, path, *phrases: str) -> None:
     assert msg.startswith(f"{path}: "), msg
     for phrase in phrases:
         assert phrase in msg, msg
-
-
-class _NoCompute(Callback):
-    """A dask callback that fails the test as soon as anything is computed."""
-
-    def _start(self, dsk):
-        raise AssertionError("dask compute started while only building the lazy array")
-
-    def _pretask(self, key, dsk, state):
-        raise AssertionError(f"dask task {key!r} ran while only building the lazy array")
 
 
 # ------------------------------------------------------------------------------------------
@@ -680,7 +670,7 @@ def test_open_and_match_grid_build_lazy_arrays_without_computing(tmp_path):
     write_grid(tmp_path / "sst.nc", np.full((2, 4, 4), 300.0), lat_s, lon_s, name="sst",
                var_attrs={"standard_name": STD["sst"], "units": "K", "valid_min": 260.0},
                time=[0.5, 1.5], time_units="days since 2020-01-01")
-    with _NoCompute():
+    with NoCompute():
         chl = open_input(InputSpec(role="chl", files=str(tmp_path / "chl_*.nc"),
                                    date_pattern=r"(?P<start>\d{8})"))
         sst = open_input(InputSpec(role="sst", files=str(tmp_path / "sst.nc")))
@@ -689,7 +679,7 @@ def test_open_and_match_grid_build_lazy_arrays_without_computing(tmp_path):
     for da in (chl, sst, sst_on_chl, chl_coarse):
         assert dask.is_dask_collection(da.data), type(da.data)
     # The guard does work: computing inside it fails.
-    with _NoCompute(), pytest.raises(AssertionError, match="dask"):
+    with NoCompute(), pytest.raises(AssertionError, match="computed early"):
         sst_on_chl.values  # noqa: B018
     # And outside it the values are right: 300 K = 26.85 degC; 0.2 ug L-1 = 0.2 mg m-3.
     np.testing.assert_allclose(sst_on_chl.values, 26.85, atol=1e-9)
