@@ -380,8 +380,9 @@ def test_all_chlorophyll_missing_is_an_error_not_zero(tmp_path):
     res = CliRunner().invoke(main, ["run", str(cfg_path)])
     assert res.exit_code == 1
     assert res.stderr.strip().splitlines()[-1] == (
-        f"euphotic: error: {tmp_path / 'chl' / 'c00.nc'}: no valid estimate in any month: every "
-        "chlorophyll value is missing or masked (or no input overlaps it); nothing was written")
+        f"euphotic: error: {cfg_path}: no valid estimate in any month: every chlorophyll value, "
+        "or every value of another input on the ocean, is missing or masked (see the warnings "
+        "above); nothing was written")
     assert "vgpm 2023-01: no valid estimate anywhere on the grid" in res.stderr
     assert folder_bytes(out) == before
 

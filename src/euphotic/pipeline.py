@@ -474,11 +474,10 @@ def _check_not_empty(cfg: RunConfig, prep: Prepared, entries: dict[str, dict]) -
         log.warning("%s %s: no valid estimate anywhere on the grid (every input value missing "
                     "or masked); its totals are left empty and flagged", e["model"], e["month"])
     if maps and len(empty) == len(maps):
-        files = prep.chl.attrs["files"]
         raise NoValidDataError(
-            f"{files[0] if len(files) == 1 else os.path.dirname(files[0]) or '.'}: no valid "
-            "estimate in any month: every chlorophyll value is missing or masked (or no input "
-            "overlaps it); nothing was written"
+            f"{cfg.path}: no valid estimate in any month: every chlorophyll value, or every "
+            "value of another input on the ocean, is missing or masked (see the warnings "
+            "above); nothing was written"
         )
 
 
