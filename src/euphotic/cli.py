@@ -232,7 +232,7 @@ def format_totals(rows: list[dict]) -> str:
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
 def inspect(files: tuple[str, ...], role: str | None, variable: str | None, debug: bool) -> None:
     """Show how FILES would be read: variable, units, periods and grid."""
-    from euphotic.errors import InputFileError
+    from euphotic.errors import InputFileError, VariableNotFoundError
     from euphotic.readers import InputSpec, grid_summary, open_input
 
     roles = [role] if role else ["chl", "par", "sst", "day_length"]
@@ -244,8 +244,8 @@ def inspect(files: tuple[str, ...], role: str | None, variable: str | None, debu
             )
         except InputFileError as exc:
             last = exc
-            if role is None and "no " in exc.problem and "variable" in exc.problem:
-                continue
+            if role is None and isinstance(exc, VariableNotFoundError):
+                continue  # not this input: try the next
             _fail(exc, debug)
             return
         except Exception as exc:  # noqa: BLE001

@@ -37,6 +37,10 @@ class DuplicatePeriodError(InputFileError):
     """Several files (or time steps) of one input give the same period."""
 
 
+class VariableNotFoundError(InputFileError):
+    """A file has no variable for the input (by standard name or the configured name)."""
+
+
 class GridMismatchError(InputFileError):
     """A variable's grid cannot be brought onto the chlorophyll grid."""
 

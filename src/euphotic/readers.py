@@ -23,7 +23,7 @@ import numpy as np
 import xarray as xr
 
 from euphotic import chunkread, screen, units
-from euphotic.errors import EuphoticError, GridMismatchError, InputFileError
+from euphotic.errors import EuphoticError, GridMismatchError, InputFileError, VariableNotFoundError
 from euphotic.regrid import axis_step, is_regular, regrid_like, same_axis
 
 Role = Literal["chl", "par", "sst", "day_length"]
@@ -259,7 +259,7 @@ class _Piece:
 def _find_variable(ds: xr.Dataset, spec: InputSpec, path: str) -> str:
     if spec.variable:
         if spec.variable not in ds.data_vars:
-            raise InputFileError(
+            raise VariableNotFoundError(
                 path,
                 f"no variable {spec.variable!r} (data variables: {', '.join(ds.data_vars) or 'none'})",
             )
@@ -268,7 +268,7 @@ def _find_variable(ds: xr.Dataset, spec: InputSpec, path: str) -> str:
         hits = [v for v in ds.data_vars if ds[v].attrs.get("standard_name") == std]
         if hits:
             return hits[0]
-    raise InputFileError(
+    raise VariableNotFoundError(
         path,
         f"no {spec.role} variable: none has standard_name "
         f"{' or '.join(repr(s) for s in STANDARD_NAMES[spec.role][:2])} "
