@@ -485,3 +485,33 @@ def test_many_regions_benchmark_runs_tiny():
     for phrase in ("mask build:", "masks held:", "regional sums per month, 1005 regions:",
                    "previous per-region loop:", "(same sums: True)"):
         assert phrase in res.stdout
+
+
+def test_figures_with_many_regions_stay_readable(tmp_path):
+    """Hundreds of regions: maps are not outlined and the chart shows the largest 30 (the
+    table keeps all). Checked on what was drawn: the title text and the number of bars."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    from euphotic import figures
+
+    rows = [{"region": f"r{i:03d}", "model": "vgpm", "month": "2024-03", "total_TgC": float(i),
+             "total_filled_TgC": float(i)} for i in range(100)]
+    captured = {}
+    real_close = plt.close
+
+    def keep(fig):
+        captured["fig"] = fig
+
+    plt.close = keep
+    try:
+        figures.totals_figure(rows, tmp_path / "t.png")
+    finally:
+        plt.close = real_close
+    ax = captured["fig"].axes[0]
+    labels = [t.get_text() for t in ax.get_xticklabels()]
+    assert labels == [f"r{i:03d}" for i in range(70, 100)]  # the 30 largest, in table order
+    assert "the 30 largest of 100 regions" in ax.get_title()
+    real_close(captured["fig"])

@@ -12,6 +12,9 @@ import xarray as xr
 
 #: Longest side of a map image in data cells; larger grids are thinned by striding for drawing.
 MAX_CELLS_DRAWN = 1600
+#: More regions than this are not outlined on maps nor drawn as bars (hundreds of provinces or
+#: zones make an unreadable figure); the totals table has them all.
+MAX_REGIONS_DRAWN = 30
 
 
 def _stride(n: int) -> int:
@@ -69,7 +72,8 @@ def map_figure(
         ax.pcolormesh(lon, lat, zero, cmap="Greys", vmin=0, vmax=2, shading="nearest")
     cb = fig.colorbar(mesh, ax=ax, shrink=0.9, pad=0.02)
     cb.set_label("net primary production (mg C m$^{-2}$ d$^{-1}$)")
-    if region_masks:
+    too_many = region_masks is not None and len(region_masks) > MAX_REGIONS_DRAWN
+    if region_masks and not too_many:
         colours = ["#e4572e", "#f3a712", "#e0e0e0", "#a8c686", "#ff99c8", "#ffffff"]
         for i, (name, mask) in enumerate(region_masks.items()):
             m = np.asarray(mask)[::sy, ::sx].astype(float)
@@ -85,7 +89,9 @@ def map_figure(
     mean_cov = float(np.nanmean(cov.values)) if np.isfinite(cov.values).any() else 0.0
     import textwrap
 
-    ax.set_title(textwrap.fill(title, 80) + f"\nmean coverage {mean_cov:.0%} of days", fontsize=10)
+    note = f"; {len(region_masks)} regions, not outlined" if too_many else ""
+    ax.set_title(textwrap.fill(title, 80) + f"\nmean coverage {mean_cov:.0%} of days{note}",
+                 fontsize=10)
     ax.set_xlabel("longitude (degrees east)")
     ax.set_ylabel("latitude (degrees north)")
     ax.set_aspect(1.0 / np.cos(np.deg2rad(np.clip(np.mean(lat), -80, 80))))
@@ -107,6 +113,12 @@ def totals_figure(rows: list[dict], png_path: Path) -> Path:
     from euphotic.outputs import CAUTION
 
     regions = list(dict.fromkeys(r["region"] for r in rows))
+    shown = len(regions)
+    if shown > MAX_REGIONS_DRAWN:  # the regions with the largest totals, in table order
+        best = sorted(regions, key=lambda g: -max(
+            (r["total_TgC"] for r in rows if r["region"] == g and np.isfinite(r["total_TgC"])),
+            default=0.0))[:MAX_REGIONS_DRAWN]
+        regions = [g for g in regions if g in best]
     series = list(dict.fromkeys((r["model"], r["month"]) for r in rows))
     fig, ax = plt.subplots(figsize=(8, 4.6))
     fig.set_layout_engine("constrained", rect=(0, 0.07, 1, 0.93))
@@ -121,9 +133,10 @@ def totals_figure(rows: list[dict], png_path: Path) -> Path:
         ax.bar(pos, vals, width * 0.95, color=f"C{k}", label=f"{model} {month}")
     ax.set_xticks(x, regions, rotation=15, ha="right")
     ax.set_ylabel("carbon fixed in the month (Tg C)")
-    ax.set_title(
-        "Regional totals (solid: observed cells; dashed: scaled to whole ocean area)", fontsize=10
-    )
+    head = "Regional totals (solid: observed cells; dashed: scaled to whole ocean area)"
+    if shown > len(regions):
+        head += f"\nthe {len(regions)} largest of {shown} regions (all are in the table)"
+    ax.set_title(head, fontsize=10)
     ax.legend(fontsize=8)
     fig.text(
         0.01, 0.005, "Caution: " + CAUTION, fontsize=6, wrap=True, va="bottom", color="#444444"
