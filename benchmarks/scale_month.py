@@ -227,7 +227,8 @@ def measure(n: int, days: int, root: Path, work: Path, *, floor: bool, naive_day
            "input_MB": sum(os.path.getsize(f) for f in all_files) / 1e6}
     out_dir = work / f"out_{n}_{days}"
     cfg = write_config(files, out_dir, work / f"bench_{n}_{days}.toml")
-    cmd = [sys.executable, "-c", "from euphotic.cli import main; main()", "run", str(cfg), "-q", "--no-figures"]
+    cmd = [sys.executable, "-c", "from euphotic.cli import main; main()", "run", str(cfg), "-q", "--no-figures",
+           "--force"]  # every pass computes: no reuse of the previous pass's maps
     if workers:
         cmd += ["--workers", str(workers)]
     floors, runs, peaks = [], [], []

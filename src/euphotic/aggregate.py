@@ -427,6 +427,11 @@ def _block_sums(npp, cov, ocean, area_rows, *planes, n_regions, n_label_layers, 
     return out
 
 
+def _block_sums_stacked(npp, cov, ocean, area_rows, planes, **kw):
+    """:func:`_block_sums` with the planes as one (planes, y, x) array."""
+    return _block_sums(npp, cov, ocean, area_rows, *planes, **kw)
+
+
 @dataclass
 class RegionSumsLazy:
     """Lazy regional sums for one month and model; finish with :func:`finish_totals`."""
@@ -497,19 +502,20 @@ def region_sums(
     )
     rows = da.from_array(np.asarray(area_rows_m2, np.float64)[:, None], chunks=(chunks[0], 1))
     n = len(names)
-    parts = da.map_blocks(
-        _block_sums,
-        npp,
-        cov,
-        oc,
-        rows,
-        *[b[k] for k in range(b.shape[0])],
+    # one task per block; the planes enter as one (planes, y, x) block, not one getitem
+    # task per plane (those changed dask's task order so that every block's month mean was
+    # held until the end: +0.12 GiB at 1/12 degree)
+    parts = da.blockwise(
+        _block_sums_stacked, "yxrf",
+        npp, "yx", cov, "yx", oc, "yx", rows, "yw", b, "pyx",
+        new_axes={"r": n, "f": len(SUM_FIELDS)},
+        adjust_chunks={"y": lambda _: 1, "x": lambda _: 1},
+        concatenate=True,
+        dtype=np.float64,
+        meta=np.empty((0, 0, 0, 0), np.float64),
         n_regions=n,
         n_label_layers=n_layers,
         bit_regions=tuple(bit_regions),
-        new_axis=[2, 3],
-        chunks=((1,) * len(chunks[0]), (1,) * len(chunks[1]), (n,), (len(SUM_FIELDS),)),
-        dtype=np.float64,
     )
     return RegionSumsLazy(
         regions=list(names),
