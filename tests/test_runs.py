@@ -467,3 +467,41 @@ def test_figures_follow_their_maps(tmp_path):
     assert CliRunner().invoke(main, ["run", str(cfg_path), "--force"]).exit_code == 0
     assert _ident(png) != ino
     _consistent(out)
+
+
+def test_outputs_added_to_a_run_commit_as_one_unit(tmp_path):
+    """Commands that add to a committed run (comparisons, figures) go through the same staging:
+    the run's outputs stay, a new set of one kind replaces the old set, a failure changes
+    nothing, and a folder without a run is refused without leaving a folder behind."""
+    cfg = load_config(_months_case(tmp_path, 2))
+    run(cfg, progress=False)
+    out = tmp_path / "out"
+    folder = runfolder.OutputFolder(out)
+    with folder.adding("test add", replace_kinds=("comparison",)) as (stage, added):
+        stage.file("a.csv").write_text("a\n")
+        added["a.csv"] = {"kind": "comparison"}
+    man = _consistent(out)
+    assert man["outputs"]["a.csv"]["kind"] == "comparison"
+    assert "npp_vgpm_2023-01.nc" in man["outputs"]
+    assert man["added"][-1]["outputs"] == ["a.csv"]
+
+    before = folder_bytes(out)
+    with pytest.raises(RuntimeError, match="half way"), \
+            folder.adding("test fail", replace_kinds=("comparison",)) as (stage, added):
+        stage.file("b.csv").write_text("b\n")
+        added["b.csv"] = {"kind": "comparison"}
+        raise RuntimeError("half way")
+    assert folder_bytes(out) == before and _debris(out) == []
+
+    with folder.adding("test replace", replace_kinds=("comparison",)) as (stage, added):
+        stage.file("b.csv").write_text("b\n")
+        added["b.csv"] = {"kind": "comparison"}
+    man = _consistent(out)
+    assert "b.csv" in man["outputs"] and "a.csv" not in man["outputs"]
+    assert not (out / "a.csv").exists()
+
+    empty = tmp_path / "nothing_here"
+    with pytest.raises(runfolder.NoRunError, match="no euphotic run in this folder"), \
+            runfolder.OutputFolder(empty).adding("x"):
+        pass
+    assert not empty.exists()

@@ -59,6 +59,10 @@ class OutputBusyError(EuphoticError):
     exit_code = 3
 
 
+class NoRunError(EuphoticError):
+    """A folder holds no committed euphotic run."""
+
+
 class OutputWriteError(EuphoticError):
     """Outputs could not be written (disk full, permissions, file system errors)."""
 
@@ -374,6 +378,49 @@ class OutputFolder:
                 remove_path(self.path / name)
         _fsync_dir(self.path)
         remove_path(stage_path)
+
+    @contextlib.contextmanager
+    def adding(self, command: str, *, replace_kinds: tuple[str, ...] = ()
+               ) -> Iterator[tuple[Stage, dict]]:
+        """Add outputs derived from the committed run (comparisons, figures, reports) as one
+        unit, under the folder's lock.
+
+        Yields the stage and a dict to fill with ``name -> manifest entry`` for every file the
+        caller writes into the stage (each entry with a ``kind``). On success the new files are
+        committed together with an updated manifest that keeps every earlier output, except
+        those of a kind in ``replace_kinds`` that the caller did not write again (a new set of
+        comparison tables replaces the old set). On any failure nothing changes.
+
+        Raises
+        ------
+        NoRunError
+            The folder holds no committed run.
+        """
+        with self.locked(command):
+            pending = self.recover()
+            self.discard_stale(pending)
+            previous = self.manifest()
+            if previous is None:
+                raise NoRunError(f"{self.path}: no euphotic run in this folder (no "
+                                 f"{MANIFEST_NAME}); run `euphotic run` first")
+            stage = self.new_stage({"version": previous.get("version"), "command": command,
+                                    "started": now_iso()})
+            added: dict[str, dict] = {}
+            try:
+                yield stage, added
+                outputs = {n: e for n, e in previous["outputs"].items()
+                           if e.get("kind") not in replace_kinds or n in added}
+                for name in added:
+                    st = stage.file(name).stat()
+                    added[name] = {**added[name], "bytes": st.st_size, "mtime_ns": st.st_mtime_ns}
+                outputs.update(added)
+                history = list(previous.get("added", [])) + [
+                    {"command": command, "time": now_iso(), "outputs": sorted(added)}]
+                manifest = {**previous, "outputs": dict(sorted(outputs.items())), "added": history}
+                self.commit(stage, manifest, keep=set(outputs) - set(added))
+            except BaseException:
+                self.abort(stage)
+                raise
 
     def abort(self, stage: Stage) -> bool:
         """Remove a stage after a failure: nothing of the run is put in place. A stage whose
