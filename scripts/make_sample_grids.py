@@ -10,7 +10,11 @@ Inputs, each in a different but common layout, so the demo exercises the readers
 - par/:  daily-mean PAR photon flux, 1/12 degree, umol m-2 s-1, one time step per file;
 - sst/:  daily SST, 1/4 degree, packed int16 in kelvin (scale_factor/add_offset), longitudes
          in 0..360 and latitudes descending;
-- masks.nc: land flag and the Tollan Bank region mask on the chlorophyll grid.
+- masks.nc: land flag and the Tollan Bank region mask on the chlorophyll grid;
+- decade/: ten years (2015-2024) of monthly composites on a coarse 1/2-degree grid, one file
+         per year and input with twelve monthly time steps dated by time bounds (chl in mg m-3,
+         PAR in mol m-2 d-1, SST in degC), with an invented seasonal cycle, year-to-year
+         variability and a slow invented trend, for comparisons of years and trends.
 
 Usage: python scripts/make_sample_grids.py [--out sample_grids]
 """
@@ -234,7 +238,78 @@ def main(out: Path) -> None:
         )
 
 
+DECADE_SEED = 20150101
+DECADE_YEARS = range(2015, 2025)
+DECADE_RES = 0.5
+
+
+def decade(out: Path) -> None:
+    """Ten years of invented monthly composites (see the module docstring), in out/decade/."""
+    rng = np.random.default_rng(DECADE_SEED)
+    lat = centres(SOUTH, NORTH, DECADE_RES)
+    lon = centres(WEST, EAST, DECADE_RES)
+    ny, nx = len(lat), len(lon)
+    la, lo = np.meshgrid(lat, lon, indexing="ij")
+    land = land_flag(lat, lon)
+    folder = out / "decade"
+    folder.mkdir(parents=True)
+    dist_coast = np.clip((-16.5 - lo) / 8.0, 0, 1)
+    base_log = (np.log(0.15) + 1.4 * (1 - dist_coast) ** 2 + 1.1 * np.clip((la - 44) / 16, 0, 1)
+                + 0.3 * smooth_noise(rng, (ny, nx), 3))
+    coords = {
+        "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north"}),
+        "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east"}),
+    }
+    for year in DECADE_YEARS:
+        months = np.arange(np.datetime64(f"{year}-01"), np.datetime64(f"{year + 1}-01"))
+        starts = months.astype("datetime64[D]")
+        ends = (months + 1).astype("datetime64[D]")
+        year_anom = 0.12 * rng.standard_normal()  # a good or a poor year
+        chl, par, sst = [], [], []
+        for m, (a, b) in enumerate(zip(starts, ends, strict=True)):
+            mid = a + (b - a) // 2
+            doy = int((mid - mid.astype("datetime64[Y]")).astype(int)) + 1
+            # spring bloom peaking in April-May, stronger in the north; +1.5 % a year (invented)
+            bloom = 0.8 * np.exp(-0.5 * ((m - 3.5) / 1.3) ** 2) * np.clip((la - 42) / 14, 0.2, 1)
+            trend = np.log(1.015) * (year - 2015)
+            c = np.exp(base_log + bloom + trend + year_anom + 0.12 * smooth_noise(rng, (ny, nx), 4))
+            gaps = smooth_noise(rng, (ny, nx), 6) > 1.3 - 0.6 * np.clip((la - 52) / 8, 0, 1)
+            chl.append(np.where(land | gaps, np.nan, np.round(c, 3)))
+            cloud = 0.6 + 0.3 * (smooth_noise(rng, (ny, nx), 8) * 0.5 + 0.5).clip(0, 1)
+            par.append(np.where(land, np.nan, np.round(daily_par_mol(la, doy) * cloud, 2)))
+            seasonal = -3.0 * np.cos(2 * np.pi * (m - 1.5) / 12)  # coldest in February
+            t = (17.0 - 0.55 * (la - 40.0) + seasonal + 0.03 * (year - 2015)
+                 + 0.3 * smooth_noise(rng, (ny, nx), 4))
+            sst.append(np.where(land, np.nan, np.round(t, 2)))
+        time = ("time", starts.astype("datetime64[ns]"), {"standard_name": "time",
+                                                          "bounds": "time_bnds"})
+        for role, values, name, std, units_ in (
+            ("chl", chl, "chl", "mass_concentration_of_chlorophyll_a_in_sea_water", "mg m-3"),
+            ("par", par, "par", "surface_downwelling_photosynthetic_photon_flux_in_air",
+             "mol m-2 d-1"),
+            ("sst", sst, "sst", "sea_surface_temperature", "degC"),
+        ):
+            ds = xr.Dataset(
+                {name: (("time", "lat", "lon"), np.asarray(values, "f4"),
+                        {"standard_name": std, "units": units_,
+                         "cell_methods": "time: mean"}),
+                 "time_bnds": (("time", "nv"), np.stack([starts, ends], 1).astype("datetime64[ns]"))},
+                coords={"time": time, **coords},
+                attrs={"title": f"Maren Sea demo monthly {role} {year} (invented)",
+                       "Conventions": "CF-1.8"},
+            )
+            ds.to_netcdf(
+                folder / f"maren_{role}_monthly_{year}.nc",
+                encoding={name: {"zlib": True, "complevel": 6, "_FillValue": np.float32(-999.0)},
+                          "time": {"units": "days since 2015-01-01", "calendar": "standard"},
+                          "time_bnds": {"units": "days since 2015-01-01",
+                                        "calendar": "standard"}},
+            )
+
+
 if __name__ == "__main__":
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--out", type=Path, default=Path("sample_grids"))
-    main(ap.parse_args().out)
+    args = ap.parse_args()
+    main(args.out)
+    decade(args.out)

@@ -505,3 +505,12 @@ def test_outputs_added_to_a_run_commit_as_one_unit(tmp_path):
             runfolder.OutputFolder(empty).adding("x"):
         pass
     assert not empty.exists()
+
+
+def test_a_long_run_prints_its_last_month_and_points_at_the_table(tmp_path):
+    cfg_path = _months_case(tmp_path, 6)
+    res = CliRunner().invoke(main, ["run", str(cfg_path), "-q"])
+    assert res.exit_code == 0, res.output
+    assert (f"6 months; the last one below, all 6 rows in {tmp_path / 'out' / 'regional_totals.csv'}"
+            in res.stdout)
+    assert "2023-06" in res.stdout and "2023-05" not in res.stdout

@@ -115,7 +115,13 @@ def run(
     except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
         _fail(exc, debug)
         return
-    click.echo(format_totals(result.rows))
+    rows = result.rows
+    months = list(dict.fromkeys(r["month"] for r in rows))
+    if len(months) > 3:  # a long run: the last month on screen, everything in the table
+        rows = [r for r in rows if r["month"] == months[-1]]
+        click.echo(f"{len(months)} months; the last one below, all {len(result.rows)} rows in "
+                   f"{result.totals_csv}")
+    click.echo(format_totals(rows))
     click.echo("")
     from euphotic.outputs import CAUTION
 
