@@ -116,14 +116,14 @@ def _check_output(folder: Path, name: str, entry: dict) -> Path:
         st = _recorded_stat(path)
     except OSError:
         raise OutputChangedError(
-            f"{path}: missing, though the manifest of the run in {folder} lists it; run the "
+            f"{path}: listed in the manifest of the run in {folder} but missing; run that "
             "run again to rewrite it") from None
     if st["bytes"] != entry.get("bytes") or st["mtime_ns"] != entry.get("mtime_ns"):
         what = (f"size {st['bytes']} bytes, the manifest says {entry.get('bytes')}"
                 if st["bytes"] != entry.get("bytes") else "modification time differs")
         raise OutputChangedError(
-            f"{path}: changed since the run in {folder} wrote it ({what}); run the run again "
-            "to rewrite it")
+            f"{path}: changed since the run in {folder} wrote it ({what}); run that run "
+            "again to rewrite it")
     return path
 
 
@@ -184,7 +184,7 @@ def committed_manifest(folder: str | os.PathLike) -> dict:
             raise
 
 
-def _map_entries(folder: Path, manifest: dict) -> list[tuple[str, dict]]:
+def _map_entries(manifest: dict) -> list[tuple[str, dict]]:
     return [(n, e) for n, e in manifest["outputs"].items() if e.get("kind") == "map"]
 
 
@@ -287,7 +287,7 @@ def open_maps(
 
     path = Path(folder).absolute()
     manifest = committed_manifest(path)
-    entries = _map_entries(path, manifest)
+    entries = _map_entries(manifest)
     run_models = list(dict.fromkeys(
         [m for m in manifest.get("models", []) if any(e["model"] == m for _, e in entries)]
         + [e["model"] for _, e in entries]))
@@ -407,7 +407,7 @@ def open_totals(folder: str | os.PathLike) -> xr.Dataset:
     """
     path = Path(folder).absolute()
     manifest = committed_manifest(path)
-    entries = _map_entries(path, manifest)
+    entries = _map_entries(manifest)
     rows = [r for _, e in entries for r in e.get("rows", [])]
     models = list(dict.fromkeys(
         [m for m in manifest.get("models", []) if any(e["model"] == m for _, e in entries)]
