@@ -396,3 +396,23 @@ def test_a_changed_map_is_named(months_copy, opener):
     assert str(err.value) == (f"{f}: changed since the run in {months_copy} wrote it (size "
                               f"{st.st_size + 1} bytes, the manifest says {st.st_size}); run "
                               "that run again to rewrite it")
+
+
+def test_maps_are_opened_again_when_a_commit_lands_meanwhile(months_copy, monkeypatch):
+    """A commit replacing the manifest while the files are being opened (here: the manifest's
+    modification time changes after the first file) makes open_maps open them again, so the
+    Dataset never mixes files of two runs under one manifest."""
+    real, opened = results._open_map, []
+
+    def open_and_commit(path, chunks):
+        opened.append(path.name)
+        if len(opened) == 1:
+            man = months_copy / runfolder.MANIFEST_NAME
+            st = man.stat()
+            os.utime(man, ns=(st.st_atime_ns, st.st_mtime_ns + 1))
+        return real(path, chunks)
+
+    monkeypatch.setattr(results, "_open_map", open_and_commit)
+    ds = open_maps(months_copy)
+    assert len(opened) == 2 * len(MODELS) * len(MONTHS)
+    assert dict(ds.sizes) == {"model": 2, "time": 3, "lat": 20, "lon": 20}

@@ -51,6 +51,8 @@ TOTALS_VARIABLES: dict[str, str] = {
 #: How long a reader waits for a run that is committing right now (its renames take
 #: milliseconds) before it calls the folder inconsistent, in seconds.
 COMMIT_WAIT_S = 5.0
+#: Times the maps are opened again when a run commits while they are being opened.
+_OPEN_ATTEMPTS = 3
 
 
 class ResultsError(EuphoticError):
@@ -241,6 +243,63 @@ def _open_map(path: Path, chunks) -> xr.Dataset:
     return ds
 
 
+def _manifest_id(folder: Path) -> tuple | None:
+    """Identity of the manifest file: a commit replaces it (new inode and time)."""
+    try:
+        st = (folder / runfolder.MANIFEST_NAME).stat()
+    except OSError:
+        return None
+    return st.st_ino, st.st_mtime_ns, st.st_size
+
+
+def _select(path: Path, manifest: dict, models, months) -> tuple[list[str], list]:
+    """The run's models (in its order) and the map entries of the requested models/months."""
+    entries = _map_entries(manifest)
+    run_models = list(dict.fromkeys(
+        [m for m in manifest.get("models", []) if any(e["model"] == m for _, e in entries)]
+        + [e["model"] for _, e in entries]))
+    if models is not None:
+        models = [models] if isinstance(models, str) else list(models)
+        unknown = [m for m in models if m not in run_models]
+        if unknown:
+            raise SelectionError(
+                f"{path}: no maps of model(s) {', '.join(unknown)} in this run "
+                f"(it has {', '.join(run_models) or 'none'})")
+        run_models = list(dict.fromkeys(models))
+    entries = [(n, e) for n, e in entries if e["model"] in run_models]
+    if months is not None:
+        wanted = {_month(m) for m in ([months] if isinstance(months, str) else months)}
+        have = {_month(e["month"]) for _, e in entries}
+        unknown = [str(m) for m in sorted(wanted) if m not in have]
+        if unknown:
+            raise SelectionError(
+                f"{path}: no maps of month(s) {', '.join(unknown)} in this run (it has "
+                f"{', '.join(str(m) for m in sorted(have)) or 'none'})")
+        entries = [(n, e) for n, e in entries if _month(e["month"]) in wanted]
+    if not entries:
+        raise SelectionError(f"{path}: the run has no month maps to open")
+    return run_models, entries
+
+
+def _open_files(path: Path, entries, chunks) -> tuple[dict, xr.Dataset]:
+    """Each map file opened lazily, keyed by (model, month); all on one grid."""
+    files: dict[tuple[str, np.datetime64], xr.Dataset] = {}
+    ref = None
+    for name, e in entries:
+        ds = _open_map(path / name, chunks)
+        if ref is None:
+            ref = ds
+        elif ds.sizes["lat"] != ref.sizes["lat"] or ds.sizes["lon"] != ref.sizes["lon"] \
+                or not np.array_equal(ds["lat"].values, ref["lat"].values) \
+                or not np.array_equal(ds["lon"].values, ref["lon"].values):
+            for d in [*files.values(), ds]:
+                d.close()
+            raise OutputChangedError(
+                f"{path / name}: its grid differs from that of {path / entries[0][0]}")
+        files[(e["model"], _month(e["month"]))] = ds
+    return files, ref
+
+
 def open_maps(
     folder: str | os.PathLike,
     *,
@@ -286,46 +345,17 @@ def open_maps(
     import dask.array as da
 
     path = Path(folder).absolute()
-    manifest = committed_manifest(path)
-    entries = _map_entries(manifest)
-    run_models = list(dict.fromkeys(
-        [m for m in manifest.get("models", []) if any(e["model"] == m for _, e in entries)]
-        + [e["model"] for _, e in entries]))
-    if models is not None:
-        models = [models] if isinstance(models, str) else list(models)
-        unknown = [m for m in models if m not in run_models]
-        if unknown:
-            raise SelectionError(
-                f"{path}: no maps of model(s) {', '.join(unknown)} in this run "
-                f"(it has {', '.join(run_models) or 'none'})")
-        run_models = list(dict.fromkeys(models))
-    entries = [(n, e) for n, e in entries if e["model"] in run_models]
-    if months is not None:
-        wanted = sorted({_month(m) for m in ([months] if isinstance(months, str) else months)})
-        have = {_month(e["month"]) for _, e in entries}
-        unknown = [str(m) for m in wanted if m not in have]
-        if unknown:
-            raise SelectionError(
-                f"{path}: no maps of month(s) {', '.join(unknown)} in this run (it has "
-                f"{', '.join(str(m) for m in sorted(have)) or 'none'})")
-        entries = [(n, e) for n, e in entries if _month(e["month"]) in set(wanted)]
-    if not entries:
-        raise SelectionError(f"{path}: the run has no month maps to open")
-
-    month_list = sorted({_month(e["month"]) for _, e in entries})
+    for attempt in range(_OPEN_ATTEMPTS):
+        before = _manifest_id(path)
+        manifest = committed_manifest(path)
+        run_models, entries = _select(path, manifest, models, months)
+        files, ref = _open_files(path, entries, {} if chunks is None else chunks)
+        if _manifest_id(path) == before or attempt == _OPEN_ATTEMPTS - 1:
+            break
+        for ds in files.values():  # a run committed while the files were opened: again
+            ds.close()
+    month_list = sorted({mo for _, mo in files})
     index = {m: i for i, m in enumerate(month_list)}
-    files: dict[tuple[str, np.datetime64], xr.Dataset] = {}
-    ref = None
-    for name, e in entries:
-        ds = _open_map(path / name, {} if chunks is None else chunks)
-        if ref is None:
-            ref = ds
-        elif ds.sizes["lat"] != ref.sizes["lat"] or ds.sizes["lon"] != ref.sizes["lon"] \
-                or not np.array_equal(ds["lat"].values, ref["lat"].values) \
-                or not np.array_equal(ds["lon"].values, ref["lon"].values):
-            raise OutputChangedError(
-                f"{path / name}: its grid differs from that of {path / entries[0][0]}")
-        files[(e["model"], _month(e["month"]))] = ds
 
     times = np.full(len(month_list), np.datetime64("NaT"), dtype="datetime64[ns]")
     for (_, mo), ds in files.items():
