@@ -51,3 +51,7 @@ class NoOverlapError(EuphoticError):
 
 class NoValidDataError(EuphoticError):
     """A run would produce no valid estimate at all (every input value missing or masked)."""
+
+
+class NoRunError(EuphoticError):
+    """A folder holds no committed euphotic run."""

@@ -435,13 +435,7 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
     return result
 
 
-def _stat(path: Path) -> dict:
-    st = path.stat()
-    if path.is_dir():
-        size = sum(p.stat().st_size for p in path.rglob("*") if p.is_file())
-    else:
-        size = st.st_size
-    return {"bytes": size, "mtime_ns": st.st_mtime_ns}
+_stat = runfolder.stat_entry
 
 
 def _intact(path: Path, entry: dict) -> bool:

@@ -29,7 +29,7 @@ import numpy as np
 import xarray as xr
 
 from euphotic import runfolder
-from euphotic.errors import EuphoticError
+from euphotic.errors import EuphoticError, NoRunError
 from euphotic.outputs import CAUTION, PUBLISHED_NAMES, TOTALS_SPEC
 
 #: Variables of a map file that the maps Dataset carries (the rest, bounds and the CRS
@@ -57,10 +57,6 @@ _OPEN_ATTEMPTS = 3
 
 class ResultsError(EuphoticError):
     """An output folder cannot be read as one committed run."""
-
-
-class NoRunError(ResultsError):
-    """The folder holds no committed euphotic run (no manifest, or one that cannot be read)."""
 
 
 class InterruptedCommitError(ResultsError):
@@ -107,9 +103,7 @@ def _writer_running(folder: Path) -> bool:
 def _recorded_stat(path: Path) -> dict:
     """Size and modification time as the run recorded them in its manifest (for a Zarr store:
     the bytes of all its files and the store folder's own modification time)."""
-    from euphotic.pipeline import _stat  # the one definition the manifest is written with
-
-    return _stat(path)
+    return runfolder.stat_entry(path)  # the one definition the manifest is written with
 
 
 def _check_output(folder: Path, name: str, entry: dict) -> Path:

@@ -39,7 +39,7 @@ from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from euphotic.errors import EuphoticError
+from euphotic.errors import EuphoticError, NoRunError  # noqa: F401 (re-exported)
 
 log = logging.getLogger("euphotic")
 
@@ -57,10 +57,6 @@ class OutputBusyError(EuphoticError):
     """Another run holds the output folder."""
 
     exit_code = 3
-
-
-class NoRunError(EuphoticError):
-    """A folder holds no committed euphotic run."""
 
 
 class OutputWriteError(EuphoticError):
@@ -217,6 +213,15 @@ class Stage:
         if index.get("tool") != "euphotic":
             return None
         return cls(path, index)
+
+
+def stat_entry(path: Path) -> dict:
+    """Size (bytes; every file of a Zarr store) and modification time (ns) of an output, as
+    the manifest records them and as readers check them."""
+    p = Path(path)
+    st = p.stat()
+    size = sum(f.stat().st_size for f in p.rglob("*") if f.is_file()) if p.is_dir() else st.st_size
+    return {"bytes": size, "mtime_ns": st.st_mtime_ns}
 
 
 def file_entry(path: Path) -> dict:
