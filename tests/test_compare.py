@@ -439,3 +439,19 @@ def test_bad_input_messages(call, message):
     with pytest.raises(CompareInputError) as err:
         call(make_totals(n_years=3))
     assert str(err.value) == message
+
+
+def test_numpy_and_dask_maps_give_one_answer():
+    maps = make_maps()
+    eager = maps.compute()
+    assert eager["npp"].chunks is None
+    for fn in (lambda m: compare.climatology(m, baseline=(2002, 2006)),
+               lambda m: compare.seasonal_cycle(m, years=(2001, 2003)),
+               lambda m: compare.difference(m, 2001, (2010, 2012)),
+               lambda m: compare.trend_map(m, annual=True)):
+        lazy, now = fn(maps).compute(), fn(eager)
+        assert lazy.attrs == now.attrs
+        # float64 arithmetic: dask sums per chunk, numpy pairwise, so the last bits may differ
+        # (1e-12 relative allows a few roundings of float64, epsilon 2.2e-16)
+        xr.testing.assert_allclose(lazy, now, rtol=1e-12)
+        assert all(v.dtype in (np.float64, np.int64, bool) for v in lazy.data_vars.values())

@@ -4,8 +4,7 @@ differences between years or periods, and trends.
 Pure functions on the Datasets of :mod:`euphotic.results` (``open_totals``: dims
 ``(region, month, model)``; ``open_maps``: dims ``(model, time, lat, lon)`` with a ``month``
 coordinate along ``time``) or a DataArray taken from them. Nothing here reads a file, and
-nothing computes where the input is dask-backed (apart from :func:`trend` on lazy input, which
-must look at the values to warn about short records; it does not, see its Notes). Every output
+nothing computes where the input is dask-backed: the results are lazy too. Every output
 variable carries a ``units`` attribute; the ``model`` dimension is kept throughout, so models
 run side by side are compared side by side.
 
@@ -18,13 +17,16 @@ are dropped (NaN) before anything is computed; the output's attrs record ``min_c
 ``n_dropped_low_coverage`` (the number of values dropped). For dask-backed input that count
 is not known without computing, so it is returned instead as a lazy 0-d data variable of the
 same name.
+
+Arithmetic is in float64 (the maps' float32 values are converted chunk by chunk), so outputs
+are float64.
 """
 
 from __future__ import annotations
 
 import logging
 import warnings
-from collections.abc import Hashable, Sequence
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -77,7 +79,7 @@ def _kind(x: xr.DataArray | xr.Dataset) -> str:
 
 
 def _is_lazy(da: xr.DataArray) -> bool:
-    return not isinstance(da.variable._data, np.ndarray) and da.chunks is not None
+    return da.chunks is not None
 
 
 def _check_fraction(name: str, value: float | None) -> None:
@@ -101,13 +103,13 @@ def _select(
             raise CompareInputError(
                 f"min_coverage: needs the 'coverage' variable; pass the Dataset, not the DataArray {x.name!r}"
             )
-        return x, attrs, {}
+        return _as_float64(x), attrs, {}
     name = variable or _DEFAULT_VARIABLE[_kind(x)]
     if name not in x.data_vars:
         raise CompareInputError(
             f"variable {name!r}: not in the dataset (has {sorted(map(str, x.data_vars))})"
         )
-    da = x[name]
+    da = _as_float64(x[name])
     extra: dict[str, xr.DataArray] = {}
     if min_coverage is not None:
         if "coverage" not in x.data_vars:
@@ -123,6 +125,17 @@ def _select(
         else:
             attrs["n_dropped_low_coverage"] = int(dropped)
     return da, attrs, extra
+
+
+def _as_float64(da: xr.DataArray) -> xr.DataArray:
+    """Float64 for the arithmetic (float32 maps lose digits in differences of means), lazily."""
+    if da.dtype == np.float64:
+        return da
+    if not np.issubdtype(da.dtype, np.number):
+        raise CompareInputError(f"variable {da.name!r}: not numeric (dtype {da.dtype})")
+    out = da.astype(np.float64)
+    out.attrs = dict(da.attrs)
+    return out
 
 
 def _units(da: xr.DataArray) -> str:
@@ -664,7 +677,8 @@ def trend(
     -----
     Time is in years since 1 January of the record's first year (attr ``time_origin``): month
     m of year Y is at (Y - Y0) + (m - 0.5) / 12 (months taken as equal twelfths of a year),
-    year Y at (Y - Y0) + 0.5.
+    year Y at (Y - Y0) + 0.5. On deseasonalised values the intercept is the fitted anomaly at
+    the origin (near 0), not a level.
 
     Slope, intercept and confidence interval are :func:`scipy.stats.theilslopes` (Sen 1968,
     intercept median(y) - slope median(t), interval from Kendall's tau statistic). The trend
@@ -713,7 +727,7 @@ def trend_map(
     )
 
 
-__all__: list[Hashable] = [
+__all__ = [
     "CompareInputError", "annual_totals", "seasonal_cycle", "climatology", "anomalies",
     "difference", "trend", "trend_map", "TG_PER_PG", "MIN_TREND_YEARS",
 ]
