@@ -455,3 +455,20 @@ def test_numpy_and_dask_maps_give_one_answer():
         # (1e-12 relative allows a few roundings of float64, epsilon 2.2e-16)
         xr.testing.assert_allclose(lazy, now, rtol=1e-12)
         assert all(v.dtype in (np.float64, np.int64, bool) for v in lazy.data_vars.values())
+
+
+def test_p_value_is_the_mann_kendall_z_test_without_continuity_correction():
+    # Mann-Kendall by its textbook formulas (Kendall 1975, as usually quoted; from memory):
+    # S = sum_{i<j} sign(y_j - y_i), var S = [n(n-1)(2n+5) - sum_t t(t-1)(2t+5)] / 18 over tie
+    # groups of size t, z = S / sqrt(var S) (here without the continuity correction, as
+    # documented), p = erfc(|z| / sqrt 2). Values rounded to 0.1 so that there are ties.
+    import math
+
+    y = np.round(np.random.default_rng(5).normal(10.0, 1.0, 144) + 0.004 * np.arange(144), 1)
+    out = compare.trend(make_totals(y[None, :, None]), deseasonalise=False)
+    n = y.size
+    s = sum(np.sign(y[j] - y[i]) for i in range(n) for j in range(i + 1, n))
+    _, t = np.unique(y, return_counts=True)
+    var_s = (n * (n - 1) * (2 * n + 5) - np.sum(t * (t - 1) * (2 * t + 5))) / 18.0
+    p = math.erfc(abs(s / math.sqrt(var_s)) / math.sqrt(2.0))
+    assert out["p_value"].sel(region="Maren Sea", model="vgpm").item() == pytest.approx(p, rel=1e-9)
