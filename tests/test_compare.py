@@ -433,6 +433,8 @@ def test_short_record_warning_on_lazy_maps_uses_the_record_length(caplog, no_com
          "a: expected a year or (first_year, last_year), got [2001, 2002, 2003]"),
         (lambda ds: compare.seasonal_cycle(ds.isel(month=0, drop=True)),
          "input: no 'time' or 'month' dimension (has ['model', 'region'])"),
+        (lambda ds: compare.anomalies(ds.rename(month="time"), compare.climatology(ds)),
+         "input: no 'month' coordinate along 'time' (first day of each month)"),
     ],
 )
 def test_bad_input_messages(call, message):

@@ -92,7 +92,9 @@ def _select(
 ) -> tuple[xr.DataArray, dict[str, Any], dict[str, xr.DataArray]]:
     """The variable to work on (masked by coverage), the attrs to carry, and any lazy count."""
     _check_fraction("min_coverage", min_coverage)
-    _time_dim(x)
+    tdim = _time_dim(x)
+    if "month" not in x.coords or x["month"].dims != (tdim,):
+        raise CompareInputError(f"input: no 'month' coordinate along {tdim!r} (first day of each month)")
     attrs: dict[str, Any] = dict(x.attrs) if isinstance(x, xr.Dataset) else {}
     if isinstance(x, xr.DataArray):
         if variable is not None and variable != x.name:
