@@ -1,0 +1,735 @@
+"""Comparisons on a run's results: annual totals, seasonal cycles, climatologies, anomalies,
+differences between years or periods, and trends.
+
+Pure functions on the Datasets of :mod:`euphotic.results` (``open_totals``: dims
+``(region, month, model)``; ``open_maps``: dims ``(model, time, lat, lon)`` with a ``month``
+coordinate along ``time``) or a DataArray taken from them. Nothing here reads a file, and
+nothing computes where the input is dask-backed: the results are lazy too. Every output
+variable carries a ``units`` attribute; the ``model`` dimension is kept throughout, so models
+run side by side are compared side by side.
+
+Calendar months come from the ``month`` coordinate (first day of the month). Outputs by
+calendar month have a dimension ``calendar_month`` (1-12, always all twelve; a calendar month
+without data is NaN, never 0).
+
+Coverage: every function takes ``min_coverage`` (0-1). Values whose ``coverage`` is below it
+are dropped (NaN) before anything is computed; the output's attrs record ``min_coverage`` and
+``n_dropped_low_coverage`` (the number of values dropped). For dask-backed input that count
+is not known without computing, so it is returned instead as a lazy 0-d data variable of the
+same name.
+
+Arithmetic is in float64 (the maps' float32 values are converted chunk by chunk), so outputs
+are float64.
+"""
+
+from __future__ import annotations
+
+import logging
+import warnings
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import xarray as xr
+
+from euphotic.errors import EuphoticError
+
+_log = logging.getLogger("euphotic")
+
+#: Teragrams per petagram (SI prefixes: 1 Pg = 1e15 g = 1000 Tg).
+TG_PER_PG = 1000.0
+#: Months in a calendar year.
+MONTHS_PER_YEAR = 12
+#: Fewest years of record for a trend to be taken at face value. Common practice (a rule of
+#: thumb, from memory, not from one citable source): trends of ocean productivity over fewer than
+#: about a decade are dominated by interannual variability (e.g. ENSO), so shorter records are
+#: flagged ``short_record`` and warned about.
+MIN_TREND_YEARS = 10
+
+#: Variables of the totals table that are amounts per month (summed to a year, not averaged).
+_EXTENSIVE = ("total", "total_filled")
+#: Default variable per kind of input.
+_DEFAULT_VARIABLE = {"maps": "npp", "totals": "total"}
+
+Years = int | tuple[int, int] | Sequence[int] | None
+
+
+class CompareInputError(EuphoticError):
+    """A comparison got data or options it cannot use: a missing variable or dimension, a
+    period with no months in the record, mismatched grids or regions, an option out of range.
+    The message names the argument (or variable) and the problem in one line."""
+
+
+# --------------------------------------------------------------------------------------------
+# helpers
+
+
+def _time_dim(da: xr.DataArray | xr.Dataset) -> str:
+    if "time" in da.dims:
+        return "time"
+    if "month" in da.dims:
+        return "month"
+    raise CompareInputError(
+        f"input: no 'time' or 'month' dimension (has {sorted(map(str, da.dims))})"
+    )
+
+
+def _kind(x: xr.DataArray | xr.Dataset) -> str:
+    return "maps" if "time" in x.dims else "totals"
+
+
+def _is_lazy(da: xr.DataArray) -> bool:
+    return da.chunks is not None
+
+
+def _check_fraction(name: str, value: float | None) -> None:
+    if value is not None and not (0.0 <= float(value) <= 1.0):
+        raise CompareInputError(f"{name}: must be between 0 and 1, got {value!r}")
+
+
+def _select(
+    x: xr.Dataset | xr.DataArray, variable: str | None, min_coverage: float | None
+) -> tuple[xr.DataArray, dict[str, Any], dict[str, xr.DataArray]]:
+    """The variable to work on (masked by coverage), the attrs to carry, and any lazy count."""
+    _check_fraction("min_coverage", min_coverage)
+    tdim = _time_dim(x)
+    if "month" not in x.coords or x["month"].dims != (tdim,):
+        raise CompareInputError(f"input: no 'month' coordinate along {tdim!r} (first day of each month)")
+    attrs: dict[str, Any] = dict(x.attrs) if isinstance(x, xr.Dataset) else {}
+    if isinstance(x, xr.DataArray):
+        if variable is not None and variable != x.name:
+            raise CompareInputError(
+                f"variable {variable!r}: a DataArray named {x.name!r} was given; pass the Dataset"
+            )
+        if min_coverage is not None:
+            raise CompareInputError(
+                f"min_coverage: needs the 'coverage' variable; pass the Dataset, not the DataArray {x.name!r}"
+            )
+        return _as_float64(x), attrs, {}
+    name = variable or _DEFAULT_VARIABLE[_kind(x)]
+    if name not in x.data_vars:
+        raise CompareInputError(
+            f"variable {name!r}: not in the dataset (has {sorted(map(str, x.data_vars))})"
+        )
+    da = _as_float64(x[name])
+    extra: dict[str, xr.DataArray] = {}
+    if min_coverage is not None:
+        if "coverage" not in x.data_vars:
+            raise CompareInputError("min_coverage: the dataset has no 'coverage' variable")
+        low = x["coverage"] < min_coverage  # NaN coverage compares False: not dropped
+        dropped = (da.notnull() & low).sum()
+        da = da.where(~low)
+        da.attrs = dict(x[name].attrs)
+        attrs["min_coverage"] = float(min_coverage)
+        if _is_lazy(dropped):
+            dropped.attrs = {"units": "1", "long_name": "values dropped for coverage below min_coverage"}
+            extra["n_dropped_low_coverage"] = dropped
+        else:
+            attrs["n_dropped_low_coverage"] = int(dropped)
+    return da, attrs, extra
+
+
+def _as_float64(da: xr.DataArray) -> xr.DataArray:
+    """Float64 for the arithmetic (float32 maps lose digits in differences of means), lazily."""
+    if da.dtype == np.float64:
+        return da
+    if not np.issubdtype(da.dtype, np.number):
+        raise CompareInputError(f"variable {da.name!r}: not numeric (dtype {da.dtype})")
+    out = da.astype(np.float64)
+    out.attrs = dict(da.attrs)
+    return out
+
+
+def _units(da: xr.DataArray) -> str:
+    return str(da.attrs.get("units", "1"))
+
+
+def _per_year(units: str) -> str:
+    """Units of a rate of change per year: ``Tg yr-1`` -> ``Tg yr-2``, ``mg m-2 d-1`` ->
+    ``mg m-2 d-1 yr-1``."""
+    if units.endswith(" yr-1"):
+        return units[: -len(" yr-1")] + " yr-2"
+    return f"{units} yr-1"
+
+
+def _years_of(da: xr.DataArray) -> xr.DataArray:
+    return da["month"].dt.year.rename("year")
+
+
+def _calendar_of(da: xr.DataArray) -> xr.DataArray:
+    return da["month"].dt.month.rename("calendar_month")
+
+
+def _year_set(years: Years, what: str) -> tuple[int, int] | list[int] | None:
+    if years is None:
+        return None
+    if isinstance(years, (int, np.integer)):
+        return (int(years), int(years))
+    if isinstance(years, tuple) and len(years) == 2:
+        first, last = int(years[0]), int(years[1])
+        if first > last:
+            raise CompareInputError(f"{what}: first year {first} is after last year {last}")
+        return (first, last)
+    return sorted(int(y) for y in years)
+
+
+def _pick_years(da: xr.DataArray, years: Years, what: str) -> xr.DataArray:
+    """``da`` restricted to the months of the chosen years (an error if none are left)."""
+    chosen = _year_set(years, what)
+    if chosen is None:
+        return da
+    yr = _years_of(da).values
+    keep = (yr >= chosen[0]) & (yr <= chosen[1]) if isinstance(chosen, tuple) else np.isin(yr, chosen)
+    if not keep.any():
+        span = f"{yr.min()}-{yr.max()}" if yr.size else "empty"
+        raise CompareInputError(f"{what}: no month of the record ({span}) falls in {years!r}")
+    return da.isel({_time_dim(da): np.flatnonzero(keep)})
+
+
+def _by_calendar_month(grouped: xr.DataArray) -> xr.DataArray:
+    return grouped.reindex(calendar_month=np.arange(1, MONTHS_PER_YEAR + 1))
+
+
+def _out(data: dict[str, xr.DataArray], attrs: dict[str, Any], extra: dict[str, xr.DataArray]):
+    ds = xr.Dataset({**data, **extra})
+    ds.attrs = attrs
+    return ds
+
+
+def _period_label(years: Years) -> str:
+    chosen = _year_set(years, "period")
+    if isinstance(chosen, tuple):
+        return str(chosen[0]) if chosen[0] == chosen[1] else f"{chosen[0]}-{chosen[1]}"
+    return "all" if chosen is None else ",".join(map(str, chosen))
+
+
+# --------------------------------------------------------------------------------------------
+# annual totals
+
+
+def annual_totals(
+    totals: xr.Dataset | xr.DataArray,
+    *,
+    min_months: int = MONTHS_PER_YEAR,
+    keep_partial: bool = False,
+    variable: str | None = None,
+    min_coverage: float | None = None,
+) -> xr.Dataset:
+    """Carbon fixed per region, calendar year and model.
+
+    Parameters
+    ----------
+    totals : xarray.Dataset or DataArray
+        The totals table (:func:`euphotic.results.open_totals`), or its ``total`` /
+        ``total_filled`` variable; Tg of carbon per month.
+    min_months : int, keyword-only
+        Months with a value a year needs to count as complete (default 12).
+    keep_partial : bool, keyword-only
+        Keep the sum over the months present for incomplete years (still flagged). By default
+        an incomplete year's total is NaN, since a sum over fewer months is not a yearly total.
+    variable : str, keyword-only
+        ``"total"`` (default: observed cells) or ``"total_filled"``.
+    min_coverage : float, keyword-only
+        Drop months whose ``coverage`` (0-1) is below this before summing (they then count as
+        missing).
+
+    Returns
+    -------
+    xarray.Dataset
+        Dims ``(region, year, model)``: ``total`` (Tg yr-1 of carbon), ``total_pg`` (Pg yr-1,
+        the same divided by 1000), ``n_months`` (months with a value, 1) and ``flag`` (str:
+        ``""``, ``"incomplete_year"`` when ``n_months < min_months``, ``"no_data"`` when 0).
+
+    Notes
+    -----
+    total(year) = sum over the year's months with a value of total(month); 1 Pg = 1000 Tg.
+    """
+    if not 1 <= int(min_months) <= MONTHS_PER_YEAR:
+        raise CompareInputError(f"min_months: must be between 1 and 12, got {min_months!r}")
+    da, attrs, extra = _select(totals, variable, min_coverage)
+    if _time_dim(da) != "month":
+        raise CompareInputError("totals: annual totals need the totals table (dim 'month')")
+    if _units(da) != "Tg":
+        raise CompareInputError(
+            f"variable {da.name!r}: annual totals sum amounts in 'Tg' per month, got units {_units(da)!r}"
+        )
+    grouped = da.groupby(_years_of(da))
+    total = grouped.sum(skipna=True, min_count=1)
+    n = da.notnull().groupby(_years_of(da)).sum().astype(np.int64)
+    incomplete = n < int(min_months)
+    if not keep_partial:
+        total = total.where(~incomplete)
+    flag = xr.where(n == 0, "no_data", xr.where(incomplete, "incomplete_year", ""))
+    total.attrs = {"units": "Tg yr-1", "long_name": "carbon fixed in the year (net primary production)"}
+    pg = total / TG_PER_PG
+    pg.attrs = {"units": "Pg yr-1", "long_name": "carbon fixed in the year (net primary production)"}
+    n.attrs = {"units": "1", "long_name": "months with a value"}
+    flag.attrs = {"long_name": "quality flag", "flag_meanings": "'' incomplete_year no_data"}
+    attrs.update(min_months=int(min_months), keep_partial=int(bool(keep_partial)), source_variable=str(da.name))
+    order = [d for d in ("region", "year", "model") if d in total.dims]
+    data = {k: v.transpose(*order, ...) for k, v in
+            {"total": total, "total_pg": pg, "n_months": n, "flag": flag}.items()}
+    return _out(data, attrs, extra)
+
+
+# --------------------------------------------------------------------------------------------
+# seasonal cycle and climatology
+
+
+def seasonal_cycle(
+    x: xr.Dataset | xr.DataArray,
+    *,
+    years: Years = None,
+    variable: str | None = None,
+    min_coverage: float | None = None,
+) -> xr.Dataset:
+    """Mean, minimum, maximum, range and count by calendar month over chosen years.
+
+    Parameters
+    ----------
+    x : xarray.Dataset or DataArray
+        Totals (default variable ``total``, Tg per month) or maps (default ``npp``,
+        mg m-2 d-1), or one variable of them.
+    years : int, (first, last) or list of int, keyword-only
+        Years to use (a span includes both ends); all by default.
+    variable, min_coverage : keyword-only
+        The variable to use, and the minimum coverage (0-1) below which values are dropped.
+
+    Returns
+    -------
+    xarray.Dataset
+        The time dimension replaced by ``calendar_month`` (1-12): ``mean``, ``min``, ``max``,
+        ``range`` (max - min), all in the variable's units, and ``count`` (years with a value,
+        1). A calendar month with no value is NaN (count 0).
+    """
+    da, attrs, extra = _select(x, variable, min_coverage)
+    da = _pick_years(da, years, "years")
+    g = da.groupby(_calendar_of(da))
+    units = _units(da)
+    out = {
+        "mean": _by_calendar_month(g.mean(skipna=True)),
+        "min": _by_calendar_month(g.min(skipna=True)),
+        "max": _by_calendar_month(g.max(skipna=True)),
+    }
+    out["range"] = out["max"] - out["min"]
+    for k, v in out.items():
+        v.attrs = {"units": units, "long_name": f"{k} of {da.name} by calendar month"}
+    count = _by_calendar_month(da.notnull().groupby(_calendar_of(da)).sum()).fillna(0).astype(np.int64)
+    count.attrs = {"units": "1", "long_name": "years with a value"}
+    out["count"] = count
+    out = {k: _drop_time_coords(v) for k, v in out.items()}
+    attrs.update(source_variable=str(da.name), years=_period_label(years))
+    return _out(out, attrs, extra)
+
+
+def _drop_time_coords(da: xr.DataArray) -> xr.DataArray:
+    return da.drop_vars([c for c in ("days_in_month", "month", "time") if c in da.coords and c not in da.dims])
+
+
+def climatology(
+    x: xr.Dataset | xr.DataArray,
+    *,
+    baseline: tuple[int, int] | None = None,
+    variable: str | None = None,
+    min_coverage: float | None = None,
+) -> xr.Dataset:
+    """Mean by calendar month over a baseline period, per cell (maps) or per region (totals).
+
+    Parameters
+    ----------
+    x : xarray.Dataset or DataArray
+        Totals (default variable ``total``, Tg per month) or maps (default ``npp``,
+        mg m-2 d-1).
+    baseline : (first_year, last_year), keyword-only
+        Baseline years, both included; by default the whole record.
+    variable, min_coverage : keyword-only
+        As in :func:`seasonal_cycle`.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``climatology`` (the variable's units) and ``n_years`` (years with a value, 1), with
+        dimension ``calendar_month`` (1-12). A calendar month without any value in the
+        baseline is NaN, not 0. Attrs ``baseline_first``, ``baseline_last``.
+    """
+    da, attrs, extra = _select(x, variable, min_coverage)
+    if baseline is None:
+        yr = _years_of(da).values
+        baseline = (int(yr.min()), int(yr.max()))
+    elif not (isinstance(baseline, tuple) and len(baseline) == 2):
+        raise CompareInputError(f"baseline: expected (first_year, last_year), got {baseline!r}")
+    da = _pick_years(da, baseline, "baseline")
+    clim = _by_calendar_month(da.groupby(_calendar_of(da)).mean(skipna=True))
+    clim.attrs = {"units": _units(da), "long_name": f"mean of {da.name} by calendar month over the baseline"}
+    n = _by_calendar_month(da.notnull().groupby(_calendar_of(da)).sum()).fillna(0).astype(np.int64)
+    n.attrs = {"units": "1", "long_name": "baseline years with a value"}
+    attrs.update(
+        source_variable=str(da.name), baseline_first=int(baseline[0]), baseline_last=int(baseline[1])
+    )
+    return _out({"climatology": _drop_time_coords(clim), "n_years": _drop_time_coords(n)}, attrs, extra)
+
+
+def anomalies(
+    x: xr.Dataset | xr.DataArray,
+    clim: xr.Dataset | xr.DataArray,
+    *,
+    relative: bool = False,
+    variable: str | None = None,
+    min_coverage: float | None = None,
+) -> xr.Dataset:
+    """Departures of each month from its calendar month's climatology.
+
+    Parameters
+    ----------
+    x : xarray.Dataset or DataArray
+        Totals or maps, as in :func:`climatology` (the same variable).
+    clim : xarray.Dataset or DataArray
+        The output of :func:`climatology` (or its ``climatology`` variable), on the same
+        regions / grid and models as ``x``.
+    relative : bool, keyword-only
+        Also give the anomaly in percent of the climatology (NaN where the climatology is 0
+        or NaN).
+    variable, min_coverage : keyword-only
+        As in :func:`seasonal_cycle`.
+
+    Returns
+    -------
+    xarray.Dataset
+        On ``x``'s dims: ``anomaly`` (the variable's units) and, with ``relative``,
+        ``anomaly_percent`` (%). NaN where either side has no value.
+
+    Notes
+    -----
+    anomaly = x - clim[calendar month]; anomaly_percent = 100 * anomaly / clim[calendar month].
+    """
+    da, attrs, extra = _select(x, variable, min_coverage)
+    c = clim["climatology"] if isinstance(clim, xr.Dataset) else clim
+    if "calendar_month" not in c.dims:
+        raise CompareInputError("clim: no 'calendar_month' dimension (pass the output of climatology())")
+    if isinstance(clim, xr.Dataset) and clim.attrs.get("source_variable") not in (None, da.name):
+        raise CompareInputError(
+            f"clim: a climatology of {clim.attrs['source_variable']!r}, but the anomalies are of {da.name!r}"
+        )
+    if _units(c) != _units(da):
+        raise CompareInputError(f"clim: units {_units(c)!r} differ from {da.name!r} units {_units(da)!r}")
+    per_month = c.sel(calendar_month=_calendar_of(da)).drop_vars("calendar_month")
+    try:
+        with xr.set_options(arithmetic_join="exact"):
+            anom = da - per_month
+            pct = 100.0 * anom / per_month.where(per_month != 0) if relative else None
+    except ValueError as exc:
+        raise CompareInputError(
+            "clim: its regions/grid or models differ from the data's (compute the climatology from the same results)"
+        ) from exc
+    anom.attrs = {"units": _units(da), "long_name": f"anomaly of {da.name} from the calendar-month climatology"}
+    data = {"anomaly": anom}
+    if pct is not None:
+        pct.attrs = {"units": "%", "long_name": f"anomaly of {da.name} in percent of the climatology"}
+        data["anomaly_percent"] = pct
+    for key in ("baseline_first", "baseline_last"):
+        if key in getattr(clim, "attrs", {}):
+            attrs[key] = clim.attrs[key]
+    attrs["source_variable"] = str(da.name)
+    return _out(data, attrs, extra)
+
+
+# --------------------------------------------------------------------------------------------
+# differences
+
+
+def difference(
+    x: xr.Dataset | xr.DataArray,
+    a: int | tuple[int, int],
+    b: int | tuple[int, int],
+    *,
+    variable: str | None = None,
+    min_coverage: float | None = None,
+) -> xr.Dataset:
+    """Period ``b`` against period ``a`` (e.g. a year against a baseline), per cell or region.
+
+    Parameters
+    ----------
+    x : xarray.Dataset or DataArray
+        Totals (default variable ``total``, Tg per month) or maps (default ``npp``,
+        mg m-2 d-1).
+    a, b : int or (first_year, last_year)
+        The reference period ``a`` and the compared period ``b`` (a year, or a span with both
+        ends included).
+    variable, min_coverage : keyword-only
+        As in :func:`seasonal_cycle`.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``mean_a``, ``mean_b`` (mean monthly value of each period, the variable's units),
+        ``difference`` (b - a, same units), ``percent`` (100 (b - a) / a, %; NaN where a is 0),
+        ``n_months_a``, ``n_months_b`` (months with a value behind each side, 1). Attrs
+        ``period_a``, ``period_b`` and ``months_in_period_a`` / ``_b`` (months each span has).
+
+    Notes
+    -----
+    Each side is the mean over the months with a value, so a side that misses months is
+    weighted towards the seasons it has: compare ``n_months_*`` with ``months_in_period_*``.
+    For totals the mean monthly total (Tg) times 12 is the period's mean annual total when no
+    month is missing.
+    """
+    da, attrs, extra = _select(x, variable, min_coverage)
+    tdim = _time_dim(da)
+    sides = {}
+    for label, period in (("a", a), ("b", b)):
+        if isinstance(period, (list, np.ndarray)) or (isinstance(period, tuple) and len(period) != 2):
+            raise CompareInputError(f"{label}: expected a year or (first_year, last_year), got {period!r}")
+        part = _pick_years(da, period, label)
+        chosen = _year_set(period, label)
+        mean = _drop_time_coords(part.mean(tdim, skipna=True))
+        mean.attrs = {"units": _units(da), "long_name": f"mean monthly {da.name} over {_period_label(period)}"}
+        n = _drop_time_coords(part.notnull().sum(tdim)).astype(np.int64)
+        n.attrs = {"units": "1", "long_name": f"months with a value in {_period_label(period)}"}
+        sides[label] = (mean, n)
+        attrs[f"period_{label}"] = _period_label(period)
+        attrs[f"months_in_period_{label}"] = (chosen[1] - chosen[0] + 1) * MONTHS_PER_YEAR
+    (ma, na), (mb, nb) = sides["a"], sides["b"]
+    diff = mb - ma
+    diff.attrs = {"units": _units(da), "long_name": f"{da.name}: period b minus period a"}
+    pct = 100.0 * diff / ma.where(ma != 0)
+    pct.attrs = {"units": "%", "long_name": f"{da.name}: (b - a) in percent of a"}
+    attrs["source_variable"] = str(da.name)
+    data = {"mean_a": ma, "mean_b": mb, "difference": diff, "percent": pct, "n_months_a": na, "n_months_b": nb}
+    return _out(data, attrs, extra)
+
+
+# --------------------------------------------------------------------------------------------
+# trends
+
+#: Order of the statistics returned by the per-series kernel.
+_TREND_STATS = ("slope", "intercept", "slope_low", "slope_high", "tau", "p_value", "n", "n_years")
+
+
+def _trend_1d(y: np.ndarray, t: np.ndarray, years: np.ndarray, confidence: float) -> np.ndarray:
+    """Theil-Sen and Kendall's tau of one series (NaNs skipped); NaN stats if under 3 values."""
+    from scipy import stats
+
+    out = np.full(len(_TREND_STATS), np.nan)
+    ok = np.isfinite(y)
+    n = int(ok.sum())
+    out[6] = n
+    out[7] = len(np.unique(years[ok]))
+    if n < 3:
+        return out
+    yy, tt = y[ok].astype(np.float64), t[ok]
+    ts = stats.theilslopes(yy, tt, alpha=confidence)
+    out[0:4] = ts.slope, ts.intercept, ts.low_slope, ts.high_slope
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # a constant series: tau undefined, NaN
+        kt = stats.kendalltau(tt, yy)
+    out[4:6] = kt.statistic, kt.pvalue
+    return out
+
+
+def _annual_values(da: xr.DataArray) -> xr.DataArray:
+    """Yearly values: sums of monthly amounts (Tg -> Tg yr-1) or means of rates; years with
+    fewer than 12 months are NaN."""
+    years = _years_of(da)
+    g = da.groupby(years)
+    extensive = _units(da) == "Tg"
+    val = g.sum(skipna=True, min_count=1) if extensive else g.mean(skipna=True)
+    n = da.notnull().groupby(years).sum()
+    val = val.where(n >= MONTHS_PER_YEAR)
+    val.attrs = {"units": "Tg yr-1" if extensive else _units(da)}
+    return val.rename(da.name)
+
+
+def _trend(
+    x: xr.Dataset | xr.DataArray,
+    *,
+    deseasonalise: bool,
+    annual: bool,
+    alpha: float,
+    variable: str | None,
+    min_coverage: float | None,
+    min_years: int,
+) -> xr.Dataset:
+    if not 0.0 < float(alpha) < 1.0:
+        raise CompareInputError(f"alpha: must be between 0 and 1 (exclusive), got {alpha!r}")
+    da, attrs, extra = _select(x, variable, min_coverage)
+    record_years = _years_of(da).values
+    y0 = int(record_years.min())
+    if annual:
+        series = _annual_values(da)
+        sdim = "year"
+        yrs = series["year"].values.astype(np.int64)
+        t = (yrs - y0) + 0.5
+        basis = "annual"
+    else:
+        sdim = _time_dim(da)
+        series = da
+        if deseasonalise:
+            clim = climatology(da)["climatology"]
+            series = (da - clim.sel(calendar_month=_calendar_of(da)).drop_vars("calendar_month"))
+            series.attrs = dict(da.attrs)
+        yrs = record_years.astype(np.int64)
+        t = (yrs - y0) + (_calendar_of(da).values - 0.5) / MONTHS_PER_YEAR
+        basis = "monthly, deseasonalised" if deseasonalise else "monthly"
+    units = _units(series)
+    series = _drop_time_coords(series).drop_vars([c for c in series.coords if c in (sdim,)])
+    lazy = _is_lazy(series)
+    if lazy:
+        series = series.chunk({sdim: -1})
+    stats_ = xr.apply_ufunc(
+        _trend_1d,
+        series,
+        xr.DataArray(t, dims=sdim),
+        xr.DataArray(yrs, dims=sdim),
+        kwargs={"confidence": 1.0 - float(alpha)},
+        input_core_dims=[[sdim], [sdim], [sdim]],
+        output_core_dims=[["stat"]],
+        vectorize=True,
+        dask="parallelized",
+        output_dtypes=[np.float64],
+        dask_gufunc_kwargs={"output_sizes": {"stat": len(_TREND_STATS)}},
+    )
+    per = _per_year(units)
+    meta = {
+        "slope": (per, "Theil-Sen slope (median of pairwise slopes)"),
+        "intercept": (units, "Theil-Sen intercept: the fitted value at the time origin"),
+        "slope_low": (per, f"lower bound of the {100 * (1 - alpha):g}% confidence interval of the slope"),
+        "slope_high": (per, f"upper bound of the {100 * (1 - alpha):g}% confidence interval of the slope"),
+        "tau": ("1", "Kendall's tau-b of value against time (Mann-Kendall test statistic)"),
+        "p_value": ("1", "two-sided p-value of the Mann-Kendall test (scipy.stats.kendalltau)"),
+        "n": ("1", "values in the fit"),
+        "n_years": ("1", "calendar years with at least one value"),
+    }
+    data: dict[str, xr.DataArray] = {}
+    for i, name in enumerate(_TREND_STATS):
+        v = stats_.isel(stat=i, drop=True)
+        if name in ("n", "n_years"):
+            v = v.astype(np.int64)
+        v.attrs = {"units": meta[name][0], "long_name": meta[name][1]}
+        data[name] = v
+    sig = (data["p_value"] < alpha)
+    sig.attrs = {"long_name": f"Mann-Kendall p-value below alpha = {alpha:g}"}
+    short = data["n_years"] < int(min_years)
+    short.attrs = {"long_name": f"fewer than {int(min_years)} years of record: the trend says little"}
+    data["significant"] = sig
+    data["short_record"] = short
+    attrs.update(
+        source_variable=str(da.name), trend_basis=basis, alpha=float(alpha), min_years=int(min_years),
+        time_origin=f"{y0}-01-01", time_units="years since time_origin",
+    )
+    if lazy:
+        # values are not known without computing: warn on the record's length (the coordinate)
+        shortest = len(np.unique(record_years))
+        n_short_text = "the record has"
+    else:
+        ny = data["n_years"].values
+        shortest = int(ny.min()) if ny.size else 0
+        n_short_text = f"{int((ny < int(min_years)).sum())} of {ny.size} series have"
+    if shortest < int(min_years):
+        _log.warning(
+            "trend of %s: %s fewer than %d years (shortest %d); a trend over so short a record "
+            "says little (flagged short_record)", da.name, n_short_text, int(min_years), shortest,
+        )
+    return _out(data, attrs, extra)
+
+
+def trend(
+    series: xr.Dataset | xr.DataArray,
+    *,
+    deseasonalise: bool = True,
+    annual: bool = False,
+    alpha: float = 0.05,
+    variable: str | None = None,
+    min_coverage: float | None = None,
+    min_years: int = MIN_TREND_YEARS,
+) -> xr.Dataset:
+    """Theil-Sen trend and Mann-Kendall test per region and model (totals), or per series of
+    any input with a time dimension.
+
+    Parameters
+    ----------
+    series : xarray.Dataset or DataArray
+        Totals (default variable ``total``, Tg per month; ``mean_npp`` in mg m-2 d-1 also
+        works), or a variable of them.
+    deseasonalise : bool, keyword-only
+        Monthly values minus their calendar month's climatology over the whole record (the
+        mean of that calendar month over all years) before fitting. Ignored with ``annual``.
+    annual : bool, keyword-only
+        Fit yearly values instead: sums of monthly amounts (``total``: Tg yr-1, slope
+        Tg yr-2) or means of rates (``mean_npp``: mg m-2 d-1, slope mg m-2 d-1 yr-1). A year
+        with fewer than 12 months is left out (NaN).
+    alpha : float, keyword-only
+        Significance level of the test; the slope's confidence interval is at 1 - alpha.
+    variable, min_coverage : keyword-only
+        As in :func:`seasonal_cycle`.
+    min_years : int, keyword-only
+        Records with fewer calendar years with a value are flagged ``short_record`` and warned
+        about on the ``euphotic`` logger (default 10, common practice; see
+        :data:`MIN_TREND_YEARS`).
+
+    Returns
+    -------
+    xarray.Dataset
+        Without the time dimension: ``slope``, ``slope_low``, ``slope_high`` (units of the
+        fitted values per year), ``intercept`` (fitted value at the time origin, the values'
+        units), ``tau``, ``p_value`` (1), ``n`` (values fitted), ``n_years`` (calendar years with
+        a value), ``significant`` (p < alpha) and ``short_record`` (bool). Statistics are NaN
+        for a series with fewer than 3 values.
+
+    Notes
+    -----
+    Time is in years since 1 January of the record's first year (attr ``time_origin``): month
+    m of year Y is at (Y - Y0) + (m - 0.5) / 12 (months taken as equal twelfths of a year),
+    year Y at (Y - Y0) + 0.5. On deseasonalised values the intercept is the fitted anomaly at
+    the origin (near 0), not a level.
+
+    Slope, intercept and confidence interval are :func:`scipy.stats.theilslopes` (Sen 1968,
+    intercept median(y) - slope median(t), interval from Kendall's tau statistic). The trend
+    test is :func:`scipy.stats.kendalltau` of value against time: its tau-b and p-value. With
+    time strictly increasing this is the Mann-Kendall test (tau-b = S / sqrt(n0 (n0 - n_ties))),
+    with two differences from the textbook Mann-Kendall z-test: no continuity correction
+    (z = S / sqrt(var S) rather than (|S| - 1) / sqrt(var S)), and for series without ties and
+    up to 33 values scipy gives the exact p-value instead of the normal approximation. Both make
+    small differences near the significance threshold for short series only. Ties in the
+    values are corrected for in var S as in the Mann-Kendall test. No correction for serial
+    correlation is made (monthly anomalies are often autocorrelated, which makes p-values too
+    small; annual values are less affected).
+
+    Slope units: the values' units followed by ``yr-1`` (``Tg yr-1`` becomes ``Tg yr-2``).
+    For monthly ``total`` (Tg per month) the slope is in Tg (per month) per year, ``Tg yr-1``.
+    """
+    return _trend(
+        series, deseasonalise=deseasonalise, annual=annual, alpha=alpha, variable=variable,
+        min_coverage=min_coverage, min_years=min_years,
+    )
+
+
+def trend_map(
+    maps: xr.Dataset | xr.DataArray,
+    *,
+    deseasonalise: bool = True,
+    annual: bool = False,
+    alpha: float = 0.05,
+    variable: str | None = None,
+    min_coverage: float | None = None,
+    min_years: int = MIN_TREND_YEARS,
+) -> xr.Dataset:
+    """Per-cell Theil-Sen trend and Mann-Kendall test of the maps (lazy on dask input).
+
+    Parameters and results as :func:`trend`, on maps (default variable ``npp``,
+    mg m-2 d-1; slope mg m-2 d-1 yr-1), with dims ``(model, lat, lon)``. The time axis is
+    made one chunk; each cell is fitted by :func:`xarray.apply_ufunc` (``vectorize=True``,
+    ``dask="parallelized"``). On dask input the short-record warning is based on the number of
+    years in the time coordinate (the per-cell ``short_record`` flag uses each cell's years).
+    """
+    if "time" not in maps.dims:
+        raise CompareInputError(f"maps: no 'time' dimension (has {sorted(map(str, maps.dims))}); use trend() for totals")
+    return _trend(
+        maps, deseasonalise=deseasonalise, annual=annual, alpha=alpha, variable=variable,
+        min_coverage=min_coverage, min_years=min_years,
+    )
+
+
+__all__ = [
+    "CompareInputError", "annual_totals", "seasonal_cycle", "climatology", "anomalies",
+    "difference", "trend", "trend_map", "TG_PER_PG", "MIN_TREND_YEARS",
+]
