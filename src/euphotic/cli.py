@@ -272,6 +272,49 @@ def inspect(files: tuple[str, ...], role: str | None, variable: str | None, debu
     _fail(last or EuphoticError("no input recognised"), debug)
 
 
+@main.command(name="compare")
+@click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--baseline", metavar="FIRST-LAST",
+              help="Years of the climatology (default: every year of the run).")
+@click.option("--compare-to", "compare_to", metavar="FIRST-LAST",
+              help="Years set against the baseline in the difference map (default: the last).")
+@click.option("--min-coverage", type=click.FloatRange(0, 1), default=None, metavar="F",
+              help="Drop monthly values whose coverage is below this fraction.")
+@click.option("--no-maps", is_flag=True, help="Tables only, no per-cell NetCDF maps.")
+@click.option("--quiet", "-q", is_flag=True, help="No list of files written.")
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def compare_command(folder: Path, baseline: str | None, compare_to: str | None,
+                    min_coverage: float | None, no_maps: bool, quiet: bool, debug: bool) -> None:
+    """Compare the years and regions of the run in FOLDER: annual totals, seasonal cycle,
+    anomalies against a baseline, trends (tables), and per-cell trend and difference maps.
+    They are added to FOLDER and listed in its manifest."""
+    _log_warnings()
+    try:
+        from euphotic.compare_outputs import write_comparisons
+
+        command = "euphotic compare " + " ".join(shlex.quote(a) for a in sys.argv[2:])
+        w = write_comparisons(folder, baseline=baseline, compare_years=compare_to,
+                              min_coverage=min_coverage, maps=not no_maps, command=command)
+    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
+        _fail(exc, debug)
+        return
+    click.echo(f"Trends of annual totals (Theil-Sen slope per year, Mann-Kendall p; baseline "
+               f"{w.baseline[0]}-{w.baseline[1]}):")
+    for t in w.trends:
+        if t["series"] != "annual totals":
+            continue
+        note = "  (short record)" if t["short_record"] else ""
+        click.echo(f"  {t['region']:<24} {t['model']:<12} {t['slope']:+9.3f} Tg C yr-2  "
+                   f"p = {t['p_value']:.3f}  n = {int(t['n_years'])} years{note}")
+    from euphotic.outputs import CAUTION
+
+    click.echo("")
+    click.echo("Caution: " + CAUTION)
+    if not quiet:
+        for p in w.files:
+            click.echo(f"wrote {p}")
+
+
 @main.command(name="models")
 def list_models() -> None:
     """List the available models and their citations."""
