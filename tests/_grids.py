@@ -92,3 +92,30 @@ def box_run_config(path: Path, name: str, box: list[float], *, chl: str = "chl/*
     """A run config over chl/, par/ and sst/ beside ``path``, ocean from temperature, one box."""
     return run_config(path, run=f"models = [{models}]" if models else "", regions=[(name, box)],
                       inputs=INPUTS.replace('"chl/*.nc"', f'"{chl}"'))
+
+
+def monthly_case(tmp: Path, n_months: int, *, res: float = 0.25, seed: int = 7,
+                 chl_value: float | None = None, west_gap_last_month: bool = False,
+                 models=("vgpm",), regions=(("Box", [-30.0, 40.0, -20.0, 50.0]),),
+                 run: str = "") -> Path:
+    """Monthly composites (time bounds) of chl, PAR and SST for ``n_months`` months from
+    2023-01 on a 10 x 10 degree box (40-50 N, 30-20 W) at ``res`` degree, seeded random values
+    (or chlorophyll ``chl_value`` everywhere); with ``west_gap_last_month`` the last month has no
+    chlorophyll west of 25 W. Ocean from valid temperature. Returns the run config."""
+    lat, lon = grid(40.0, 50.0, -30.0, -20.0, res)
+    rng = np.random.default_rng(seed)
+    shape = (len(lat), len(lon))
+    for m in range(n_months):
+        a = np.datetime64("2023-01") + m
+        bounds = (str(a.astype("datetime64[D]")), str((a + 1).astype("datetime64[D]")))
+        chl = rng.uniform(0.1, 3.0, shape) if chl_value is None else np.full(shape, chl_value)
+        if west_gap_last_month and m == n_months - 1:
+            chl[:, lon < -25.0] = np.nan
+        write_field(tmp / "chl" / f"c{m:02d}.nc", "chl", CHL_STD, "mg m-3", chl, lat, lon,
+                    time_bounds=bounds)
+        write_field(tmp / "par" / f"p{m:02d}.nc", "par", PAR_STD, "einstein m-2 day-1",
+                    rng.uniform(10, 50, shape), lat, lon, time_bounds=bounds)
+        write_field(tmp / "sst" / f"s{m:02d}.nc", "sst", SST_STD, "degC",
+                    rng.uniform(5, 20, shape), lat, lon, time_bounds=bounds)
+    lines = "models = [" + ", ".join(f'"{m}"' for m in models) + "]\n" + run
+    return run_config(tmp / "run.toml", run=lines, regions=list(regions))

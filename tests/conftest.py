@@ -60,3 +60,32 @@ def folder_bytes(path: Path) -> dict[str, bytes]:
         for p in sorted(Path(path).rglob("*"))
         if p.is_file() and p.name != ".euphotic.lock"
     }
+
+
+class Killed(BaseException):
+    """Stands for a kill arriving between two renames of a commit."""
+
+
+def run_killed_mid_commit(monkeypatch, out: Path, cfg, *, after: int = 1, **run_kw) -> None:
+    """Run ``cfg`` into ``out`` and stop it like a kill after ``after`` renames of its commit
+    (the rename after them raises :class:`Killed`); the commit plan stays for the next run."""
+    import os
+
+    from euphotic import runfolder
+    from euphotic.pipeline import run
+
+    real, calls = os.replace, []
+
+    def replace_then_die(src, dst):
+        if runfolder.STAGE_PREFIX in str(src) and Path(dst).parent == Path(out):
+            calls.append(dst)
+            if len(calls) == after + 1:
+                raise Killed
+        return real(src, dst)
+
+    monkeypatch.setattr(runfolder.os, "replace", replace_then_die)
+    try:
+        with pytest.raises(Killed):
+            run(cfg, progress=False, **run_kw)
+    finally:
+        monkeypatch.setattr(runfolder.os, "replace", real)

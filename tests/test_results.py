@@ -33,37 +33,21 @@ from euphotic.results import (
     open_totals,
 )
 
-from ._grids import CHL_STD, PAR_STD, SST_STD, grid, run_config, write_field
+from ._grids import monthly_case
+from .conftest import run_killed_mid_commit
 
 MODELS = ("vgpm", "eppley_vgpm")
 MONTHS = ("2023-01", "2023-02", "2023-03")
 
 
 def _case(tmp: Path, *, n_months: int = 3, fmt: str = "netcdf", models=MODELS) -> Path:
-    """Monthly composites of chl, PAR and SST on a 10 x 10 degree box at 0.5 degree; two box
-    regions (the whole box, its western half); in the last month chlorophyll is missing over the
-    western half, so that region's totals are empty and flagged there. Returns the config."""
-    lat, lon = grid(40.0, 50.0, -30.0, -20.0, 0.5)
-    rng = np.random.default_rng(11)
-    shape = (len(lat), len(lon))
-    for m in range(n_months):
-        a = np.datetime64("2023-01") + m
-        bounds = (str(a.astype("datetime64[D]")), str((a + 1).astype("datetime64[D]")))
-        chl = rng.uniform(0.1, 3.0, shape)
-        if m == n_months - 1:
-            chl[:, lon < -25.0] = np.nan
-        write_field(tmp / "chl" / f"c{m:02d}.nc", "chl", CHL_STD, "mg m-3", chl, lat, lon,
-                    time_bounds=bounds)
-        write_field(tmp / "par" / f"p{m:02d}.nc", "par", PAR_STD, "einstein m-2 day-1",
-                    rng.uniform(10, 50, shape), lat, lon, time_bounds=bounds)
-        write_field(tmp / "sst" / f"s{m:02d}.nc", "sst", SST_STD, "degC",
-                    rng.uniform(5, 20, shape), lat, lon, time_bounds=bounds)
-    lines = "models = [" + ", ".join(f'"{m}"' for m in models) + "]"
-    if fmt == "zarr":
-        lines += '\noutput_format = "zarr"'
-    return run_config(tmp / "run.toml", run=lines,
-                      regions=[("Box", [-30.0, 40.0, -20.0, 50.0]),
-                               ("West", [-30.0, 40.0, -25.0, 50.0])])
+    """Monthly composites on a 10 x 10 degree box at 0.5 degree; two box regions (the whole
+    box, its western half); in the last month chlorophyll is missing over the western half, so
+    that region's totals are empty and flagged there. Returns the config."""
+    return monthly_case(tmp, n_months, res=0.5, seed=11, west_gap_last_month=True,
+                        models=models, run='output_format = "zarr"' if fmt == "zarr" else "",
+                        regions=[("Box", [-30.0, 40.0, -20.0, 50.0]),
+                                 ("West", [-30.0, 40.0, -25.0, 50.0])])
 
 
 @pytest.fixture(scope="module")
@@ -321,28 +305,12 @@ def test_a_folder_without_a_run_is_refused(tmp_path, opener):
                               "be read (JSONDecodeError)")
 
 
-class _Killed(BaseException):
-    """Stands for a kill arriving between two renames of a commit."""
-
-
 @OPENERS
 def test_an_interrupted_commit_is_refused(months_copy, monkeypatch, opener):
     """A real commit killed after its first rename (as in test_runs): the folder holds parts
     of two runs; both openers refuse until a run completes the commit."""
     out = months_copy
-    real, calls = os.replace, []
-
-    def replace_then_die(src, dst):
-        if runfolder.STAGE_PREFIX in str(src) and Path(dst).parent == out:
-            calls.append(dst)
-            if len(calls) == 2:
-                raise _Killed
-        return real(src, dst)
-
-    monkeypatch.setattr(runfolder.os, "replace", replace_then_die)
-    with pytest.raises(_Killed):
-        run(load_config(out.parent / "run.toml"), progress=False, force=True)
-    monkeypatch.setattr(runfolder.os, "replace", real)
+    run_killed_mid_commit(monkeypatch, out, load_config(out.parent / "run.toml"), force=True)
     with pytest.raises(InterruptedCommitError) as err:
         opener(out)
     assert str(err.value) == (f"the last run in {out} was interrupted while committing; run it "

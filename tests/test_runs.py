@@ -26,29 +26,16 @@ from euphotic.cli import main
 from euphotic.config import load_config
 from euphotic.pipeline import run
 
-from ._grids import CHL_STD, PAR_STD, SST_STD, box_run_config, grid, write_field
-from .conftest import ROOT, folder_bytes
+from ._grids import monthly_case
+from .conftest import ROOT, folder_bytes, run_killed_mid_commit
 
 N_MONTHS = 6
 
 
 def _months_case(tmp: Path, n_months: int = N_MONTHS, chl_value=None) -> Path:
-    """Monthly composites (time bounds) of chl, PAR and SST for ``n_months`` months of 2023 on
-    a 10 x 10 degree box at 0.25 degree; ocean from valid temperature; one box region."""
-    lat, lon = grid(40.0, 50.0, -30.0, -20.0, 0.25)
-    rng = np.random.default_rng(7)
-    shape = (len(lat), len(lon))
-    for m in range(n_months):
-        a = np.datetime64("2023-01") + m
-        bounds = (str(a.astype("datetime64[D]")), str((a + 1).astype("datetime64[D]")))
-        chl = rng.uniform(0.1, 3.0, shape) if chl_value is None else np.full(shape, chl_value)
-        write_field(tmp / "chl" / f"c{m:02d}.nc", "chl", CHL_STD, "mg m-3", chl, lat, lon,
-                    time_bounds=bounds)
-        write_field(tmp / "par" / f"p{m:02d}.nc", "par", PAR_STD, "einstein m-2 day-1",
-                    rng.uniform(10, 50, shape), lat, lon, time_bounds=bounds)
-        write_field(tmp / "sst" / f"s{m:02d}.nc", "sst", SST_STD, "degC",
-                    rng.uniform(5, 20, shape), lat, lon, time_bounds=bounds)
-    return box_run_config(tmp / "run.toml", "Box", [-30.0, 40.0, -20.0, 50.0], models='"vgpm"')
+    """Monthly composites for ``n_months`` months of 2023 on a 10 x 10 degree box at 0.25
+    degree; ocean from valid temperature; one box region (:func:`tests._grids.monthly_case`)."""
+    return monthly_case(tmp, n_months, chl_value=chl_value)
 
 
 def _cli(*args, cwd=None, env=None) -> subprocess.Popen:
@@ -158,10 +145,6 @@ def test_figures_are_drawn_in_the_stage_not_in_place(tmp_path, monkeypatch):
     assert seen and all(s.startswith(runfolder.STAGE_PREFIX) for s in seen)
 
 
-class _Killed(BaseException):
-    """Stands for a kill arriving between two renames of a commit."""
-
-
 def test_interrupted_commit_is_completed_by_the_next_run(tmp_path, monkeypatch):
     """Broken before: a kill between two renames left new and old maps side by side with the
     old CSV. Now the commit plan is written first and the next run completes it."""
@@ -170,19 +153,7 @@ def test_interrupted_commit_is_completed_by_the_next_run(tmp_path, monkeypatch):
     out = tmp_path / "out"
     # new inputs for every month (a reprocessed data set): the next run replaces everything
     cfg2 = load_config(_months_case(tmp_path, 3, chl_value=0.5))
-    real, calls = os.replace, []
-
-    def replace_then_die(src, dst):
-        if runfolder.STAGE_PREFIX in str(src) and Path(dst).parent == out:
-            calls.append(dst)
-            if len(calls) == 2:
-                raise _Killed
-        return real(src, dst)
-
-    monkeypatch.setattr(runfolder.os, "replace", replace_then_die)
-    with pytest.raises(_Killed):
-        run(cfg2, progress=False)
-    monkeypatch.setattr(runfolder.os, "replace", real)
+    run_killed_mid_commit(monkeypatch, out, cfg2)
     stages = [p for p in out.iterdir() if p.name.startswith(runfolder.STAGE_PREFIX)]
     assert len(stages) == 1 and (stages[0] / runfolder.COMMIT_NAME).exists()
 

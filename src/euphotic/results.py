@@ -91,13 +91,7 @@ def _writer_running(folder: Path) -> bool:
         return False
     if info.get("state") != "running" or info.get("host") != socket.gethostname():
         return False
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
-    return True
+    return runfolder.pid_alive(pid)
 
 
 def _recorded_stat(path: Path) -> dict:

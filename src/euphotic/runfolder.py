@@ -77,7 +77,8 @@ def _write_json_atomic(path: Path, obj) -> None:
     os.replace(tmp, path)
 
 
-def _pid_alive(pid: int) -> bool:
+def pid_alive(pid: int) -> bool:
+    """Whether a process of that id runs on this host."""
     try:
         os.kill(pid, 0)
     except ProcessLookupError:
@@ -310,7 +311,7 @@ class OutputFolder:
                 pending.append(st)
         for p in self.path.iterdir():  # .NAME.part-PID files of versions before staging
             m = _LEGACY_PART.match(p.name)
-            if m and not _pid_alive(int(m.group(1))):
+            if m and not pid_alive(int(m.group(1))):
                 remove_path(p)
                 self.notes.append(f"removed {p.name}, left by a killed run")
         return pending
