@@ -395,3 +395,14 @@ def test_day_length_input_in_the_month_table(tmp_path):
     assert (f"  warning: {cfg} [inputs.day_length]: 2 day(s) of 2024-03 with chl, par and sst "
             "have no day length: no estimate on those days") in lines
     assert "  units:       h in the file; conversion: none" in lines
+
+
+def test_estimate_says_when_months_are_computed_together(demo_config):
+    """The memory estimate is for one month per graph; a config with more says so."""
+    text = demo_config.read_text().replace('earth = "wgs84"', 'earth = "wgs84"\nmonths_per_compute = 12')
+    yearly = demo_config.with_name("demo_yearly.toml")  # beside it: same relative paths
+    yearly.write_text(text)
+    rep = preflight.check(load_config(yearly))
+    assert ("  (for one month per computed graph; this run computes 12 months per graph and keeps "
+            "more alive: a year at 1/24 degree in one graph peaked at twice the month-by-month "
+            "figure)") in rep.text().splitlines()

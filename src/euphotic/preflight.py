@@ -382,6 +382,8 @@ class Estimate:
     block_cells: int
     peak_bytes: int
     parts: dict[str, int]
+    #: months per computed graph (the estimate is for 1)
+    months_per_compute: int = 1
 
     @property
     def cell_days(self) -> int:
@@ -604,6 +606,7 @@ def _estimate(cfg, opened: OpenedInputs, reports, plan, overlap_depth: int | Non
         bytes_on_disk=sum(r.bytes_on_disk for r in reports),
         bytes_decoded=sum(r.bytes_decoded for r in reports),
         threads=threads, block_cells=block, peak_bytes=sum(parts.values()), parts=parts,
+        months_per_compute=cfg.months_per_compute,
     )
 
 
@@ -696,6 +699,11 @@ def format_report(rep: Report) -> str:
         if "figures" in p:
             basis.append(f"figures {_size(p['figures'])}")
         out.append("  basis: " + " + ".join(basis))
+        if e.months_per_compute != 1:
+            per = "the whole run" if e.months_per_compute == 0 else f"{e.months_per_compute} months"
+            out.append(f"  (for one month per computed graph; this run computes {per} per graph "
+                       "and keeps more alive: a year at 1/24 degree in one graph peaked at twice "
+                       "the month-by-month figure)")
         out.append("")
 
     n_err, n_warn = len(rep.errors), len(rep.warnings)
