@@ -433,7 +433,10 @@ def test_totals_csv_formats_per_column(demo_run):
     for row in rows[1:]:
         for name, cell in zip(TOTALS_COLUMNS, row, strict=True):
             assert re.fullmatch(CELL_PATTERNS[name], cell), (name, cell)
-        assert row[-1] == ""  # every demo region has ocean and data
+        # every demo region has ocean and data; the low-coverage flag follows the run's
+        # min_coverage (default 0.5) on the region's coverage as written
+        assert row[-1] == ("low_coverage" if float(row[6]) < 0.5 else ""), row
+    assert sum(r[-1] == "low_coverage" for r in rows[1:]) == 2  # Tollan Bank, 21 % of days
 
 
 def test_flags_empty_cells_and_warnings_never_a_silent_zero(tmp_path):

@@ -444,3 +444,28 @@ def test_cluster_masks_are_sent_to_workers_not_embedded_in_the_graph():
         for arr, full in ((ocean_mask.data, prep.ocean.values), (bits, prep.region_masks.bits)):
             assert len(pickle.dumps(dict(arr.__dask_graph__()))) < size / 2
             np.testing.assert_array_equal(arr.compute(), full)
+
+
+def test_low_coverage_is_flagged_by_the_run_rule(tmp_path):
+    """January of the equator case has chlorophyll on 15 of its 31 days (17-31 Jan), so its
+    coverage is 15/31 = 0.484 (hand arithmetic): below the default min_coverage 0.5 it is
+    flagged low_coverage (the numbers are kept); with min_coverage = 0.4 it is not."""
+    cfg = load_config(_equator_case(tmp_path))
+    result = run(cfg, progress=False)
+    jan = [r for r in result.rows if r["month"] == "2024-01"][0]
+    assert jan["coverage_fraction"] == pytest.approx(15 / 31)
+    assert jan["flag"] == "low_coverage" and jan["total_TgC"] > 0
+    cfg.min_coverage = 0.4
+    cfg.output_dir = tmp_path / "lenient"
+    jan = [r for r in run(cfg, progress=False).rows if r["month"] == "2024-01"][0]
+    assert jan["flag"] == ""
+
+
+def test_min_coverage_must_be_a_fraction(tmp_path):
+    from euphotic.errors import ConfigError
+
+    path = _equator_case(tmp_path)
+    path.write_text(path.read_text().replace("[run]\n", "[run]\nmin_coverage = 2\n"))
+    with pytest.raises(ConfigError, match=r"`min_coverage` must be a fraction between 0 and 1, "
+                                          r"not 2"):
+        load_config(path)

@@ -27,6 +27,12 @@ MG_PER_G = 1000.0
 FLAG_NO_OCEAN = "no_ocean_cells"
 #: Totals-table flag: the region has ocean cells but none with a valid estimate in the month.
 FLAG_NO_DATA = "no_valid_data"
+#: Totals-table flag: the region's coverage (area-weighted fraction of the month's days with a
+#: valid estimate) is below the run's ``min_coverage``: the total rests on few days.
+FLAG_LOW_COVERAGE = "low_coverage"
+#: Default ``[run] min_coverage``: this tool's choice (half of the month's days on average),
+#: not a published standard; it flags, it does not drop.
+DEFAULT_MIN_COVERAGE = 0.5
 
 _log = logging.getLogger("euphotic")
 
@@ -526,7 +532,8 @@ def region_sums(
     )
 
 
-def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray) -> list[dict]:
+def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray, *,
+                  min_coverage: float | None = None) -> list[dict]:
     """Rows of the regional totals table from the computed sums (keys: the columns of
     :data:`euphotic.outputs.TOTALS_COLUMNS`).
 
@@ -534,7 +541,8 @@ def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray) -> list[dict]:
     month. ``total_filled_TgC``: observed area-mean rate times the region's whole ocean area and
     the days of the month. Never a silent zero: where nothing was observed the mean and totals
     are NaN (empty cells), ``flag`` says why (:data:`FLAG_NO_OCEAN`, :data:`FLAG_NO_DATA`) and
-    one warning per case goes to the ``euphotic`` logger.
+    one warning per case goes to the ``euphotic`` logger. A region whose coverage is below
+    ``min_coverage`` (0-1) is flagged :data:`FLAG_LOW_COVERAGE` (its numbers are kept).
     """
     rows = []
     to_tg = lazy.n_days / MG_PER_G / G_PER_TG
@@ -556,6 +564,9 @@ def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray) -> list[dict]:
                 name, lazy.month, lazy.model, ocean_m2 / 1e6, FLAG_NO_DATA,
             )
         seen = observed_m2 > 0
+        coverage = cov_m2 / ocean_m2 if ocean_m2 > 0 else np.nan
+        if seen and min_coverage is not None and coverage < min_coverage:
+            flags.append(FLAG_LOW_COVERAGE)
         mean = integral / observed_m2 if seen else np.nan
         rows.append(
             {
@@ -565,7 +576,7 @@ def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray) -> list[dict]:
                 "mean_npp_mgC_m-2_d-1": mean,
                 "observed_area_km2": observed_m2 / 1e6,
                 "ocean_area_km2": ocean_m2 / 1e6,
-                "coverage_fraction": cov_m2 / ocean_m2 if ocean_m2 > 0 else np.nan,
+                "coverage_fraction": coverage,
                 "total_TgC": integral * to_tg if seen else np.nan,
                 "total_filled_TgC": mean * ocean_m2 * to_tg if seen else np.nan,
                 "flag": ";".join(flags),

@@ -82,6 +82,12 @@ def _choice(*allowed: str) -> Callable[[object], str]:
     return check
 
 
+def _fraction(value) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not 0 <= value <= 1:
+        raise _Bad
+    return float(value)
+
+
 def _whole_number_min(low: int) -> Callable[[object], int]:
     def check(value) -> int:
         if not isinstance(value, int) or isinstance(value, bool) or value < low:
@@ -167,6 +173,7 @@ RUN_KEYS: dict[str, Key] = {
     "title": Key(_string, "a non-empty string"),
     "output_format": Key(_choice("netcdf", "zarr"), '"netcdf" or "zarr"'),
     "months_per_compute": Key(_whole_number_min(0), "a whole number >= 0"),
+    "min_coverage": Key(_fraction, "a fraction between 0 and 1"),
 }
 
 #: [inputs.<role>] keys
@@ -212,6 +219,8 @@ class RunConfig:
     output_format: str = "netcdf"  # "netcdf" or "zarr"
     #: months (x models) in each computed graph; 0: the whole run in one graph
     months_per_compute: int = 1
+    #: regions below this coverage are flagged low_coverage in the totals (aggregate)
+    min_coverage: float = 0.5
     ocean_source: str = "package"  # "package", "file" or "temperature"
     land_mask: Path | None = None
     land_mask_variable: str | None = None
@@ -404,6 +413,7 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         title=run.get("title", "Ocean net primary production"),
         output_format=run.get("output_format", "netcdf"),
         months_per_compute=run.get("months_per_compute", 1),
+        min_coverage=run.get("min_coverage", 0.5),
         ocean_source=source,
         land_mask=(base / land_mask).resolve() if land_mask else None,
         land_mask_variable=ocean.get("variable"),

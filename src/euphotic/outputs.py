@@ -602,7 +602,8 @@ TOTALS_SPEC: tuple[TotalsColumn, ...] = (
         "flag", "flag",
         "quality codes separated by ';', empty when fine: no_ocean_cells (the region has no "
         "ocean cell on the grid), no_valid_data (ocean cells but no valid estimate in the "
-        "month); missing numbers are empty cells", "string",
+        "month), low_coverage (coverage below the run's min_coverage: the numbers rest on few "
+        "days); missing numbers are empty cells", "string",
     ),
 )
 

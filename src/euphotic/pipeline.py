@@ -408,7 +408,8 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             sums = iter(sums)
             for (model_name, month), z, nv, name in zip(items, lazies, n_valid, names,
                                                         strict=True):
-                rows = aggregate.finish_totals(z, next(sums)) if z is not None else []
+                rows = (aggregate.finish_totals(z, next(sums), min_coverage=cfg.min_coverage)
+                        if z is not None else [])
                 entry = {"kind": "map", "model": model_name,
                          "month": str(np.datetime64(month, "M")),
                          "fingerprint": fps[(model_name, month)], "valid_cells": int(nv),
