@@ -64,6 +64,8 @@ SEQUENTIAL_CMAP = "batlow"
 DIVERGING_CMAP = "vik"
 #: Line colours (Okabe & Ito 2008 colour-blind safe palette) for models in line plots.
 LINE_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9")
+#: Band of the spread across models (neutral, so it reads apart from any model's colour).
+SPREAD_COLOUR = "#c8c8c8"
 
 NPP_LABEL = "net primary production (mg C m$^{-2}$ d$^{-1}$)"
 NPP_TEXT = "net primary production (mg C m-2 d-1)"
@@ -150,13 +152,14 @@ def _citations(ds: xr.Dataset) -> dict[str, str]:
 
 
 def _log_ticks(lo: float, hi: float) -> list[float]:
-    """1-3-10 ticks (..., 30, 100, 300, 1000, ...) within [lo, hi]."""
-    ticks = []
-    for k in range(math.floor(math.log10(lo)) - 1, math.ceil(math.log10(hi)) + 1):
-        for s in (1, 3):
-            t = s * 10.0 ** k
-            if lo * 0.999 <= t <= hi * 1.001:
-                ticks.append(t)
+    """1-3-10 ticks (..., 30, 100, 300, 1000, ...) within [lo, hi]; 1-2-5 ticks added when
+    the range is too narrow for three of those."""
+    for subs in ((1, 3), (1, 2, 3, 5)):
+        ticks = [s * 10.0 ** k
+                 for k in range(math.floor(math.log10(lo)) - 1, math.ceil(math.log10(hi)) + 1)
+                 for s in subs if lo * 0.999 <= s * 10.0 ** k <= hi * 1.001]
+        if len(ticks) >= 3:
+            break
     return ticks
 
 
@@ -286,7 +289,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
 
     mean = _period_maps(maps, period)
     lat, lon = mean["lat"].values, mean["lon"].values
-    names, cites = _model_names(maps), _citations(maps)
+    names = _model_names(maps)
     models = [str(m) for m in mean["model"].values]
     vals = mean["npp"].values
     pos = vals[np.isfinite(vals) & (vals > 0)]
@@ -462,26 +465,32 @@ def annual_series(totals: xr.Dataset, *, baseline: tuple[int, int],
         fig, axes = _panel_grid(len(regions), width, 1.35)
         for ax, r in zip(axes, regions, strict=True):
             tr = t.sel(region=r)
-            mid = tr.mean("model", skipna=True).values
-            b = mid[inbase & np.isfinite(mid)]
-            if b.size:
-                ax.axhspan(b.min(), b.max(), color="#bbbbbb", alpha=0.45, lw=0,
-                           label=f"baseline {_span_text(baseline)} range")
-                ax.axhline(b.mean(), color="#555555", lw=0.8, ls="--",
-                           label=f"baseline {_span_text(baseline)} mean")
             if len(models) > 1:
                 with np.errstate(all="ignore"):
                     ax.fill_between(years, tr.min("model").values, tr.max("model").values,
-                                    color=LINE_COLOURS[0], alpha=0.18, lw=0, label="model spread")
+                                    color=SPREAD_COLOUR, alpha=0.5, lw=0,
+                                    label="spread across models")
             for i, m in enumerate(models):
-                ax.plot(years, tr.sel(model=m).values, marker="o", ms=2.5, lw=1.0,
-                        color=LINE_COLOURS[i % len(LINE_COLOURS)], label=names[m])
+                col = LINE_COLOURS[i % len(LINE_COLOURS)]
+                v = tr.sel(model=m).values
+                b = v[inbase & np.isfinite(v)]
+                if b.size:  # the baseline: its years shaded from min to max, its mean dashed
+                    ax.fill_between([baseline[0] - 0.4, baseline[1] + 0.4], b.min(), b.max(),
+                                    color=col, alpha=0.15, lw=0)
+                    ax.axhline(b.mean(), color=col, lw=0.7, ls="--")
+                ax.plot(years, v, marker="o", ms=2.5, lw=1.0, color=col, label=names[m])
             ax.set_title(r, fontsize=FONT_PT + 1, loc="left")
             ax.set_ylabel("Tg C yr$^{-1}$")
             ax.tick_params(labelsize=FONT_PT)
             ax.xaxis.get_major_locator().set_params(integer=True)
+        from matplotlib.lines import Line2D
+        from matplotlib.patches import Patch
+
         handles, labels = axes[0].get_legend_handles_labels()
-        fig.legend(handles, [textwrap.shorten(lb, 60) for lb in labels], loc="outside lower center",
+        handles += [Patch(color="#777777", alpha=0.3, lw=0),
+                    Line2D([], [], color="#555555", lw=0.7, ls="--")]
+        labels += [f"baseline {_span_text(baseline)}: range", f"baseline {_span_text(baseline)}: mean"]
+        fig.legend(handles, [textwrap.fill(lb, 55) for lb in labels], loc="outside lower center",
                    ncols=2, fontsize=FONT_PT, frameon=False)
         fig.suptitle("Carbon fixed per year by region (net primary production)")
     caption = (
@@ -489,9 +498,10 @@ def annual_series(totals: xr.Dataset, *, baseline: tuple[int, int],
         f"cells, the sum of the monthly totals), {years.min()}-{years.max()}, "
         f"{', '.join(names[m] for m in models)}. Each region on its own panel and y axis (a "
         f"basin is not drawn beside its sub-regions). Years with fewer than 12 months of "
-        f"data are left out. Dashed line and grey band: mean and range of the "
-        f"{_span_text(baseline)} baseline years"
-        + (" (mean across models); blue band: spread across models." if len(models) > 1 else ".")
+        f"data are left out. Dashed lines and shaded boxes over the baseline years: mean and "
+        f"range (minimum to maximum) of the {_span_text(baseline)} baseline, in each model's "
+        f"colour" + ("; grey band: spread across models (minimum to maximum)."
+                     if len(models) > 1 else ".")
     )
     return Drawn("fig_annual_totals", fig, "Annual carbon fixed by region", caption,
                  {"axes": axes})
@@ -515,14 +525,18 @@ def seasonal_figure(totals: xr.Dataset, *, period: tuple[int, int],
                 s = cyc.sel(region=r, model=m)
                 col = LINE_COLOURS[i % len(LINE_COLOURS)]
                 ax.fill_between(cm, s["min"].values, s["max"].values, color=col, alpha=0.2,
-                                lw=0, label=f"{names[m]}: range")
+                                lw=0)
                 ax.plot(cm, s["mean"].values, color=col, lw=1.0, marker="o", ms=2,
-                        label=f"{names[m]}: mean")
+                        label=names[m])
             ax.set_title(r, fontsize=FONT_PT + 1, loc="left")
             ax.set_ylabel("Tg C month$^{-1}$")
             ax.set_xticks(range(1, 13), list("JFMAMJJASOND"))
+        from matplotlib.patches import Patch
+
         handles, labels = axes[0].get_legend_handles_labels()
-        fig.legend(handles, [textwrap.shorten(lb, 70) for lb in labels],
+        handles.append(Patch(color="#777777", alpha=0.3, lw=0))
+        labels.append("minimum to maximum over the years (band, in each model's colour)")
+        fig.legend(handles, [textwrap.fill(lb, 55) for lb in labels],
                    loc="outside lower center", ncols=1 if width == "one-column" else 2,
                    fontsize=FONT_PT, frameon=False)
         fig.suptitle(f"Seasonal cycle of carbon fixed by region, {_span_text(period)}")
