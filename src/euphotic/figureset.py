@@ -152,9 +152,9 @@ def _citations(ds: xr.Dataset) -> dict[str, str]:
 
 
 def _log_ticks(lo: float, hi: float) -> list[float]:
-    """1-3-10 ticks (..., 30, 100, 300, 1000, ...) within [lo, hi]; 1-2-5 ticks added when
-    the range is too narrow for three of those."""
-    for subs in ((1, 3), (1, 2, 3, 5)):
+    """1-3-10 ticks (..., 30, 100, 300, 1000, ...) within [lo, hi]; 1-2-3-5 ticks, then every
+    integer multiple, when the range is too narrow for three of those."""
+    for subs in ((1, 3), (1, 2, 3, 5), range(1, 10)):
         ticks = [s * 10.0 ** k
                  for k in range(math.floor(math.log10(lo)) - 1, math.ceil(math.log10(hi)) + 1)
                  for s in subs if lo * 0.999 <= s * 10.0 ** k <= hi * 1.001]
@@ -319,7 +319,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
                                  transform=ccrs.PlateCarree(), rasterized=True)
             meshes.append(mesh)
             marks.append(_mark(ax, lat, lon, np.isfinite(v) & (c < min_coverage), "...."))
-            ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 60),
+            ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
                          fontsize=FONT_PT + 1)
         cb = fig.colorbar(meshes[0], ax=axes, orientation="horizontal", extend=extend,
                           shrink=0.85, aspect=35, pad=0.02)
@@ -407,7 +407,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
             low = np.isfinite(v) & ((c < min_coverage)
                                     | (base_cov.sel(model=m).values < min_coverage))
             _mark(ax, lat, lon, low, "....")
-            ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 60),
+            ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
                          fontsize=FONT_PT + 1)
         cb = fig.colorbar(meshes[0], ax=axes, orientation="horizontal", extend=extend,
                           shrink=0.85, aspect=35, pad=0.02)
