@@ -260,3 +260,25 @@ def test_manifest_entries_describe_each_file(three_years):
     man = json.loads((three_years / "euphotic_manifest.json").read_text())
     e = man["outputs"]["fig_npp_maps.caption.md"]
     assert e["kind"] == figureset.KIND and e["description"] == "caption of fig_npp_maps"
+
+
+def test_a_failure_while_saving_changes_nothing(three_years, monkeypatch):
+    out = three_years
+    before = folder_bytes(out)
+    calls = []
+    real = figureset.save
+
+    def failing(drawn, folder):
+        calls.append(drawn.name)
+        if len(calls) == 3:  # the third figure: two are already in the stage
+            raise OSError(28, "No space left on device", str(folder / drawn.name))
+        return real(drawn, folder)
+
+    monkeypatch.setattr(figureset, "save", failing)
+    res = CliRunner().invoke(main, ["figures", str(out)])
+    assert res.exit_code == 1
+    err = res.stderr.strip()  # one line, naming the file being written (in the stage)
+    assert err.startswith(f"euphotic: error: {out}/") and "\n" not in err
+    assert err.endswith("/fig_annual_totals: No space left on device")
+    assert folder_bytes(out) == before  # the earlier set stays, nothing half-written
+    assert _debris(out) == []
