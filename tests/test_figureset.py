@@ -282,3 +282,21 @@ def test_a_failure_while_saving_changes_nothing(three_years, monkeypatch):
     assert err.endswith("/fig_annual_totals: No space left on device")
     assert folder_bytes(out) == before  # the earlier set stays, nothing half-written
     assert _debris(out) == []
+
+
+def test_a_short_run_without_regions_gets_the_maps_and_notes(tmp_path):
+    cfg = monthly_case(tmp_path, 3, regions=())
+    res = CliRunner().invoke(main, ["run", str(cfg), "-q"])
+    assert res.exit_code == 0, res.output
+    out = tmp_path / "out"
+    res = CliRunner().invoke(main, ["figures", str(out), "-q"])
+    assert res.exit_code == 0, res.output
+    assert res.stdout.splitlines() == [
+        "note: no difference map: the run has a single year (give --baseline)",
+        "note: no regional figures: the run has no regions"]
+    man = _consistent(out)
+    assert sorted(n for n, e in man["outputs"].items() if e["kind"] == figureset.KIND) == [
+        "fig_npp_maps.caption.md", "fig_npp_maps.caption.txt", "fig_npp_maps.pdf",
+        "fig_npp_maps.png"]
+    cap = (out / "fig_npp_maps.caption.txt").read_text()
+    assert "over 2023 " in cap and "VGPM (Behrenfeld & Falkowski 1997)" in cap

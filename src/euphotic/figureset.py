@@ -596,7 +596,8 @@ def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | 
 
     ``period`` defaults to the whole run. The difference map sets ``period`` (or, by default,
     the run's last year) against ``baseline`` (by default the years before it); it is left out
-    when the run has a single year and no baseline was given.
+    when the run has a single year and no baseline was given. The regional figures are left
+    out when the run has no regions.
     """
     import matplotlib
 
@@ -625,8 +626,11 @@ def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | 
     else:
         drawn.append(difference_map(maps, period=compared, baseline=base, projection=projection,
                                     relative=relative, min_coverage=min_coverage, width=width))
-    drawn.append(annual_series(totals, baseline=base or whole, width=width))
-    drawn.append(seasonal_figure(totals, period=shown, width=width))
+    if totals.sizes.get("region", 0) == 0:
+        notes.append("no regional figures: the run has no regions")
+    else:
+        drawn.append(annual_series(totals, baseline=base or whole, width=width))
+        drawn.append(seasonal_figure(totals, period=shown, width=width))
     return drawn, notes
 
 
