@@ -41,6 +41,9 @@ WIDTHS_MM: dict[str, float] = {"one-column": 85.0, "two-column": 180.0}
 MM_PER_INCH = 25.4
 #: Resolution of the PNG files (dots per inch; the usual requirement for print halftones).
 DPI = 300
+#: Tallest map panel (mm), so that a single or tall panel still fits a printed page with its
+#: caption (a practical choice of this tool).
+MAX_PANEL_HEIGHT_MM = 110.0
 #: Smallest font on a figure, points (legible at print size; common practice >= 7 pt).
 FONT_PT = 7.0
 #: Default minimum coverage: cells whose mean coverage over the period (fraction of the days
@@ -207,7 +210,10 @@ def _map_axes(n: int, *, width: Width, projection: Projection, lat, lon, extra_h
     pts = crs.transform_points(ccrs.PlateCarree(), xs, ys)
     aspect = float(np.ptp(pts[..., 1]) / max(np.ptp(pts[..., 0]), 1e-9))
     panel_w = (w_in - 0.6) / ncols
-    h_in = nrows * (panel_w * aspect + 0.55) + 0.75 + extra_height_in
+    # a tall domain or a single panel at full width: the map is made narrower, not the page
+    # taller than MAX_PANEL_HEIGHT_MM per panel
+    panel_h = min(panel_w * aspect, MAX_PANEL_HEIGHT_MM / MM_PER_INCH)
+    h_in = nrows * (panel_h + 0.55) + 0.75 + extra_height_in
     fig = plt.figure(figsize=(w_in, h_in), layout="constrained")
     axes = [fig.add_subplot(nrows, ncols, i + 1, projection=crs) for i in range(n)]
     return fig, axes, crs
