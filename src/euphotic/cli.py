@@ -315,6 +315,46 @@ def compare_command(folder: Path, baseline: str | None, compare_to: str | None,
             click.echo(f"wrote {p}")
 
 
+@main.command(name="figures")
+@click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--period", metavar="FIRST-LAST",
+              help="Years of the maps (default: the whole run); also the years set against "
+                   "the baseline in the difference map (default there: the last year).")
+@click.option("--baseline", metavar="FIRST-LAST",
+              help="Baseline years of the difference map (default: the years before --period).")
+@click.option("--projection", type=click.Choice(["equal-area", "latlon"]), default="equal-area",
+              show_default=True, help="Map projection.")
+@click.option("--min-coverage", type=click.FloatRange(0, 1), default=0.5, show_default=True,
+              metavar="F", help="Mark map cells whose mean coverage is below this fraction.")
+@click.option("--width", type=click.Choice(["one-column", "two-column"]), default="two-column",
+              show_default=True, help="Print width: 85 mm or 180 mm.")
+@click.option("--absolute", is_flag=True,
+              help="Difference map in mg C m-2 d-1 instead of percent of the baseline.")
+@click.option("--quiet", "-q", is_flag=True, help="No list of files written.")
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def figures_command(folder: Path, period: str | None, baseline: str | None, projection: str,
+                    min_coverage: float, width: str, absolute: bool, quiet: bool,
+                    debug: bool) -> None:
+    """Draw the proposal figures of the run in FOLDER (PNG at 300 dpi and PDF, each with a
+    caption); they are added to FOLDER as one set and listed in its manifest."""
+    _log_warnings()
+    try:
+        from euphotic.figureset import write_figure_set
+
+        command = "euphotic figures " + " ".join(shlex.quote(a) for a in sys.argv[2:])
+        fs = write_figure_set(folder, period=period, baseline=baseline, projection=projection,
+                              min_coverage=min_coverage, width=width, relative=not absolute,
+                              command=command)
+    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
+        _fail(exc, debug)
+        return
+    for note in fs.notes:
+        click.echo(f"note: {note}")
+    if not quiet:
+        for p in fs.files:
+            click.echo(f"wrote {p}")
+
+
 @main.command(name="models")
 def list_models() -> None:
     """List the available models and their citations."""
