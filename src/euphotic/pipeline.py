@@ -392,9 +392,10 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             # one graph per batch of months (all models), computed once: memory and graph
             # size stay those of one batch however many years a run covers
             items = [(m, mo) for (m, mo) in todo if mo in batch]
-            writes, lazies, counts, names = _batch_graph(cfg, prep, items, ocean_mask, bits,
-                                                         input_files, command, stage, provenance,
-                                                         extra_attrs=report.static_attrs())
+            with _writing(out_dir, "the monthly maps"):  # the files' headers are written here
+                writes, lazies, counts, names = _batch_graph(
+                    cfg, prep, items, ocean_mask, bits, input_files, command, stage, provenance,
+                    extra_attrs=report.static_attrs())
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
                 print(f"computing {span} ({i + 1} of {len(batches)})", file=sys.stderr)
