@@ -244,3 +244,27 @@ def test_missing_bib_entry_fails_before_writing(energy_run, tmp_path, monkeypatc
                           "the methods text)\n")
     assert sorted(p.name for p in folder.iterdir()) == listing
     assert (folder / "euphotic_manifest.json").read_bytes() == manifest
+
+
+def test_reused_maps_do_not_hide_the_later_runs_inputs(tmp_path):
+    """A second run that reuses two months' maps unchanged and adds a third: the inputs are
+    described as the second run read them (from the map it wrote), not as the first did."""
+    cfg = monthly_case(tmp_path, 3, res=0.5, seed=3)
+    held = tmp_path / "held"
+    held.mkdir()
+    for role, stem in (("chl", "c"), ("par", "p"), ("sst", "s")):
+        shutil.move(tmp_path / role / f"{stem}02.nc", held / f"{stem}02.nc")
+    run(load_config(cfg), progress=False)
+    first = " ".join(methods_text(tmp_path / "out").text.split())
+    assert ("surface chlorophyll-a concentration (2 files; 2 28-day, 31-day periods, "
+            "2023-01-01 to 2023-02-28; in mg m-3)") in first
+    for role, stem in (("chl", "c"), ("par", "p"), ("sst", "s")):
+        shutil.move(held / f"{stem}02.nc", tmp_path / role / f"{stem}02.nc")
+    result = run(load_config(cfg), progress=False)
+    assert sorted(result.reused) == [("vgpm", "2023-01"), ("vgpm", "2023-02")]
+    flat = " ".join(methods_text(tmp_path / "out").text.split())
+    assert ("surface chlorophyll-a concentration (3 files; 3 28-day, 31-day periods, "
+            "2023-01-01 to 2023-03-31; in mg m-3)") in flat
+    assert "estimated for the 3 months 2023-01 to 2023-03" in flat
+    # screening counts summed over the three months' files, 400 cells each (hand count)
+    assert "chlorophyll 0.001 to 100 mg m-3 (0 of 1,200 values masked: 0 below, 0 above)" in flat

@@ -199,8 +199,9 @@ def reference_text(entry) -> str:
 
 
 def _first_map_attrs(folder: Path, manifest: dict) -> tuple[dict, list[dict]]:
-    """Attributes of the newest map of the first model, and those of every map of that model
-    (for the screening counts, which each month's file records for its month)."""
+    """Attributes of a map of the first model written by the committed run, and those of
+    every map of that model (for the screening counts, which each month's file records for
+    its month)."""
     import xarray as xr
 
     maps = [(n, e) for n, e in manifest["outputs"].items() if e.get("kind") == "map"]
@@ -220,9 +221,16 @@ def _first_map_attrs(folder: Path, manifest: dict) -> tuple[dict, list[dict]]:
         except (OSError, ValueError, KeyError) as exc:
             raise MethodsError(f"{path}: cannot read its attributes ({exc.__class__.__name__})"
                                ) from None
-    # run-wide facts (inputs, software) from the map written last: a later run that reused
-    # earlier months' maps unchanged describes its own inputs in the maps it wrote
-    return max(all_attrs, key=lambda a: str(a.get("date_created", ""))), all_attrs
+    # run-wide facts (inputs, software) from a map the committed run wrote itself (its input
+    # files are the manifest's): a run that reused earlier months' maps unchanged describes
+    # its own inputs in the maps it wrote; else the newest map
+    inputs = manifest.get("inputs") or {}
+
+    def own(a: dict) -> bool:
+        return bool(inputs) and all(a.get(f"input_files_{r}") == ", ".join(f)
+                                    for r, f in inputs.items())
+
+    return max(all_attrs, key=lambda a: (own(a), str(a.get("date_created", "")))), all_attrs
 
 
 def _months_phrase(months: list[str]) -> str:
