@@ -145,8 +145,7 @@ def test_energy_par_cites_mccree_and_screening_counts(energy_run):
     assert "estimated for the 2 months 2023-01 to 2023-02" in flat
     assert "using the model: the Vertically Generalized Production Model" in flat
     assert "Eppley" not in flat and "eppley1972" not in m.keys
-    assert "surface chlorophyll-a concentration (2 files; 2 31-day, 28-day periods" not in flat
-    assert ("surface chlorophyll-a concentration (2 files; 2 28-day, 31-day periods, "
+    assert ("surface chlorophyll-a concentration (2 files; 2 periods of 28 to 31 days, "
             "2023-01-01 to 2023-02-28; in mg m-3)") in flat
     # screening: 3 values of 500 mg m-3 per month above the 0.001..100 mg m-3 range, 400
     # cells a month (20 x 20 at 0.5 degree): counted by hand
@@ -256,14 +255,14 @@ def test_reused_maps_do_not_hide_the_later_runs_inputs(tmp_path):
         shutil.move(tmp_path / role / f"{stem}02.nc", held / f"{stem}02.nc")
     run(load_config(cfg), progress=False)
     first = " ".join(methods_text(tmp_path / "out").text.split())
-    assert ("surface chlorophyll-a concentration (2 files; 2 28-day, 31-day periods, "
+    assert ("surface chlorophyll-a concentration (2 files; 2 periods of 28 to 31 days, "
             "2023-01-01 to 2023-02-28; in mg m-3)") in first
     for role, stem in (("chl", "c"), ("par", "p"), ("sst", "s")):
         shutil.move(held / f"{stem}02.nc", tmp_path / role / f"{stem}02.nc")
     result = run(load_config(cfg), progress=False)
     assert sorted(result.reused) == [("vgpm", "2023-01"), ("vgpm", "2023-02")]
     flat = " ".join(methods_text(tmp_path / "out").text.split())
-    assert ("surface chlorophyll-a concentration (3 files; 3 28-day, 31-day periods, "
+    assert ("surface chlorophyll-a concentration (3 files; 3 periods of 28 to 31 days, "
             "2023-01-01 to 2023-03-31; in mg m-3)") in flat
     assert "estimated for the 3 months 2023-01 to 2023-03" in flat
     # screening counts summed over the three months' files, 400 cells each (hand count)

@@ -118,11 +118,14 @@ def run_record(inputs: dict) -> dict[str, str]:
             s = da["period_start"].values.astype("datetime64[D]")
             e = da["period_end"].values.astype("datetime64[D]")
             lengths = sorted(set((e - s).astype(int).tolist()))
-            span = ("daily" if lengths == [1] else
-                    ", ".join(f"{n}-day" for n in lengths))
-            out[f"input_periods_{role}"] = (
-                f"{len(s)} {span} period{'s' if len(s) != 1 else ''}, "
-                f"{s.min()} to {e.max() - 1}")
+            n = f"{len(s)} period{'s' if len(s) != 1 else ''}"
+            if lengths == [1]:
+                n = f"{len(s)} daily period{'s' if len(s) != 1 else ''}"
+            elif len(lengths) == 1:
+                n += f" of {lengths[0]} days"
+            else:
+                n += f" of {lengths[0]} to {lengths[-1]} days"
+            out[f"input_periods_{role}"] = f"{n}, {s.min()} to {e.max() - 1}"
     versions = {"euphotic": __version__, "numpy": np.__version__,
                 "xarray": xarray.__version__, "dask": dask.__version__}
     out["software_versions"] = "; ".join(f"{k} {v}" for k, v in versions.items())
