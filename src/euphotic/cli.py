@@ -355,6 +355,29 @@ def figures_command(folder: Path, period: str | None, baseline: str | None, proj
             click.echo(f"wrote {p}")
 
 
+@main.command(name="methods")
+@click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--quiet", "-q", is_flag=True, help="No list of files written.")
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def methods_command(folder: Path, quiet: bool, debug: bool) -> None:
+    """Write a methods paragraph and its references (text and BibTeX) for the run in FOLDER,
+    added to FOLDER and listed in its manifest; print the paragraph."""
+    _log_warnings()
+    try:
+        from euphotic.methods import write_methods
+
+        command = "euphotic methods " + " ".join(shlex.quote(a) for a in sys.argv[2:])
+        w = write_methods(folder, command=command)
+    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
+        _fail(exc, debug)
+        return
+    click.echo(w.methods.text, nl=False)
+    if not quiet:
+        click.echo("")
+        for p in w.files:
+            click.echo(f"wrote {p}")
+
+
 @main.command(name="models")
 def list_models() -> None:
     """List the available models and their citations."""

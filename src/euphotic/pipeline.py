@@ -15,7 +15,7 @@ import dask
 import numpy as np
 import xarray as xr
 
-from euphotic import aggregate, ocean, outputs, preflight, runfolder, screen
+from euphotic import aggregate, methods, ocean, outputs, preflight, runfolder, screen
 from euphotic.config import RunConfig
 from euphotic.errors import ConfigError, NoValidDataError
 from euphotic.geo import cell_area
@@ -341,6 +341,9 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
     pending = folder.recover()
     input_files = _input_files(prep)
     provenance = outputs.provenance_attrs(cfg, input_files)  # once per run
+    # units, conversions, periods, regridding and library versions, for `euphotic methods`
+    provenance.update(methods.run_record({"chl": prep.chl, "par": prep.par, "sst": prep.sst,
+                                          "day_length": prep.day_length}))
     # input screening (euphotic.screen): ranges known now, counts computed with each batch
     report = screen.Report({"chl": prep.chl, "par": prep.par, "sst": prep.sst,
                             "day_length": prep.day_length})
@@ -389,9 +392,10 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             # one graph per batch of months (all models), computed once: memory and graph
             # size stay those of one batch however many years a run covers
             items = [(m, mo) for (m, mo) in todo if mo in batch]
-            writes, lazies, counts, names = _batch_graph(cfg, prep, items, ocean_mask, bits,
-                                                         input_files, command, stage, provenance,
-                                                         extra_attrs=report.static_attrs())
+            with _writing(out_dir, "the monthly maps"):  # the files' headers are written here
+                writes, lazies, counts, names = _batch_graph(
+                    cfg, prep, items, ocean_mask, bits, input_files, command, stage, provenance,
+                    extra_attrs=report.static_attrs())
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
                 print(f"computing {span} ({i + 1} of {len(batches)})", file=sys.stderr)

@@ -127,6 +127,7 @@ def open_inputs(cfg: RunConfig) -> OpenedInputs:
             out.errors[role] = exc
             continue
         matched.attrs["files"] = da.attrs["files"]
+        matched.attrs["regridding"] = _regrid_words(da, chl)  # recorded for `euphotic methods`
         out.on_grid[role] = matched
     return out
 
