@@ -540,8 +540,9 @@ def seasonal_figure(totals: xr.Dataset, *, period: tuple[int, int],
         from matplotlib.patches import Patch
 
         handles, labels = axes[0].get_legend_handles_labels()
-        handles.append(Patch(color="#777777", alpha=0.3, lw=0))
-        labels.append("minimum to maximum over the years (band, in each model's colour)")
+        if period[1] > period[0]:  # a band only where there are several years
+            handles.append(Patch(color="#777777", alpha=0.3, lw=0))
+            labels.append("minimum to maximum over the years (band, in each model's colour)")
         fig.legend(handles, [textwrap.fill(lb, 55) for lb in labels],
                    loc="outside lower center", ncols=1 if width == "one-column" else 2,
                    fontsize=FONT_PT, frameon=False)
