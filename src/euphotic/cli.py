@@ -378,6 +378,26 @@ def methods_command(folder: Path, quiet: bool, debug: bool) -> None:
             click.echo(f"wrote {p}")
 
 
+@main.command(name="report")
+@click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--quiet", "-q", is_flag=True, help="No name of the file written.")
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def report_command(folder: Path, quiet: bool, debug: bool) -> None:
+    """Write report.html, a self-contained page (tables, figures, methods, caution) for
+    reviewing the run in FOLDER in a browser; it is added to FOLDER and its manifest."""
+    _log_warnings()
+    try:
+        from euphotic.report import write_report
+
+        command = "euphotic report " + " ".join(shlex.quote(a) for a in sys.argv[2:])
+        w = write_report(folder, command=command)
+    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
+        _fail(exc, debug)
+        return
+    if not quiet:
+        click.echo(f"wrote {w.path} ({w.images} images embedded)")
+
+
 @main.command(name="models")
 def list_models() -> None:
     """List the available models and their citations."""

@@ -1,0 +1,285 @@
+"""A self-contained HTML page reviewing a committed run (``euphotic report FOLDER``).
+
+One file, ``report.html``, added to the run's folder as one unit
+(:meth:`euphotic.runfolder.OutputFolder.adding`, kind :data:`KIND`). It needs no network to be
+viewed: the style sheet is inline and every image is embedded as a base64 ``data:`` URI. It
+holds the caution, the regional totals (from :func:`euphotic.results.open_totals`), the
+comparison tables if ``euphotic compare`` was run, the figures with their captions (the figure
+set of ``euphotic figures`` if there is one, else the run's quick-look PNGs), the methods
+paragraph with its references (:func:`euphotic.methods.methods_text`) and the provenance
+recorded in the manifest.
+
+Everything read from the run (region names, captions, file names) is escaped with
+:func:`html.escape`. Only the standard library is used (``html``, ``base64``,
+``string.Template``).
+"""
+
+from __future__ import annotations
+
+import base64
+import csv
+import html
+import re
+from dataclasses import dataclass, field
+from pathlib import Path
+from string import Template
+
+import numpy as np
+
+from euphotic import __version__, results, runfolder
+from euphotic.errors import EuphoticError
+from euphotic.outputs import CAUTION
+
+#: Kind of the report in the run's manifest; a new report replaces the old one.
+KIND = "report"
+#: The file written into the run's folder.
+FILE = "report.html"
+#: Manifest kinds whose PNGs the report embeds, in order of preference: the figure set of
+#: ``euphotic figures`` if present, else the quick-look figures of ``euphotic run``.
+FIGURE_KINDS = ("figure set", "figure")
+#: Manifest kind of the tables written by ``euphotic compare``.
+COMPARISON_KIND = "comparison"
+#: The first eight bytes of every PNG file (PNG specification, section 5.2).
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+_BOLD = re.compile(r"\*\*(.+?)\*\*")
+
+_CSS = """
+body{font-family:system-ui,sans-serif;max-width:70em;margin:1em auto;padding:0 1em;
+color:#1a1a1a;line-height:1.4}
+h1{font-size:1.6em;margin-bottom:0.2em}
+.runid{color:#555;margin-top:0}
+.caution{border:3px solid #b00020;background:#fff0f0;padding:0.8em 1em;font-weight:bold}
+table{border-collapse:collapse;margin:0.5em 0 1.5em;font-size:0.85em}
+th,td{border:1px solid #bbb;padding:0.2em 0.5em;text-align:right}
+th{background:#eee}
+td.text,th.text{text-align:left}
+td.flag{color:#b00020;text-align:left}
+figure{margin:1.5em 0}
+figure img{max-width:100%;height:auto;border:1px solid #ddd}
+figcaption{white-space:pre-wrap;font-size:0.9em}
+pre{white-space:pre-wrap}
+dl.prov dt{font-weight:bold}
+"""
+
+_PAGE = Template("""<!DOCTYPE html>
+<html lang="en">
+<head>
+<meta charset="utf-8">
+<title>euphotic run report: $run_id</title>
+<style>$css</style>
+</head>
+<body>
+<h1>Net primary production run report</h1>
+<p class="runid">Run <code>$run_id</code>, created $created, euphotic $version</p>
+<p class="caution" id="caution">Caution: $caution</p>
+<h2>Regional totals</h2>
+$totals
+$comparisons
+<h2>Figures</h2>
+$figures
+<h2>Methods</h2>
+$methods
+<h2>Provenance</h2>
+$provenance
+<p class="runid">Report written by euphotic $tool_version on $now.</p>
+</body>
+</html>
+""")
+
+
+class ReportError(EuphoticError):
+    """A file the run's manifest lists cannot be put into the report."""
+
+
+@dataclass
+class Written:
+    """What ``euphotic report`` wrote."""
+
+    path: Path
+    images: int = 0
+    notes: list[str] = field(default_factory=list)
+
+
+def _e(value: object) -> str:
+    return html.escape(str(value), quote=True)
+
+
+def _cell(value: object, decimals: int) -> str:
+    if isinstance(value, str):
+        return value
+    f = float(value)
+    return "" if not np.isfinite(f) else f"{f:,.{decimals}f}"
+
+
+#: Totals variable -> decimals shown in the report (the CSV keeps its own precision).
+_TOTALS_DECIMALS = {"mean_npp": 1, "observed_area": 0, "ocean_area": 0, "coverage": 3,
+                    "total": 4, "total_filled": 4}
+
+
+def totals_table(totals) -> str:
+    """The regional totals as an HTML table; each header names the variable and its units
+    (from the Dataset's attributes); the quality flags are shown in their own column.
+
+    Parameters
+    ----------
+    totals : xarray.Dataset
+        As returned by :func:`euphotic.results.open_totals`.
+    """
+    numeric = [v for v in totals.data_vars if v != "flag"]
+    head = ['<th class="text">region</th>', '<th class="text">month</th>',
+            '<th class="text">model</th>']
+    for v in numeric:
+        a = totals[v].attrs
+        unit = a.get("units")
+        label = f"{a.get('long_name', v)} ({unit})" if unit else a.get("long_name", v)
+        head.append(f"<th>{_e(label)}</th>")
+    head.append('<th class="text">flag</th>')
+    rows = []
+    for r in totals["region"].values:
+        for i, mo in enumerate(totals["month"].values):
+            for m in totals["model"].values:
+                s = totals.sel(region=r, model=m).isel(month=i)
+                if all(not np.isfinite(float(s[v])) for v in numeric):
+                    continue  # no row for this combination
+                cells = [f'<td class="text">{_e(r)}</td>',
+                         f'<td class="text">{_e(str(np.datetime64(mo, "M")))}</td>',
+                         f'<td class="text">{_e(m)}</td>']
+                cells += [f"<td>{_e(_cell(s[v].item(), _TOTALS_DECIMALS.get(v, 4)))}</td>"
+                          for v in numeric]
+                cells.append(f'<td class="flag">{_e(s["flag"].item())}</td>')
+                rows.append("<tr>" + "".join(cells) + "</tr>")
+    return ('<table id="totals">\n<thead><tr>' + "".join(head) + "</tr></thead>\n<tbody>\n"
+            + "\n".join(rows) + "\n</tbody>\n</table>")
+
+
+def _csv_table(path: Path, name: str) -> str:
+    try:
+        with open(path, newline="") as fh:
+            rows = list(csv.reader(fh))
+    except (OSError, UnicodeDecodeError, csv.Error) as exc:
+        raise ReportError(f"{path}: cannot read the comparison table ({exc})") from None
+    if not rows:
+        return f"<p>{_e(name)}: empty.</p>"
+    head = "".join(f"<th>{_e(c)}</th>" for c in rows[0])
+    body = "\n".join("<tr>" + "".join(f"<td>{_e(c)}</td>" for c in r) + "</tr>"
+                     for r in rows[1:])
+    return (f"<h3>{_e(name)}</h3>\n<table>\n<thead><tr>{head}</tr></thead>\n<tbody>\n{body}"
+            "\n</tbody>\n</table>")
+
+
+def _png_uri(path: Path) -> str:
+    try:
+        data = path.read_bytes()
+    except OSError as exc:
+        raise ReportError(f"{path}: cannot read the figure ({exc.strerror or exc})") from None
+    if not data.startswith(PNG_SIGNATURE):
+        raise ReportError(f"{path}: not a PNG file (the manifest lists it as a figure)")
+    return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
+
+
+def _caption(folder: Path, png: str, entry: dict) -> str:
+    """The ``.caption.md`` beside a figure-set PNG as escaped plain text, else the manifest's
+    description of the file."""
+    stem = png[:-len(".png")]
+    md = folder / f"{stem}.caption.md"
+    if md.is_file():
+        try:
+            text = md.read_text().strip()
+        except (OSError, UnicodeDecodeError) as exc:
+            raise ReportError(f"{md}: cannot read the caption ({exc})") from None
+        return _BOLD.sub(r"<b>\1</b>", _e(text))  # escaped first: only **bold** becomes HTML
+    return _e(entry.get("description") or png)
+
+
+def _figures(folder: Path, outputs: dict) -> tuple[str, int]:
+    for kind in FIGURE_KINDS:
+        pngs = sorted(n for n, e in outputs.items()
+                      if e.get("kind") == kind and n.lower().endswith(".png"))
+        if pngs:
+            break
+    else:
+        return "<p>No figures: the run was made without them (run <code>euphotic figures"\
+               "</code> to draw them).</p>", 0
+    parts = []
+    for n in pngs:
+        parts.append(f'<figure>\n<img src="{_png_uri(folder / n)}" alt="{_e(n)}">\n'
+                     f"<figcaption><b>{_e(n)}</b>\n{_caption(folder, n, outputs[n])}"
+                     "</figcaption>\n</figure>")
+    return "\n".join(parts), len(pngs)
+
+
+def _provenance(manifest: dict) -> str:
+    items = [("configuration", manifest.get("config")),
+             ("configuration SHA-256", manifest.get("config_sha256")),
+             ("euphotic version", manifest.get("version")),
+             ("command", manifest.get("command")),
+             ("models", ", ".join(manifest.get("models", []))),
+             ("months", ", ".join(manifest.get("months", []))),
+             ("skipped months", ", ".join(str(m) for m in manifest.get("skipped_months", [])))]
+    out = ['<dl class="prov">']
+    for k, v in items:
+        if v:
+            out.append(f"<dt>{_e(k)}</dt><dd><code>{_e(v)}</code></dd>")
+    inputs = manifest.get("inputs") or {}
+    if inputs:
+        out.append("<dt>inputs</dt><dd><ul>")
+        for role, files in inputs.items():
+            listed = ", ".join(str(f) for f in files) if isinstance(files, list) else str(files)
+            out.append(f"<li>{_e(role)}: <code>{_e(listed)}</code></li>")
+        out.append("</ul></dd>")
+    out.append("</dl>")
+    return "\n".join(out)
+
+
+def render(folder: str | Path) -> tuple[str, int]:
+    """The report page of the run committed in ``folder`` and the number of images in it.
+
+    Raises
+    ------
+    NoRunError, InterruptedCommitError, OutputChangedError
+        As :func:`euphotic.results.committed_manifest`.
+    ReportError
+        A figure or comparison table the manifest lists cannot be read.
+    """
+    from euphotic.methods import methods_text
+
+    folder = Path(folder).absolute()
+    manifest = results.committed_manifest(folder)
+    outputs = manifest.get("outputs", {})
+    totals = results.open_totals(folder)
+    comp = sorted(n for n, e in outputs.items()
+                  if e.get("kind") == COMPARISON_KIND and n.endswith(".csv"))
+    comparisons = ""
+    if comp:
+        comparisons = "<h2>Comparisons</h2>\n" + "\n".join(
+            _csv_table(folder / n, n) for n in comp)
+    figures, n_images = _figures(folder, outputs)
+    m = methods_text(folder)
+    methods = (f'<p id="methods">{_e(' '.join(m.text.split()))}</p>\n<h3>References</h3>\n'
+               f'<pre id="references">{_e(m.references_text.strip())}</pre>')
+    page = _PAGE.substitute(
+        css=_CSS, run_id=_e(manifest.get("run_id", "")), created=_e(manifest.get("created", "")),
+        version=_e(manifest.get("version", "")), caution=_e(manifest.get("caution") or CAUTION),
+        totals=totals_table(totals), comparisons=comparisons, figures=figures, methods=methods,
+        provenance=_provenance(manifest), tool_version=_e(__version__),
+        now=_e(runfolder.now_iso()))
+    return page, n_images
+
+
+def write_report(folder: str | Path, *, command: str = "euphotic report") -> Written:
+    """Write ``report.html`` into the run committed in ``folder`` and list it in its manifest
+    (kind :data:`KIND`; a new report replaces the old one; on any failure nothing changes).
+
+    Raises
+    ------
+    NoRunError, InterruptedCommitError, OutputChangedError, ReportError
+        As :func:`render`.
+    OutputBusyError
+        Another euphotic process holds the folder.
+    """
+    folder = Path(folder)
+    page, n_images = render(folder)
+    with runfolder.OutputFolder(folder).adding(command, replace_kinds=(KIND,)) as (stage, added):
+        stage.file(FILE).write_text(page, encoding="utf-8")
+        added[FILE] = {"kind": KIND, "description": "self-contained HTML review of the run"}
+    return Written(path=folder / FILE, images=n_images)
