@@ -255,7 +255,8 @@ def render(folder: str | Path) -> tuple[str, int]:
             _csv_table(folder / n, n) for n in comp)
     figures, n_images = _figures(folder, outputs)
     m = methods_text(folder)
-    methods = (f'<p id="methods">{_e(' '.join(m.text.split()))}</p>\n<h3>References</h3>\n'
+    paragraph = " ".join(m.text.split())
+    methods = (f'<p id="methods">{_e(paragraph)}</p>\n<h3>References</h3>\n'
                f'<pre id="references">{_e(m.references_text.strip())}</pre>')
     page = _PAGE.substitute(
         css=_CSS, run_id=_e(manifest.get("run_id", "")), created=_e(manifest.get("created", "")),
