@@ -58,6 +58,7 @@ figure{margin:1.5em 0}
 figure img{max-width:100%;height:auto;border:1px solid #ddd}
 figcaption{white-space:pre-wrap;font-size:0.9em}
 pre{white-space:pre-wrap}
+.wide{overflow-x:auto}
 dl.prov dt{font-weight:bold}
 """
 
@@ -148,8 +149,8 @@ def totals_table(totals) -> str:
                           for v in numeric]
                 cells.append(f'<td class="flag">{_e(s["flag"].item())}</td>')
                 rows.append("<tr>" + "".join(cells) + "</tr>")
-    return ('<table id="totals">\n<thead><tr>' + "".join(head) + "</tr></thead>\n<tbody>\n"
-            + "\n".join(rows) + "\n</tbody>\n</table>")
+    return ('<div class="wide"><table id="totals">\n<thead><tr>' + "".join(head)
+            + "</tr></thead>\n<tbody>\n" + "\n".join(rows) + "\n</tbody>\n</table></div>")
 
 
 def _csv_table(path: Path, name: str) -> str:
@@ -163,8 +164,8 @@ def _csv_table(path: Path, name: str) -> str:
     head = "".join(f"<th>{_e(c)}</th>" for c in rows[0])
     body = "\n".join("<tr>" + "".join(f"<td>{_e(c)}</td>" for c in r) + "</tr>"
                      for r in rows[1:])
-    return (f"<h3>{_e(name)}</h3>\n<table>\n<thead><tr>{head}</tr></thead>\n<tbody>\n{body}"
-            "\n</tbody>\n</table>")
+    return (f'<h3>{_e(name)}</h3>\n<div class="wide"><table>\n<thead><tr>{head}</tr></thead>'
+            f"\n<tbody>\n{body}\n</tbody>\n</table></div>")
 
 
 def _png_uri(path: Path) -> str:
