@@ -252,3 +252,25 @@ def test_ci_installs_chromium_then_runs_the_readme_test_command():
     install = ci.index("apt-get install -y -qq chromium")
     assert install < ci.index(command)
     assert '|| echo "chromium not installed; the browser test will skip"' in ci  # never fails CI
+
+
+def test_long_tables_are_folded():
+    """A long table is put in an HTML <details> element (folded) so that the figures and
+    comparisons below it stay in view; a short one is not."""
+    import numpy as np
+    import xarray as xr
+
+    from euphotic import report
+
+    def totals(n_months):
+        months = np.arange(np.datetime64("2020-01"), np.datetime64("2020-01") + n_months)
+        shape = (1, n_months, 1)
+        data = {v: (("region", "month", "model"), np.ones(shape), {"units": "1"})
+                for v in ("mean_npp", "total")}
+        data["flag"] = (("region", "month", "model"), np.full(shape, "", object))
+        return xr.Dataset(data, coords={"region": ["A"], "model": ["vgpm"],
+                                        "month": months.astype("datetime64[ns]")})
+
+    assert "<details>" not in report.totals_table(totals(report.LONG_TABLE_ROWS))
+    folded = report.totals_table(totals(report.LONG_TABLE_ROWS + 1))
+    assert folded.startswith(f"<details><summary>{report.LONG_TABLE_ROWS + 1} rows")

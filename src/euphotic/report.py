@@ -117,6 +117,10 @@ _TOTALS_DECIMALS = {"mean_npp": 1, "observed_area": 0, "ocean_area": 0, "coverag
                     "total": 4, "total_filled": 4}
 
 
+#: Totals tables longer than this are folded (HTML ``<details>``) in the report.
+LONG_TABLE_ROWS = 48
+
+
 def totals_table(totals) -> str:
     """The regional totals as an HTML table; each header names the variable and its units
     (from the Dataset's attributes); the quality flags are shown in their own column.
@@ -149,8 +153,12 @@ def totals_table(totals) -> str:
                           for v in numeric]
                 cells.append(f'<td class="flag">{_e(s["flag"].item())}</td>')
                 rows.append("<tr>" + "".join(cells) + "</tr>")
-    return ('<div class="wide"><table id="totals">\n<thead><tr>' + "".join(head)
-            + "</tr></thead>\n<tbody>\n" + "\n".join(rows) + "\n</tbody>\n</table></div>")
+    table = ('<div class="wide"><table id="totals">\n<thead><tr>' + "".join(head)
+             + "</tr></thead>\n<tbody>\n" + "\n".join(rows) + "\n</tbody>\n</table></div>")
+    if len(rows) > LONG_TABLE_ROWS:  # a long run: folded, so figures and comparisons show
+        return (f"<details><summary>{len(rows):,} rows (region, month, model): click to "
+                f"show</summary>\n{table}\n</details>")
+    return table
 
 
 def _csv_table(path: Path, name: str) -> str:
@@ -164,8 +172,12 @@ def _csv_table(path: Path, name: str) -> str:
     head = "".join(f"<th>{_e(c)}</th>" for c in rows[0])
     body = "\n".join("<tr>" + "".join(f"<td>{_e(c)}</td>" for c in r) + "</tr>"
                      for r in rows[1:])
-    return (f'<h3>{_e(name)}</h3>\n<div class="wide"><table>\n<thead><tr>{head}</tr></thead>'
-            f"\n<tbody>\n{body}\n</tbody>\n</table></div>")
+    table = (f'<div class="wide"><table>\n<thead><tr>{head}</tr></thead>'
+             f"\n<tbody>\n{body}\n</tbody>\n</table></div>")
+    if len(rows) - 1 > LONG_TABLE_ROWS:
+        table = (f"<details><summary>{len(rows) - 1:,} rows: click to show</summary>\n"
+                 f"{table}\n</details>")
+    return f"<h3>{_e(name)}</h3>\n{table}"
 
 
 def _png_uri(path: Path) -> str:
