@@ -272,6 +272,19 @@ def inspect(files: tuple[str, ...], role: str | None, variable: str | None, debu
     _fail(last or EuphoticError("no input recognised"), debug)
 
 
+def _add_to_run(name: str, write, debug: bool, **options):
+    """Run ``write(folder..., command=..., **options)`` for a command that adds outputs to a
+    committed run; every failure becomes one line (or the traceback with --debug). Returns
+    what ``write`` returned, or None after a failure."""
+    _log_warnings()
+    command = f"euphotic {name} " + " ".join(shlex.quote(a) for a in sys.argv[2:])
+    try:
+        return write(command=command, **options)
+    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
+        _fail(exc, debug)
+        return None
+
+
 @main.command(name="compare")
 @click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
 @click.option("--baseline", metavar="FIRST-LAST",
@@ -288,15 +301,11 @@ def compare_command(folder: Path, baseline: str | None, compare_to: str | None,
     """Compare the years and regions of the run in FOLDER: annual totals, seasonal cycle,
     anomalies against a baseline, trends (tables), and per-cell trend and difference maps.
     They are added to FOLDER and listed in its manifest."""
-    _log_warnings()
-    try:
-        from euphotic.compare_outputs import write_comparisons
+    from euphotic.compare_outputs import write_comparisons
 
-        command = "euphotic compare " + " ".join(shlex.quote(a) for a in sys.argv[2:])
-        w = write_comparisons(folder, baseline=baseline, compare_years=compare_to,
-                              min_coverage=min_coverage, maps=not no_maps, command=command)
-    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
-        _fail(exc, debug)
+    w = _add_to_run("compare", write_comparisons, debug, folder=folder, baseline=baseline,
+                    compare_years=compare_to, min_coverage=min_coverage, maps=not no_maps)
+    if w is None:
         return
     click.echo(f"Trends of annual totals (Theil-Sen slope per year, Mann-Kendall p; baseline "
                f"{w.baseline[0]}-{w.baseline[1]}):")
@@ -337,16 +346,12 @@ def figures_command(folder: Path, period: str | None, baseline: str | None, proj
                     debug: bool) -> None:
     """Draw the proposal figures of the run in FOLDER (PNG at 300 dpi and PDF, each with a
     caption); they are added to FOLDER as one set and listed in its manifest."""
-    _log_warnings()
-    try:
-        from euphotic.figureset import write_figure_set
+    from euphotic.figureset import write_figure_set
 
-        command = "euphotic figures " + " ".join(shlex.quote(a) for a in sys.argv[2:])
-        fs = write_figure_set(folder, period=period, baseline=baseline, projection=projection,
-                              min_coverage=min_coverage, width=width, relative=not absolute,
-                              command=command)
-    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
-        _fail(exc, debug)
+    fs = _add_to_run("figures", write_figure_set, debug, folder=folder, period=period,
+                     baseline=baseline, projection=projection, min_coverage=min_coverage,
+                     width=width, relative=not absolute)
+    if fs is None:
         return
     for note in fs.notes:
         click.echo(f"note: {note}")
@@ -362,14 +367,10 @@ def figures_command(folder: Path, period: str | None, baseline: str | None, proj
 def methods_command(folder: Path, quiet: bool, debug: bool) -> None:
     """Write a methods paragraph and its references (text and BibTeX) for the run in FOLDER,
     added to FOLDER and listed in its manifest; print the paragraph."""
-    _log_warnings()
-    try:
-        from euphotic.methods import write_methods
+    from euphotic.methods import write_methods
 
-        command = "euphotic methods " + " ".join(shlex.quote(a) for a in sys.argv[2:])
-        w = write_methods(folder, command=command)
-    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
-        _fail(exc, debug)
+    w = _add_to_run("methods", write_methods, debug, folder=folder)
+    if w is None:
         return
     click.echo(w.methods.text, nl=False)
     if not quiet:
@@ -385,14 +386,10 @@ def methods_command(folder: Path, quiet: bool, debug: bool) -> None:
 def report_command(folder: Path, quiet: bool, debug: bool) -> None:
     """Write report.html, a self-contained page (tables, figures, methods, caution) for
     reviewing the run in FOLDER in a browser; it is added to FOLDER and its manifest."""
-    _log_warnings()
-    try:
-        from euphotic.report import write_report
+    from euphotic.report import write_report
 
-        command = "euphotic report " + " ".join(shlex.quote(a) for a in sys.argv[2:])
-        w = write_report(folder, command=command)
-    except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
-        _fail(exc, debug)
+    w = _add_to_run("report", write_report, debug, folder=folder)
+    if w is None:
         return
     if not quiet:
         click.echo(f"wrote {w.path} ({w.images} images embedded)")
