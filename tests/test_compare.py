@@ -460,7 +460,7 @@ def test_numpy_and_dask_maps_give_one_answer():
 
 
 def test_p_value_is_the_mann_kendall_z_test_without_continuity_correction():
-    # Mann-Kendall by its textbook formulas (Kendall 1975, as usually quoted; from memory):
+    # Mann-Kendall by its usual formulas (Kendall 1975, as usually quoted; from memory):
     # S = sum_{i<j} sign(y_j - y_i), var S = [n(n-1)(2n+5) - sum_t t(t-1)(2t+5)] / 18 over tie
     # groups of size t, z = S / sqrt(var S) (here without the continuity correction, as
     # documented), p = erfc(|z| / sqrt 2). Values rounded to 0.1 so that there are ties.

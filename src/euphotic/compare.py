@@ -686,7 +686,7 @@ def trend(
     intercept median(y) - slope median(t), interval from Kendall's tau statistic). The trend
     test is :func:`scipy.stats.kendalltau` of value against time: its tau-b and p-value. With
     time strictly increasing this is the Mann-Kendall test (tau-b = S / sqrt(n0 (n0 - n_ties))),
-    with two differences from the textbook Mann-Kendall z-test: no continuity correction
+    with two differences from the usual statement of the Mann-Kendall z-test: no continuity correction
     (z = S / sqrt(var S) rather than (|S| - 1) / sqrt(var S)), and for series without ties and
     up to 33 values scipy gives the exact p-value instead of the normal approximation. Both make
     small differences near the significance threshold for short series only. Ties in the
