@@ -238,7 +238,7 @@ def main(out: Path) -> None:
         )
 
 
-DECADE_SEED = 20150101
+DECADE_SEED = 20150109
 DECADE_YEARS = range(2015, 2025)
 DECADE_RES = 0.5
 
