@@ -417,7 +417,7 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
                 entry = {"kind": "map", "model": model_name,
                          "month": str(np.datetime64(month, "M")),
                          "fingerprint": fps[(model_name, month)], "valid_cells": int(nv),
-                         "rows": _rows_to_json(rows), **_stat(stage.file(name))}
+                         "rows": _rows_to_json(rows), **runfolder.stat_entry(stage.file(name))}
                 stage.record(name, entry)
                 entries[name] = entry
             with _writing(out_dir, "the run's staging index"):
@@ -440,13 +440,12 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
     return result
 
 
-_stat = runfolder.stat_entry
 
 
 def _intact(path: Path, entry: dict) -> bool:
     """An output in place is as its manifest recorded it (same size and modification time)."""
     try:
-        st = _stat(path)
+        st = runfolder.stat_entry(path)
     except OSError:
         return False
     return st["bytes"] == entry.get("bytes") and st["mtime_ns"] == entry.get("mtime_ns")
@@ -459,7 +458,7 @@ def _salvage(pending: list[runfolder.Stage], stage: runfolder.Stage, name: str, 
         src = old.file(name)
         if entry and entry.get("fingerprint") == fp and _intact(src, entry):
             os.replace(src, stage.file(name))
-            entry = {**entry, **_stat(stage.file(name))}
+            entry = {**entry, **runfolder.stat_entry(stage.file(name))}
             stage.record(name, entry)
             return entry
     return None
@@ -497,8 +496,8 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
         outputs.write_totals_metadata(
             sidecar, csv_name=totals.name, models=cfg.models, earth=cfg.earth,
             provenance=provenance, metadata=cfg.metadata)
-    entries[totals.name] = {"kind": "table", **_stat(totals)}
-    entries[sidecar.name] = {"kind": "table metadata", "of": totals.name, **_stat(sidecar)}
+    entries[totals.name] = {"kind": "table", **runfolder.stat_entry(totals)}
+    entries[sidecar.name] = {"kind": "table metadata", "of": totals.name, **runfolder.stat_entry(sidecar)}
 
     figures: list[Path] = []
     prev_outputs = previous.get("outputs", {})
@@ -519,14 +518,14 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
         with _writing(out_dir, f"the figure {png}"):
             figs.map_figure(src, stage.file(png), prep.region_masks)
         entries[png] = {"kind": "figure", "of": name, "fingerprint": fp,
-                        **_stat(stage.file(png))}
+                        **runfolder.stat_entry(stage.file(png))}
         figures.append(out_dir / png)
     if cfg.figures and rows:
         from euphotic import figures as figs
 
         with _writing(out_dir, "the totals chart"):
             figs.totals_figure(rows, stage.file("regional_totals.png"))
-        entries["regional_totals.png"] = {"kind": "figure", **_stat(stage.file("regional_totals.png"))}
+        entries["regional_totals.png"] = {"kind": "figure", **runfolder.stat_entry(stage.file("regional_totals.png"))}
         figures.append(out_dir / "regional_totals.png")
 
     base = Path(cfg.path).resolve().parent if cfg.path else out_dir  # inputs: relative to it

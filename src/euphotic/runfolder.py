@@ -225,21 +225,6 @@ def stat_entry(path: Path) -> dict:
     return {"bytes": size, "mtime_ns": st.st_mtime_ns}
 
 
-def file_entry(path: Path) -> dict:
-    """Size and SHA-256 of a finished output file (or of every file of a Zarr store)."""
-    h = hashlib.sha256()
-    size = 0
-    files = sorted(p for p in Path(path).rglob("*") if p.is_file()) if path.is_dir() else [path]
-    for p in files:
-        if path.is_dir():
-            h.update(str(p.relative_to(path)).encode())
-        with open(p, "rb") as fh:
-            while chunk := fh.read(1 << 20):
-                h.update(chunk)
-                size += len(chunk)
-    return {"size": size, "sha256": h.hexdigest()}
-
-
 class OutputFolder:
     """One run's view of its output folder: lock, recovery, staging, reuse and commit."""
 
@@ -417,8 +402,7 @@ class OutputFolder:
                 outputs = {n: e for n, e in previous["outputs"].items()
                            if e.get("kind") not in replace_kinds or n in added}
                 for name in added:
-                    st = stage.file(name).stat()
-                    added[name] = {**added[name], "bytes": st.st_size, "mtime_ns": st.st_mtime_ns}
+                    added[name] = {**added[name], **stat_entry(stage.file(name))}
                 outputs.update(added)
                 history = list(previous.get("added", [])) + [
                     {"command": command, "time": now_iso(), "outputs": sorted(added)}]
