@@ -104,3 +104,15 @@ def test_a_new_compare_replaces_the_set_and_errors_are_one_line(three_years, tmp
     res = CliRunner().invoke(main, ["compare", str(empty)])
     assert res.exit_code == 1
     assert res.stderr.strip().startswith(f"euphotic: error: no euphotic run in {empty}")
+
+
+def test_compare_on_a_one_month_run_says_there_is_no_trend(demo_run, tmp_path):
+    """The April demo has no complete year: no slope is printed as a number."""
+    import shutil
+
+    out = tmp_path / "demo"
+    shutil.copytree(demo_run, out)
+    res = CliRunner().invoke(main, ["compare", str(out), "-q"])
+    assert res.exit_code == 0, res.output
+    assert "nan" not in res.stdout
+    assert "  Tollan Bank              vgpm         no trend: 0 complete year(s) of data" in res.stdout

@@ -312,6 +312,10 @@ def compare_command(folder: Path, baseline: str | None, compare_to: str | None,
     for t in w.trends:
         if t["series"] != "annual totals":
             continue
+        if not t["slope"] == t["slope"]:  # NaN: too few complete years for a slope
+            click.echo(f"  {t['region']:<24} {t['model']:<12} no trend: "
+                       f"{int(t['n_years'])} complete year(s) of data")
+            continue
         note = "  (short record)" if t["short_record"] else ""
         click.echo(f"  {t['region']:<24} {t['model']:<12} {t['slope']:+9.3f} Tg C yr-2  "
                    f"p = {t['p_value']:.3f}  n = {int(t['n_years'])} years{note}")
