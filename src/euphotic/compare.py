@@ -12,11 +12,18 @@ Calendar months come from the ``month`` coordinate (first day of the month). Out
 calendar month have a dimension ``calendar_month`` (1-12, always all twelve; a calendar month
 without data is NaN, never 0).
 
-Coverage: every function takes ``min_coverage`` (0-1). Values whose ``coverage`` is below it
-are dropped (NaN) before anything is computed; the output's attrs record ``min_coverage`` and
-``n_dropped_low_coverage`` (the number of values dropped). For dask-backed input that count
-is not known without computing, so it is returned instead as a lazy 0-d data variable of the
-same name.
+Coverage rule: one rule, recorded by the run (``[run] min_coverage`` and ``low_coverage``, in
+the attrs of :func:`euphotic.results.open_totals` / ``open_maps``), used by every function here
+unless its ``min_coverage`` / ``low_coverage`` keywords say otherwise. A value (a region-month
+total, or a cell's monthly value) is *below the rule* where its ``coverage`` is below
+``min_coverage``. With ``low_coverage="drop"`` such values are NaN before anything is computed
+(a month dropped from a year makes that year incomplete); with ``"flag"`` they are kept and
+counted. An explicit ``min_coverage`` without ``low_coverage`` drops (as before the run recorded
+a rule). The output's attrs record the rule used (``min_coverage``, ``low_coverage``) and the
+number of values below it (``n_dropped_low_coverage`` or ``n_flagged_low_coverage``). For
+dask-backed input that count is not known without computing, so it is returned instead as a
+lazy 0-d data variable of the same name. Input without a rule (no attrs, no keywords) is used
+as it is.
 
 Arithmetic is in float64 (the maps' float32 values are converted chunk by chunk), so outputs
 are float64.
@@ -27,11 +34,12 @@ from __future__ import annotations
 import logging
 import warnings
 from collections.abc import Sequence
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import xarray as xr
 
+from euphotic.constants import G_PER_TG
 from euphotic.errors import EuphoticError
 
 _log = logging.getLogger("euphotic")
@@ -52,6 +60,14 @@ _EXTENSIVE = ("total", "total_filled")
 _DEFAULT_VARIABLE = {"maps": "npp", "totals": "total"}
 
 Years = int | tuple[int, int] | Sequence[int] | None
+#: What the coverage rule does with values below it.
+LowCoverage = Literal["flag", "drop"]
+#: How a region-month total is formed (see :func:`filled_totals`).
+TotalsKind = Literal["observed", "scaled", "climatology"]
+#: Flag of a value below the coverage rule that was kept (rule "flag").
+FLAG_LOW_COVERAGE = "low_coverage"
+#: Milligrams per gram.
+MG_PER_G = 1000.0
 
 
 class CompareInputError(EuphoticError):
@@ -87,10 +103,53 @@ def _check_fraction(name: str, value: float | None) -> None:
         raise CompareInputError(f"{name}: must be between 0 and 1, got {value!r}")
 
 
+def coverage_rule(
+    x: xr.Dataset | xr.DataArray,
+    *,
+    min_coverage: float | None = None,
+    low_coverage: LowCoverage | None = None,
+) -> tuple[float | None, LowCoverage]:
+    """The coverage rule to apply to ``x``: ``(min_coverage, low_coverage)``.
+
+    Keywords win over the rule ``x`` records in its attrs (``min_coverage``, ``low_coverage``:
+    the run's ``[run]`` keys, see :func:`euphotic.results.open_totals`). An explicit
+    ``min_coverage`` without ``low_coverage`` means ``"drop"``. ``(None, "flag")``: no rule.
+    """
+    _check_fraction("min_coverage", min_coverage)
+    if low_coverage not in (None, "flag", "drop"):
+        raise CompareInputError(f"low_coverage: must be 'flag' or 'drop', got {low_coverage!r}")
+    attrs = x.attrs if isinstance(x, xr.Dataset) else {}
+    if min_coverage is not None:
+        return float(min_coverage), low_coverage or "drop"
+    recorded = attrs.get("min_coverage")
+    if recorded is None:
+        if low_coverage == "drop":
+            raise CompareInputError(
+                "low_coverage: 'drop' needs min_coverage (the input records no coverage rule)")
+        return None, low_coverage or "flag"
+    _check_fraction("min_coverage (recorded)", recorded)
+    how = low_coverage or attrs.get("low_coverage") or "flag"
+    if how not in ("flag", "drop"):
+        raise CompareInputError(f"low_coverage (recorded): must be 'flag' or 'drop', got {how!r}")
+    return float(recorded), how
+
+
+def _below_rule(x: xr.Dataset | xr.DataArray, attrs: dict[str, Any], name: str) -> xr.DataArray | None:
+    """Where ``x[name]`` has a value and its coverage is below the rule in ``attrs`` (None: no
+    rule applies)."""
+    if attrs.get("min_coverage") is None or not isinstance(x, xr.Dataset) or "coverage" not in x:
+        return None
+    return x[name].notnull() & (x["coverage"] < float(attrs["min_coverage"]))
+
+
 def _select(
-    x: xr.Dataset | xr.DataArray, variable: str | None, min_coverage: float | None
+    x: xr.Dataset | xr.DataArray,
+    variable: str | None,
+    min_coverage: float | None,
+    low_coverage: LowCoverage | None = None,
 ) -> tuple[xr.DataArray, dict[str, Any], dict[str, xr.DataArray]]:
-    """The variable to work on (masked by coverage), the attrs to carry, and any lazy count."""
+    """The variable to work on (masked by the coverage rule), the attrs to carry, and any lazy
+    count."""
     _check_fraction("min_coverage", min_coverage)
     tdim = _time_dim(x)
     if "month" not in x.coords or x["month"].dims != (tdim,):
@@ -101,9 +160,10 @@ def _select(
             raise CompareInputError(
                 f"variable {variable!r}: a DataArray named {x.name!r} was given; pass the Dataset"
             )
-        if min_coverage is not None:
+        if min_coverage is not None or low_coverage == "drop":
+            what = "min_coverage" if min_coverage is not None else "low_coverage"
             raise CompareInputError(
-                f"min_coverage: needs the 'coverage' variable; pass the Dataset, not the DataArray {x.name!r}"
+                f"{what}: needs the 'coverage' variable; pass the Dataset, not the DataArray {x.name!r}"
             )
         return _as_float64(x), attrs, {}
     name = variable or _DEFAULT_VARIABLE[_kind(x)]
@@ -113,19 +173,26 @@ def _select(
         )
     da = _as_float64(x[name])
     extra: dict[str, xr.DataArray] = {}
-    if min_coverage is not None:
+    threshold, how = coverage_rule(x, min_coverage=min_coverage, low_coverage=low_coverage)
+    for key in ("min_coverage", "low_coverage", "n_dropped_low_coverage", "n_flagged_low_coverage"):
+        attrs.pop(key, None)
+    if threshold is not None:
         if "coverage" not in x.data_vars:
             raise CompareInputError("min_coverage: the dataset has no 'coverage' variable")
-        low = x["coverage"] < min_coverage  # NaN coverage compares False: not dropped
-        dropped = (da.notnull() & low).sum()
-        da = da.where(~low)
-        da.attrs = dict(x[name].attrs)
-        attrs["min_coverage"] = float(min_coverage)
-        if _is_lazy(dropped):
-            dropped.attrs = {"units": "1", "long_name": "values dropped for coverage below min_coverage"}
-            extra["n_dropped_low_coverage"] = dropped
+        low = x["coverage"] < threshold  # NaN coverage compares False: not below the rule
+        below = (da.notnull() & low).sum()
+        if how == "drop":
+            da = da.where(~low)
+            da.attrs = dict(x[name].attrs)
+        attrs["min_coverage"] = threshold
+        attrs["low_coverage"] = how
+        count = "n_dropped_low_coverage" if how == "drop" else "n_flagged_low_coverage"
+        if _is_lazy(below):
+            below.attrs = {"units": "1", "long_name": "values dropped for coverage below min_coverage"
+                           if how == "drop" else "values kept and flagged for coverage below min_coverage"}
+            extra[count] = below
         else:
-            attrs["n_dropped_low_coverage"] = int(dropped)
+            attrs[count] = int(below)
     return da, attrs, extra
 
 
@@ -214,6 +281,7 @@ def annual_totals(
     keep_partial: bool = False,
     variable: str | None = None,
     min_coverage: float | None = None,
+    low_coverage: LowCoverage | None = None,
 ) -> xr.Dataset:
     """Carbon fixed per region, calendar year and model.
 
@@ -229,16 +297,19 @@ def annual_totals(
         an incomplete year's total is NaN, since a sum over fewer months is not a yearly total.
     variable : str, keyword-only
         ``"total"`` (default: observed cells) or ``"total_filled"``.
-    min_coverage : float, keyword-only
-        Drop months whose ``coverage`` (0-1) is below this before summing (they then count as
-        missing).
+    min_coverage, low_coverage : keyword-only
+        The coverage rule (module docstring; default: the rule the input records). With
+        ``"drop"``, months below it count as missing, so their year is incomplete; with
+        ``"flag"`` they are summed and the year is flagged ``low_coverage``.
 
     Returns
     -------
     xarray.Dataset
         Dims ``(region, year, model)``: ``total`` (Tg yr-1 of carbon), ``total_pg`` (Pg yr-1,
-        the same divided by 1000), ``n_months`` (months with a value, 1) and ``flag`` (str:
-        ``""``, ``"incomplete_year"`` when ``n_months < min_months``, ``"no_data"`` when 0).
+        the same divided by 1000), ``n_months`` (months with a value, 1), ``n_low_coverage``
+        (months below the coverage rule, dropped or kept, 1) and ``flag`` (str, codes joined
+        by ``;``: ``""``, ``"incomplete_year"`` when ``n_months < min_months``, ``"no_data"``
+        when 0, ``"low_coverage"`` when the rule is "flag" and a summed month is below it).
 
     Notes
     -----
@@ -246,7 +317,7 @@ def annual_totals(
     """
     if not 1 <= int(min_months) <= MONTHS_PER_YEAR:
         raise CompareInputError(f"min_months: must be between 1 and 12, got {min_months!r}")
-    da, attrs, extra = _select(totals, variable, min_coverage)
+    da, attrs, extra = _select(totals, variable, min_coverage, low_coverage)
     if _time_dim(da) != "month":
         raise CompareInputError("totals: annual totals need the totals table (dim 'month')")
     if _units(da) != "Tg":
@@ -259,16 +330,25 @@ def annual_totals(
     incomplete = n < int(min_months)
     if not keep_partial:
         total = total.where(~incomplete)
+    below = _below_rule(totals, attrs, str(da.name))
+    n_low = (below.groupby(_years_of(da)).sum() if below is not None
+             else xr.zeros_like(n)).astype(np.int64)
+    kept_low = (n_low > 0) & (attrs.get("low_coverage") == "flag") & (n > 0)
     flag = xr.where(n == 0, "no_data", xr.where(incomplete, "incomplete_year", ""))
+    flag = xr.where(kept_low, xr.where(flag == "", FLAG_LOW_COVERAGE, flag + ";" + FLAG_LOW_COVERAGE), flag)
     total.attrs = {"units": "Tg yr-1", "long_name": "carbon fixed in the year (net primary production)"}
     pg = total / TG_PER_PG
     pg.attrs = {"units": "Pg yr-1", "long_name": "carbon fixed in the year (net primary production)"}
     n.attrs = {"units": "1", "long_name": "months with a value"}
-    flag.attrs = {"long_name": "quality flag", "flag_meanings": "'' incomplete_year no_data"}
+    n_low.attrs = {"units": "1", "long_name": "months with coverage below min_coverage (dropped "
+                   "with the rule 'drop', kept and flagged with 'flag')"}
+    flag.attrs = {"long_name": "quality flag, codes separated by ';'",
+                  "flag_meanings": "'' incomplete_year no_data low_coverage"}
     attrs.update(min_months=int(min_months), keep_partial=int(bool(keep_partial)), source_variable=str(da.name))
     order = [d for d in ("region", "year", "model") if d in total.dims]
     data = {k: v.transpose(*order, ...) for k, v in
-            {"total": total, "total_pg": pg, "n_months": n, "flag": flag}.items()}
+            {"total": total, "total_pg": pg, "n_months": n, "n_low_coverage": n_low,
+             "flag": flag}.items()}
     return _out(data, attrs, extra)
 
 
@@ -282,6 +362,7 @@ def seasonal_cycle(
     years: Years = None,
     variable: str | None = None,
     min_coverage: float | None = None,
+    low_coverage: LowCoverage | None = None,
 ) -> xr.Dataset:
     """Mean, minimum, maximum, range and count by calendar month over chosen years.
 
@@ -292,17 +373,19 @@ def seasonal_cycle(
         mg m-2 d-1), or one variable of them.
     years : int, (first, last) or list of int, keyword-only
         Years to use (a span includes both ends); all by default.
-    variable, min_coverage : keyword-only
-        The variable to use, and the minimum coverage (0-1) below which values are dropped.
+    variable, min_coverage, low_coverage : keyword-only
+        The variable to use, and the coverage rule (see the module docstring; default: the
+        rule the input records, e.g. the run's).
 
     Returns
     -------
     xarray.Dataset
         The time dimension replaced by ``calendar_month`` (1-12): ``mean``, ``min``, ``max``,
-        ``range`` (max - min), all in the variable's units, and ``count`` (years with a value,
-        1). A calendar month with no value is NaN (count 0).
+        ``range`` (max - min), all in the variable's units, ``count`` (years with a value,
+        1) and, where a coverage rule applies, ``n_low_coverage`` (years below it, 1). A
+        calendar month with no value is NaN (count 0).
     """
-    da, attrs, extra = _select(x, variable, min_coverage)
+    da, attrs, extra = _select(x, variable, min_coverage, low_coverage)
     da = _pick_years(da, years, "years")
     g = da.groupby(_calendar_of(da))
     units = _units(da)
@@ -317,6 +400,13 @@ def seasonal_cycle(
     count = _by_calendar_month(da.notnull().groupby(_calendar_of(da)).sum()).fillna(0).astype(np.int64)
     count.attrs = {"units": "1", "long_name": "years with a value"}
     out["count"] = count
+    below = _below_rule(x, attrs, str(da.name))
+    if below is not None:
+        below = _pick_years(below, years, "years")
+        n_low = _by_calendar_month(below.groupby(_calendar_of(below)).sum()).fillna(0).astype(np.int64)
+        n_low.attrs = {"units": "1", "long_name": "years below the coverage rule (dropped with "
+                       "'drop', kept with 'flag')"}
+        out["n_low_coverage"] = n_low
     out = {k: _drop_time_coords(v) for k, v in out.items()}
     attrs.update(source_variable=str(da.name), years=_period_label(years))
     return _out(out, attrs, extra)
@@ -332,6 +422,7 @@ def climatology(
     baseline: tuple[int, int] | None = None,
     variable: str | None = None,
     min_coverage: float | None = None,
+    low_coverage: LowCoverage | None = None,
 ) -> xr.Dataset:
     """Mean by calendar month over a baseline period, per cell (maps) or per region (totals).
 
@@ -342,17 +433,18 @@ def climatology(
         mg m-2 d-1).
     baseline : (first_year, last_year), keyword-only
         Baseline years, both included; by default the whole record.
-    variable, min_coverage : keyword-only
+    variable, min_coverage, low_coverage : keyword-only
         As in :func:`seasonal_cycle`.
 
     Returns
     -------
     xarray.Dataset
-        ``climatology`` (the variable's units) and ``n_years`` (years with a value, 1), with
+        ``climatology`` (the variable's units), ``n_years`` (years with a value, 1) and,
+        where a coverage rule applies, ``n_low_coverage`` (baseline years below it, 1), with
         dimension ``calendar_month`` (1-12). A calendar month without any value in the
         baseline is NaN, not 0. Attrs ``baseline_first``, ``baseline_last``.
     """
-    da, attrs, extra = _select(x, variable, min_coverage)
+    da, attrs, extra = _select(x, variable, min_coverage, low_coverage)
     if baseline is None:
         yr = _years_of(da).values
         baseline = (int(yr.min()), int(yr.max()))
@@ -366,7 +458,15 @@ def climatology(
     attrs.update(
         source_variable=str(da.name), baseline_first=int(baseline[0]), baseline_last=int(baseline[1])
     )
-    return _out({"climatology": _drop_time_coords(clim), "n_years": _drop_time_coords(n)}, attrs, extra)
+    data = {"climatology": _drop_time_coords(clim), "n_years": _drop_time_coords(n)}
+    below = _below_rule(x, attrs, str(da.name))
+    if below is not None:
+        below = _pick_years(below, baseline, "baseline")
+        n_low = _by_calendar_month(below.groupby(_calendar_of(below)).sum()).fillna(0).astype(np.int64)
+        n_low.attrs = {"units": "1", "long_name": "baseline years below the coverage rule "
+                       "(dropped with 'drop', kept with 'flag')"}
+        data["n_low_coverage"] = _drop_time_coords(n_low)
+    return _out(data, attrs, extra)
 
 
 def anomalies(
@@ -376,6 +476,7 @@ def anomalies(
     relative: bool = False,
     variable: str | None = None,
     min_coverage: float | None = None,
+    low_coverage: LowCoverage | None = None,
 ) -> xr.Dataset:
     """Departures of each month from its calendar month's climatology.
 
@@ -389,20 +490,21 @@ def anomalies(
     relative : bool, keyword-only
         Also give the anomaly in percent of the climatology (NaN where the climatology is 0
         or NaN).
-    variable, min_coverage : keyword-only
+    variable, min_coverage, low_coverage : keyword-only
         As in :func:`seasonal_cycle`.
 
     Returns
     -------
     xarray.Dataset
-        On ``x``'s dims: ``anomaly`` (the variable's units) and, with ``relative``,
-        ``anomaly_percent`` (%). NaN where either side has no value.
+        On ``x``'s dims: ``anomaly`` (the variable's units), with ``relative``
+        ``anomaly_percent`` (%), and where a coverage rule applies ``below_min_coverage``
+        (bool: the value's coverage is below it). NaN where either side has no value.
 
     Notes
     -----
     anomaly = x - clim[calendar month]; anomaly_percent = 100 * anomaly / clim[calendar month].
     """
-    da, attrs, extra = _select(x, variable, min_coverage)
+    da, attrs, extra = _select(x, variable, min_coverage, low_coverage)
     c = clim["climatology"] if isinstance(clim, xr.Dataset) else clim
     if "calendar_month" not in c.dims:
         raise CompareInputError("clim: no 'calendar_month' dimension (pass the output of climatology())")
@@ -423,6 +525,10 @@ def anomalies(
         ) from exc
     anom.attrs = {"units": _units(da), "long_name": f"anomaly of {da.name} from the calendar-month climatology"}
     data = {"anomaly": anom}
+    below = _below_rule(x, attrs, str(da.name))
+    if below is not None:
+        below.attrs = {"long_name": "coverage below min_coverage (dropped with 'drop', kept with 'flag')"}
+        data["below_min_coverage"] = below
     if pct is not None:
         pct.attrs = {"units": "%", "long_name": f"anomaly of {da.name} in percent of the climatology"}
         data["anomaly_percent"] = pct
@@ -444,6 +550,7 @@ def difference(
     *,
     variable: str | None = None,
     min_coverage: float | None = None,
+    low_coverage: LowCoverage | None = None,
 ) -> xr.Dataset:
     """Period ``b`` against period ``a`` (e.g. a year against a baseline), per cell or region.
 
@@ -455,7 +562,7 @@ def difference(
     a, b : int or (first_year, last_year)
         The reference period ``a`` and the compared period ``b`` (a year, or a span with both
         ends included).
-    variable, min_coverage : keyword-only
+    variable, min_coverage, low_coverage : keyword-only
         As in :func:`seasonal_cycle`.
 
     Returns
@@ -463,8 +570,10 @@ def difference(
     xarray.Dataset
         ``mean_a``, ``mean_b`` (mean monthly value of each period, the variable's units),
         ``difference`` (b - a, same units), ``percent`` (100 (b - a) / a, %; NaN where a is 0),
-        ``n_months_a``, ``n_months_b`` (months with a value behind each side, 1). Attrs
-        ``period_a``, ``period_b`` and ``months_in_period_a`` / ``_b`` (months each span has).
+        ``n_months_a``, ``n_months_b`` (months with a value behind each side, 1), and where a
+        coverage rule applies ``n_low_coverage_a`` / ``_b`` (months below it on each side,
+        dropped or kept, 1). Attrs ``period_a``, ``period_b`` and ``months_in_period_a`` /
+        ``_b`` (months each span has).
 
     Notes
     -----
@@ -473,8 +582,9 @@ def difference(
     For totals the mean monthly total (Tg) times 12 is the period's mean annual total when no
     month is missing.
     """
-    da, attrs, extra = _select(x, variable, min_coverage)
+    da, attrs, extra = _select(x, variable, min_coverage, low_coverage)
     tdim = _time_dim(da)
+    below = _below_rule(x, attrs, str(da.name))
     sides = {}
     for label, period in (("a", a), ("b", b)):
         if isinstance(period, (list, np.ndarray)) or (isinstance(period, tuple) and len(period) != 2):
@@ -486,6 +596,11 @@ def difference(
         n = _drop_time_coords(part.notnull().sum(tdim)).astype(np.int64)
         n.attrs = {"units": "1", "long_name": f"months with a value in {_period_label(period)}"}
         sides[label] = (mean, n)
+        if below is not None:
+            n_low = _drop_time_coords(_pick_years(below, period, label).sum(tdim)).astype(np.int64)
+            n_low.attrs = {"units": "1", "long_name": f"months below the coverage rule in "
+                           f"{_period_label(period)} (dropped with 'drop', kept with 'flag')"}
+            extra = {**extra, f"n_low_coverage_{label}": n_low}
         attrs[f"period_{label}"] = _period_label(period)
         attrs[f"months_in_period_{label}"] = (chosen[1] - chosen[0] + 1) * MONTHS_PER_YEAR
     (ma, na), (mb, nb) = sides["a"], sides["b"]
@@ -496,6 +611,183 @@ def difference(
     attrs["source_variable"] = str(da.name)
     data = {"mean_a": ma, "mean_b": mb, "difference": diff, "percent": pct, "n_months_a": na, "n_months_b": nb}
     return _out(data, attrs, extra)
+
+
+# --------------------------------------------------------------------------------------------
+# gap-filled totals
+
+
+def _region_weights(masks: Any, maps: xr.Dataset) -> tuple[list[str], np.ndarray, np.ndarray]:
+    """Region names, the (region, lat, lon) masks and the (lat, lon) cell areas (m2) on the
+    maps' grid, from :func:`euphotic.results.open_region_masks` or ``open_regions``."""
+    lat, lon = maps["lat"].values, maps["lon"].values
+    shape = (len(lat), len(lon))
+    if isinstance(masks, xr.Dataset):
+        if "mask" not in masks or "cell_area" not in masks:
+            raise CompareInputError("masks: a Dataset needs 'mask' and 'cell_area' "
+                                    "(euphotic.results.open_regions)")
+        names = [str(n) for n in masks["region"].values]
+        stack = np.asarray(masks["mask"].values, bool)
+        area = np.asarray(masks["cell_area"].values, np.float64)
+        mlat, mlon = masks["lat"].values, masks["lon"].values
+    else:
+        rows = getattr(masks, "cell_area_m2", None)
+        if rows is None:
+            raise CompareInputError("masks: no cell areas (pass euphotic.results."
+                                    "open_region_masks(folder) or open_regions(folder))")
+        names = [str(n) for n in masks]
+        stack = (np.stack([np.asarray(masks[n], bool) for n in names]) if names
+                 else np.zeros((0, *shape), bool))
+        area = np.asarray(rows, np.float64)
+        area = area[:, None] if area.ndim == 1 else area
+        mlat, mlon = getattr(masks, "lat", lat), getattr(masks, "lon", lon)
+    if not names:
+        raise CompareInputError("masks: no regions (the run defined none)")
+    if stack.shape[1:] != shape or len(mlat) != len(lat) or len(mlon) != len(lon) \
+            or not (np.allclose(mlat, lat) and np.allclose(mlon, lon)):
+        raise CompareInputError("masks: their grid differs from the maps' grid (take both from "
+                                "the same run)")
+    return names, stack, np.broadcast_to(area, shape)
+
+
+def filled_totals(
+    maps: xr.Dataset,
+    masks: Any,
+    *,
+    how: TotalsKind = "climatology",
+    baseline: tuple[int, int] | None = None,
+    min_coverage: float | None = None,
+    low_coverage: LowCoverage | None = None,
+) -> xr.Dataset:
+    """Region-month totals formed one of the three usual ways, from the maps (lazy).
+
+    Parameters
+    ----------
+    maps : xarray.Dataset
+        :func:`euphotic.results.open_maps`: ``npp`` (mg m-2 d-1 of carbon, the month's mean
+        daily rate) and ``coverage`` (1; NaN off the ocean, so ocean cells are those with a
+        coverage), dims ``(model, time, lat, lon)``.
+    masks : RegionMasks or xarray.Dataset
+        The run's regions: :func:`euphotic.results.open_region_masks` (masks and per-row cell
+        areas, m2) or :func:`euphotic.results.open_regions`, on the maps' grid.
+    how : "observed", "scaled" or "climatology", keyword-only
+        ``observed``: the sum over the observed cells. ``scaled``: the observed area-mean rate
+        times the region's whole ocean area. ``climatology`` (default): observed cells as
+        observed, every other ocean cell (unobserved, or dropped by the coverage rule) filled
+        with its own calendar-month climatology over ``baseline``; a cell whose climatology
+        has no value for that calendar month stays unfilled.
+    baseline : (first_year, last_year), keyword-only
+        Years of the climatology (``how="climatology"``), both included; default: every year.
+    min_coverage, low_coverage : keyword-only
+        The coverage rule (module docstring; default: the maps' run's). With ``"drop"`` a
+        cell's monthly value below it is not observed here: it is left out of ``observed``
+        and ``scaled``, filled under ``climatology``, and left out of the climatology itself.
+
+    Returns
+    -------
+    xarray.Dataset
+        Dims ``(region, month, model)`` (``month``: first day of the month): ``total`` (Tg of
+        carbon fixed in the month), ``coverage`` (area-weighted fraction of the month's days
+        with a valid estimate over the region's ocean, 1, as in the run's totals: the
+        region-month rule of the other functions applies to it), ``ocean_area`` (km2),
+        ``observed_area_fraction``, ``filled_area_fraction`` (area given a value not observed
+        there: by the mean under ``scaled``, by the climatology under ``climatology``; 0 under
+        ``observed``) and ``unfilled_area_fraction`` (1). ``total`` is NaN where no cell has a
+        value, never 0. Attrs ``totals_kind`` and, for ``climatology``, ``baseline_first`` /
+        ``baseline_last``; the rule used as ``min_coverage`` / ``low_coverage``.
+
+    Notes
+    -----
+    With A the cell area (m2), d the days of the month, r the monthly mean rate
+    (mg m-2 d-1) and c(m) the cell's climatology of calendar month m (mg m-2 d-1)::
+
+        observed    = d * sum_obs A r                                   / 1e15
+        scaled      = d * (sum_obs A r / sum_obs A) * sum_ocean A       / 1e15
+        climatology = d * (sum_obs A r + sum_fill A c(m))               / 1e15
+
+    (1e15 mg per Tg: 1e3 mg g-1 times 1e12 g Tg-1), sums over the region's cells. Lazy on
+    dask-backed maps: nothing is computed; computing the result reads each map once (the
+    climatology and the totals share the reads in one graph).
+    """
+    if how not in ("observed", "scaled", "climatology"):
+        raise CompareInputError(f"how: must be 'observed', 'scaled' or 'climatology', got {how!r}")
+    if not isinstance(maps, xr.Dataset) or "time" not in maps.dims:
+        raise CompareInputError("maps: pass the maps Dataset (euphotic.results.open_maps), dims "
+                                "(model, time, lat, lon)")
+    for v in ("npp", "coverage"):
+        if v not in maps.data_vars:
+            raise CompareInputError(f"maps: no {v!r} variable (has {sorted(map(str, maps.data_vars))})")
+    npp, attrs, extra = _select(maps, "npp", min_coverage, low_coverage)
+    if _units(npp) != "mg m-2 d-1":
+        raise CompareInputError(f"variable 'npp': expected units 'mg m-2 d-1', got {_units(npp)!r}")
+    names, stack, area_np = _region_weights(masks, maps)
+    region = xr.DataArray(stack.astype(np.float64), dims=("region", "lat", "lon"),
+                          coords={"region": names})
+    area = xr.DataArray(area_np, dims=("lat", "lon"))
+
+    def integrate(field: xr.DataArray) -> xr.DataArray:
+        """Area integral over each region: (region, model, time)."""
+        return xr.dot(field * area, region, dim=("lat", "lon"))
+
+    cov = _as_float64(maps["coverage"])
+    ocean = cov.notnull()
+    observed = npp.notnull() & ocean
+    ocean_m2 = integrate(ocean.astype(np.float64))
+    obs_m2 = integrate(observed.astype(np.float64))
+    obs_int = integrate(npp.where(observed, 0.0))  # mg d-1
+    cov_m2 = integrate(cov.fillna(0.0))
+    to_tg = maps["days_in_month"] / (MG_PER_G * G_PER_TG)  # d, mg -> Tg
+    seen = obs_m2 > 0
+    if how == "observed":
+        total = (obs_int * to_tg).where(seen)
+        filled_m2 = xr.zeros_like(obs_m2)
+    elif how == "scaled":
+        total = (obs_int / obs_m2.where(seen) * ocean_m2 * to_tg)
+        filled_m2 = (ocean_m2 - obs_m2).where(seen, 0.0)
+    else:
+        clim = climatology(maps, baseline=baseline, variable="npp",
+                           min_coverage=attrs.get("min_coverage"),
+                           low_coverage=attrs.get("low_coverage"))
+        per_month = clim["climatology"].sel(calendar_month=_calendar_of(npp)).drop_vars("calendar_month")
+        fillable = ocean & ~observed & per_month.notnull()
+        fill_int = integrate(per_month.where(fillable, 0.0))
+        filled_m2 = integrate(fillable.astype(np.float64))
+        total = ((obs_int + fill_int) * to_tg).where((obs_m2 + filled_m2) > 0)
+        attrs.update(baseline_first=clim.attrs["baseline_first"],
+                     baseline_last=clim.attrs["baseline_last"])
+    has_ocean = ocean_m2 > 0
+    frac = {
+        "observed_area_fraction": (obs_m2 / ocean_m2).where(has_ocean),
+        "filled_area_fraction": (filled_m2 / ocean_m2).where(has_ocean),
+    }
+    frac["unfilled_area_fraction"] = (1.0 - frac["observed_area_fraction"]
+                                      - frac["filled_area_fraction"]).clip(min=0.0)
+    long = {"observed": "carbon fixed in the month over the observed cells",
+            "scaled": "observed area-mean rate times the whole ocean area of the region",
+            "climatology": "observed cells plus unobserved ocean cells filled with their "
+                           "calendar-month climatology"}[how]
+    data = {
+        "total": (total, {"units": "Tg", "long_name": long}),
+        "coverage": ((cov_m2 / ocean_m2).where(has_ocean),
+                     {"units": "1", "long_name": "area-weighted fraction of the month's days "
+                      "with a valid estimate"}),
+        "ocean_area": (ocean_m2 / 1e6, {"units": "km2", "long_name": "ocean area of the region"}),
+        "observed_area_fraction": (frac["observed_area_fraction"],
+                                   {"units": "1", "long_name": "fraction of the ocean area observed"}),
+        "filled_area_fraction": (frac["filled_area_fraction"],
+                                 {"units": "1", "long_name": f"fraction of the ocean area filled ({how})"}),
+        "unfilled_area_fraction": (frac["unfilled_area_fraction"],
+                                   {"units": "1", "long_name": "fraction of the ocean area without a value"}),
+    }
+    out = {}
+    for k, (v, a) in data.items():
+        v = v.transpose("region", "time", "model").swap_dims(time="month")
+        v = v.drop_vars([c for c in ("time", "calendar_month") if c in v.coords])
+        v.attrs = a
+        out[k] = v
+    attrs["totals_kind"] = how
+    attrs["source_variable"] = "npp"
+    return _out(out, attrs, extra)
 
 
 # --------------------------------------------------------------------------------------------
@@ -547,11 +839,12 @@ def _trend(
     alpha: float,
     variable: str | None,
     min_coverage: float | None,
+    low_coverage: LowCoverage | None,
     min_years: int,
 ) -> xr.Dataset:
     if not 0.0 < float(alpha) < 1.0:
         raise CompareInputError(f"alpha: must be between 0 and 1 (exclusive), got {alpha!r}")
-    da, attrs, extra = _select(x, variable, min_coverage)
+    da, attrs, extra = _select(x, variable, min_coverage, low_coverage)
     record_years = _years_of(da).values
     y0 = int(record_years.min())
     if annual:
@@ -640,6 +933,7 @@ def trend(
     alpha: float = 0.05,
     variable: str | None = None,
     min_coverage: float | None = None,
+    low_coverage: LowCoverage | None = None,
     min_years: int = MIN_TREND_YEARS,
 ) -> xr.Dataset:
     """Theil-Sen trend and Mann-Kendall test per region and model (totals), or per series of
@@ -659,7 +953,7 @@ def trend(
         with fewer than 12 months is left out (NaN).
     alpha : float, keyword-only
         Significance level of the test; the slope's confidence interval is at 1 - alpha.
-    variable, min_coverage : keyword-only
+    variable, min_coverage, low_coverage : keyword-only
         As in :func:`seasonal_cycle`.
     min_years : int, keyword-only
         Records with fewer calendar years with a value are flagged ``short_record`` and warned
@@ -699,7 +993,7 @@ def trend(
     """
     return _trend(
         series, deseasonalise=deseasonalise, annual=annual, alpha=alpha, variable=variable,
-        min_coverage=min_coverage, min_years=min_years,
+        min_coverage=min_coverage, low_coverage=low_coverage, min_years=min_years,
     )
 
 
@@ -711,6 +1005,7 @@ def trend_map(
     alpha: float = 0.05,
     variable: str | None = None,
     min_coverage: float | None = None,
+    low_coverage: LowCoverage | None = None,
     min_years: int = MIN_TREND_YEARS,
 ) -> xr.Dataset:
     """Per-cell Theil-Sen trend and Mann-Kendall test of the maps (lazy on dask input).
@@ -725,11 +1020,12 @@ def trend_map(
         raise CompareInputError(f"maps: no 'time' dimension (has {sorted(map(str, maps.dims))}); use trend() for totals")
     return _trend(
         maps, deseasonalise=deseasonalise, annual=annual, alpha=alpha, variable=variable,
-        min_coverage=min_coverage, min_years=min_years,
+        min_coverage=min_coverage, low_coverage=low_coverage, min_years=min_years,
     )
 
 
 __all__ = [
     "CompareInputError", "annual_totals", "seasonal_cycle", "climatology", "anomalies",
-    "difference", "trend", "trend_map", "TG_PER_PG", "MIN_TREND_YEARS",
+    "difference", "trend", "trend_map", "TG_PER_PG", "MIN_TREND_YEARS", "coverage_rule",
+    "filled_totals", "FLAG_LOW_COVERAGE",
 ]

@@ -174,6 +174,7 @@ RUN_KEYS: dict[str, Key] = {
     "output_format": Key(_choice("netcdf", "zarr"), '"netcdf" or "zarr"'),
     "months_per_compute": Key(_whole_number_min(0), "a whole number >= 0"),
     "min_coverage": Key(_fraction, "a fraction between 0 and 1"),
+    "low_coverage": Key(_choice("flag", "drop"), '"flag" or "drop"'),
 }
 
 #: [inputs.<role>] keys
@@ -221,6 +222,8 @@ class RunConfig:
     months_per_compute: int = 1
     #: regions below this coverage are flagged low_coverage in the totals (aggregate)
     min_coverage: float = 0.5
+    #: what comparisons do with values below min_coverage: "flag" (keep) or "drop" (NaN)
+    low_coverage: str = "flag"
     ocean_source: str = "package"  # "package", "file" or "temperature"
     land_mask: Path | None = None
     land_mask_variable: str | None = None
@@ -414,6 +417,7 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         output_format=run.get("output_format", "netcdf"),
         months_per_compute=run.get("months_per_compute", 1),
         min_coverage=run.get("min_coverage", 0.5),
+        low_coverage=run.get("low_coverage", "flag"),
         ocean_source=source,
         land_mask=(base / land_mask).resolve() if land_mask else None,
         land_mask_variable=ocean.get("variable"),

@@ -228,6 +228,9 @@ def provenance_attrs(cfg, input_files: Mapping[str, Sequence[str]]) -> dict[str,
             "euphotic_config_sha256": hashlib.sha256(data).hexdigest(),
             "euphotic_config": text,
             "euphotic_run_started": iso_utc(),
+            # the run's coverage rule ([run] min_coverage, low_coverage): see euphotic.compare
+            "euphotic_min_coverage": float(cfg.min_coverage),
+            "euphotic_low_coverage": str(cfg.low_coverage),
         }
     )
     return attrs

@@ -571,6 +571,7 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
         "config_fingerprint": runfolder.config_fingerprint(
             {k: v for k, v in vars(cfg).items() if k not in ("path", "output_dir")}),
         "models": list(cfg.models),
+        "coverage_rule": {"min_coverage": cfg.min_coverage, "low_coverage": cfg.low_coverage},
         "months": [str(np.datetime64(m, "M")) for m in prep.months],
         "skipped_months": [str(np.datetime64(m, "M")) for m in prep.skipped_months],
         "inputs": {role: [os.path.relpath(p, base) for p in files]

@@ -189,12 +189,39 @@ def _month_coords(months: list[np.datetime64]) -> tuple[np.ndarray, np.ndarray]:
     return first.astype("datetime64[D]").astype("datetime64[ns]"), days.astype(np.int64)
 
 
+def manifest_coverage_rule(manifest: dict) -> tuple[float, str, str]:
+    """The coverage rule a run recorded: ``(min_coverage, low_coverage, source)``.
+
+    ``min_coverage`` (0-1) and ``low_coverage`` (``"flag"``: values below it are kept and
+    flagged; ``"drop"``: comparisons treat them as missing) as the run's ``[run]`` keys set
+    them; ``source`` is ``"run"``, or ``"default"`` for a run written before euphotic recorded
+    its rule (then this tool's defaults, 0.5 and "flag", which such runs flagged by).
+    """
+    from euphotic.aggregate import DEFAULT_MIN_COVERAGE
+
+    rule = manifest.get("coverage_rule")
+    if isinstance(rule, dict) and rule.get("low_coverage") in ("flag", "drop"):
+        return float(rule["min_coverage"]), str(rule["low_coverage"]), "run"
+    return DEFAULT_MIN_COVERAGE, "flag", "default"
+
+
+def coverage_rule(folder: str | os.PathLike) -> tuple[float, str, str]:
+    """The coverage rule of the run committed in ``folder`` (see
+    :func:`manifest_coverage_rule`)."""
+    return manifest_coverage_rule(committed_manifest(Path(folder).absolute()))
+
+
 def _run_attrs(folder: Path, manifest: dict, models: list[str], cites: dict[str, str]) -> dict:
+    min_cov, low, source = manifest_coverage_rule(manifest)
     attrs = {
         "caution": manifest.get("caution") or CAUTION,
         "euphotic_folder": str(folder),
         "euphotic_run_id": str(manifest.get("run_id")),
         "euphotic_version": str(manifest.get("version")),
+        # the run's coverage rule: euphotic.compare uses it unless told otherwise
+        "min_coverage": min_cov,
+        "low_coverage": low,
+        "coverage_rule_source": source,
     }
     for m in models:
         attrs[f"model_name_{m}"] = PUBLISHED_NAMES.get(m, m)
@@ -315,7 +342,10 @@ def open_maps(
         for a month. Coordinates ``model``, ``time`` (the files' mid-month stamps), ``month``
         (first day of the month) and ``days_in_month`` along ``time``, ``lat`` and ``lon``
         (degrees). Attributes: ``caution``, ``euphotic_folder``, ``euphotic_run_id``,
-        ``euphotic_version``, and per model ``model_name_<id>`` and ``citation_<id>``.
+        ``euphotic_version``, the run's coverage rule (``min_coverage``, 0-1;
+        ``low_coverage``, ``"flag"`` or ``"drop"``; ``coverage_rule_source``, see
+        :func:`manifest_coverage_rule`), and per model ``model_name_<id>`` and
+        ``citation_<id>``.
 
     Raises
     ------
