@@ -292,21 +292,33 @@ def _add_to_run(name: str, write, debug: bool, **options):
 @click.option("--compare-to", "compare_to", metavar="FIRST-LAST",
               help="Years set against the baseline in the difference map (default: the last).")
 @click.option("--min-coverage", type=click.FloatRange(0, 1), default=None, metavar="F",
-              help="Drop monthly values whose coverage is below this fraction.")
+              help="Coverage rule threshold (default: the run's [run] min_coverage); given "
+                   "without --low-coverage, values below it are dropped.")
+@click.option("--low-coverage", type=click.Choice(["flag", "drop"]), default=None,
+              help="Keep and flag, or drop, values below the coverage rule (default: the "
+                   "run's [run] low_coverage).")
+@click.option("--totals", type=click.Choice(["observed", "scaled", "climatology"]),
+              default="observed", show_default=True,
+              help="Which regional total feeds annual totals, anomalies and trends: observed "
+                   "cells only, observed mean scaled to the ocean area, or gaps filled with each "
+                   "cell's climatology over the baseline.")
 @click.option("--no-maps", is_flag=True, help="Tables only, no per-cell NetCDF maps.")
 @click.option("--quiet", "-q", is_flag=True, help="No list of files written.")
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
 def compare_command(folder: Path, baseline: str | None, compare_to: str | None,
-                    min_coverage: float | None, no_maps: bool, quiet: bool, debug: bool) -> None:
+                    min_coverage: float | None, low_coverage: str | None, totals: str,
+                    no_maps: bool, quiet: bool, debug: bool) -> None:
     """Compare the years and regions of the run in FOLDER: annual totals, seasonal cycle,
     anomalies against a baseline, trends (tables), and per-cell trend and difference maps.
     They are added to FOLDER and listed in its manifest."""
-    from euphotic.compare_outputs import write_comparisons
+    from euphotic.compare_outputs import rule_words, write_comparisons
 
     w = _add_to_run("compare", write_comparisons, debug, folder=folder, baseline=baseline,
-                    compare_years=compare_to, min_coverage=min_coverage, maps=not no_maps)
+                    compare_years=compare_to, min_coverage=min_coverage,
+                    low_coverage=low_coverage, totals=totals, maps=not no_maps)
     if w is None:
         return
+    click.echo(f"Totals: {w.totals}. Coverage rule: {rule_words(*w.rule)}.")
     click.echo(f"Trends of annual totals (Theil-Sen slope per year, Mann-Kendall p; baseline "
                f"{w.baseline[0]}-{w.baseline[1]}):")
     for t in w.trends:
@@ -337,8 +349,9 @@ def compare_command(folder: Path, baseline: str | None, compare_to: str | None,
               help="Baseline years of the difference map (default: the years before --period).")
 @click.option("--projection", type=click.Choice(["equal-area", "latlon"]), default="equal-area",
               show_default=True, help="Map projection.")
-@click.option("--min-coverage", type=click.FloatRange(0, 1), default=0.5, show_default=True,
-              metavar="F", help="Mark map cells whose mean coverage is below this fraction.")
+@click.option("--min-coverage", type=click.FloatRange(0, 1), default=None, metavar="F",
+              help="Mark map cells whose mean coverage is below this fraction (default: the "
+                   "run's [run] min_coverage).")
 @click.option("--width", type=click.Choice(["one-column", "two-column"]), default="two-column",
               show_default=True, help="Print width: 85 mm or 180 mm.")
 @click.option("--absolute", is_flag=True,
@@ -346,11 +359,20 @@ def compare_command(folder: Path, baseline: str | None, compare_to: str | None,
 @click.option("--quiet", "-q", is_flag=True, help="No list of files written.")
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
 def figures_command(folder: Path, period: str | None, baseline: str | None, projection: str,
-                    min_coverage: float, width: str, absolute: bool, quiet: bool,
+                    min_coverage: float | None, width: str, absolute: bool, quiet: bool,
                     debug: bool) -> None:
     """Draw the proposal figures of the run in FOLDER (PNG at 300 dpi and PDF, each with a
     caption); they are added to FOLDER as one set and listed in its manifest."""
     from euphotic.figureset import write_figure_set
+
+    if min_coverage is None:  # the run's coverage rule (figures mark, they do not drop)
+        from euphotic.results import coverage_rule
+
+        try:
+            min_coverage = coverage_rule(folder)[0]
+        except Exception as exc:  # noqa: BLE001 - one line unless --debug, as _add_to_run
+            _fail(exc, debug)
+            return
 
     fs = _add_to_run("figures", write_figure_set, debug, folder=folder, period=period,
                      baseline=baseline, projection=projection, min_coverage=min_coverage,

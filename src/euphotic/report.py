@@ -221,6 +221,21 @@ def _figures(folder: Path, outputs: dict) -> tuple[str, int]:
     return "\n".join(parts), len(pngs)
 
 
+def _coverage_items(manifest: dict) -> list[tuple[str, str]]:
+    """The run's coverage rule, and the one its comparisons used where that differs."""
+    from euphotic.compare_outputs import rule_words
+
+    thr, how, source = results.manifest_coverage_rule(manifest)
+    items = [("coverage rule", rule_words(thr, how)
+              + ("" if source == "run" else " (not recorded by the run: this tool's default)"))]
+    used = {(e["coverage_rule"].get("min_coverage"), e["coverage_rule"].get("low_coverage"),
+             e.get("totals")) for e in manifest.get("outputs", {}).values()
+            if e.get("kind") == COMPARISON_KIND and isinstance(e.get("coverage_rule"), dict)}
+    for c_thr, c_how, totals in sorted(used, key=str):
+        items.append(("comparisons", f"totals {totals}; coverage rule {rule_words(c_thr, c_how)}"))
+    return items
+
+
 def _provenance(manifest: dict) -> str:
     items = [("configuration", manifest.get("config")),
              ("configuration SHA-256", manifest.get("config_sha256")),
@@ -228,7 +243,8 @@ def _provenance(manifest: dict) -> str:
              ("command", manifest.get("command")),
              ("models", ", ".join(manifest.get("models", []))),
              ("months", ", ".join(manifest.get("months", []))),
-             ("skipped months", ", ".join(str(m) for m in manifest.get("skipped_months", [])))]
+             ("skipped months", ", ".join(str(m) for m in manifest.get("skipped_months", []))),
+             *_coverage_items(manifest)]
     out = ['<dl class="prov">']
     for k, v in items:
         if v:
