@@ -445,3 +445,26 @@ def test_report_shows_the_rule(ruled_run):
     page, _ = render(ruled_run)
     assert "coverage rule" in page
     assert "values with coverage below 0.4 dropped (treated as missing)" in page
+
+
+def test_methods_state_the_rule(ruled_run):
+    from euphotic.methods import methods_text
+
+    text = " ".join(methods_text(ruled_run).text.split())
+    assert ("Region-months and cells whose coverage is below 0.4 are flagged low_coverage and "
+            "left out of comparisons") in text
+
+
+def test_figures_mark_by_the_runs_rule(ruled_run):
+    """`euphotic figures` without --min-coverage marks cells by the run's 0.4 (its captions
+    say so); --min-coverage overrides it."""
+    res = CliRunner().invoke(main, ["figures", str(ruled_run), "-q", "--projection", "latlon",
+                                    "--width", "one-column"])
+    assert res.exit_code == 0, res.output
+    caption = (ruled_run / "fig_npp_maps.caption.txt").read_text()
+    assert "coverage below 0.4 " in " ".join(caption.split())
+    res = CliRunner().invoke(main, ["figures", str(ruled_run), "-q", "--projection", "latlon",
+                                    "--width", "one-column", "--min-coverage", "0.9"])
+    assert res.exit_code == 0, res.output
+    caption = (ruled_run / "fig_npp_maps.caption.txt").read_text()
+    assert "coverage below 0.9 " in " ".join(caption.split())

@@ -365,15 +365,6 @@ def figures_command(folder: Path, period: str | None, baseline: str | None, proj
     caption); they are added to FOLDER as one set and listed in its manifest."""
     from euphotic.figureset import write_figure_set
 
-    if min_coverage is None:  # the run's coverage rule (figures mark, they do not drop)
-        from euphotic.results import coverage_rule
-
-        try:
-            min_coverage = coverage_rule(folder)[0]
-        except Exception as exc:  # noqa: BLE001 - one line unless --debug, as _add_to_run
-            _fail(exc, debug)
-            return
-
     fs = _add_to_run("figures", write_figure_set, debug, folder=folder, period=period,
                      baseline=baseline, projection=projection, min_coverage=min_coverage,
                      width=width, relative=not absolute)

@@ -643,7 +643,7 @@ def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | 
 
 def write_figure_set(folder: str | Path, *, period: str | None = None,
                      baseline: str | None = None, projection: Projection = "equal-area",
-                     min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
+                     min_coverage: float | None = None, width: Width = "two-column",
                      relative: bool = True, command: str = "euphotic figures") -> FigureSet:
     """Draw the figure set of the run committed in ``folder`` and add it to the folder as one
     unit (kind :data:`KIND`; a new set replaces the old one; on failure nothing changes).
@@ -652,11 +652,15 @@ def write_figure_set(folder: str | Path, *, period: str | None = None,
     ----------
     period, baseline : "FIRST-LAST" or "YEAR", optional
         Years of the maps (default: the whole run) and the baseline of the difference map.
+    min_coverage : float, optional
+        Cells whose mean coverage is below it are marked (default: the run's rule).
     """
     folder = Path(folder)
     span, base = parse_years(period, "--period"), parse_years(baseline, "--baseline")
     maps = results.open_maps(folder)
     totals = results.open_totals(folder)
+    if min_coverage is None:  # the run's coverage rule ([run] min_coverage; figures mark cells)
+        min_coverage = float(maps.attrs.get("min_coverage", DEFAULT_MIN_COVERAGE))
     drawn, notes = draw_all(maps, totals, period=span, baseline=base, projection=projection,
                             min_coverage=min_coverage, width=width, relative=relative,
                             folder=folder)

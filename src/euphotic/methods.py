@@ -368,6 +368,13 @@ def methods_text(folder: str | os.PathLike) -> Methods:
             "Regional totals (Tg C per month) integrate the monthly rate over the observed ocean "
             "cells (total_TgC); total_filled_TgC scales the observed area-mean rate to the "
             "region's whole ocean area.")
+    from euphotic.results import manifest_coverage_rule
+
+    min_cov, low, _ = manifest_coverage_rule(manifest)
+    sentences.append(
+        f"Region-months and cells whose coverage is below {min_cov:g} are flagged low_coverage"
+        + (" and left out of comparisons (annual totals, climatologies, anomalies, differences "
+           "and trends)." if low == "drop" else "; their values are kept in comparisons."))
     land = attrs.get("land_mask_source")
     if land:
         sentences.append(f"Ocean cells: {_land_words(land)}.")
