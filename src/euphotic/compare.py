@@ -721,13 +721,13 @@ def filled_totals(
     if _units(npp) != "mg m-2 d-1":
         raise CompareInputError(f"variable 'npp': expected units 'mg m-2 d-1', got {_units(npp)!r}")
     names, stack, area_np = _region_weights(masks, maps)
-    region = xr.DataArray(stack.astype(np.float64), dims=("region", "lat", "lon"),
-                          coords={"region": names})
-    area = xr.DataArray(area_np, dims=("lat", "lon"))
+    # cell area inside each region, 0 outside (m2): an integral is one dot product per field
+    weights = xr.DataArray(stack * area_np[None], dims=("region", "lat", "lon"),
+                           coords={"region": names})
 
     def integrate(field: xr.DataArray) -> xr.DataArray:
         """Area integral over each region: (region, model, time)."""
-        return xr.dot(field * area, region, dim=("lat", "lon"))
+        return xr.dot(field, weights, dim=("lat", "lon"))
 
     cov = _as_float64(maps["coverage"])
     ocean = cov.notnull()
