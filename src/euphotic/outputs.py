@@ -186,7 +186,7 @@ def _region_sources(raw_regions: object, base: Path) -> str:
     return "; ".join(parts)
 
 
-def provenance_attrs(cfg, input_files: Mapping[str, Sequence[str]]) -> dict[str, str]:
+def provenance_attrs(cfg, input_files: Mapping[str, Sequence[str]]) -> dict[str, str | float]:
     """Where a run's results come from, as global attributes (called once per run).
 
     Input paths are relative to the configuration file's folder; the configuration's text is
