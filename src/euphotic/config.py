@@ -198,7 +198,38 @@ OCEAN_KEYS: dict[str, Key] = {
     "variable": Key(_string, "a variable name (string)"),
 }
 
-_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata"}
+def _odd_cells(value) -> int:
+    if not isinstance(value, int) or isinstance(value, bool) or value < 1 or value % 2 == 0:
+        raise _Bad
+    return value
+
+
+def _positive(value) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not value > 0:
+        raise _Bad
+    return float(value)
+
+
+def _quotient(value) -> float | str:
+    if isinstance(value, str) and value in ("ammonium", "nitrate"):
+        return value
+    if isinstance(value, bool) or not isinstance(value, int | float) or not 0.5 <= value <= 3:
+        raise _Bad
+    return float(value)
+
+
+#: [matchup] keys (station match-ups, euphotic.matchup_outputs.write_matchups)
+MATCHUP_KEYS: dict[str, Key] = {
+    "stations": Key(_string, "a station CSV path (string)"),
+    "window": Key(_odd_cells, "an odd whole number of cells >= 1 (e.g. 3)"),
+    "days": Key(_whole_number_min(0), "a whole number of days >= 0 on each side"),
+    "min_valid": Key(_whole_number_min(1), "a whole number of cells >= 1"),
+    "max_cv": Key(_positive, "a number > 0 (e.g. 0.15)"),
+    "quotient": Key(_quotient, '"ammonium", "nitrate" or a number between 0.5 and 3'),
+    "gross_to_net": Key(_fraction, "a fraction between 0 and 1"),
+}
+
+_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", "matchup"}
 _ROLES = ("chl", "par", "sst", "day_length")
 
 
@@ -226,6 +257,8 @@ class RunConfig:
     land_mask_variable: str | None = None
     #: [metadata] keys set by the user (ACDD attributes; see outputs.metadata_from_config)
     metadata: dict[str, str] = field(default_factory=dict)
+    #: [matchup] keys (checked; ``stations`` resolved against the config's folder)
+    matchup: dict = field(default_factory=dict)
     #: things worth knowing that are not errors (logged as warnings when the config is loaded)
     notes: list[str] = field(default_factory=list)
 
@@ -395,6 +428,11 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         except EuphoticError as exc:
             problems.append(exc)
 
+    matchup = check_table(_table(raw, "matchup", str(path), problems, name="[matchup]"),
+                          MATCHUP_KEYS, f"{path} [matchup]", problems)
+    if "stations" in matchup:
+        matchup["stations"] = (base / matchup["stations"]).resolve()
+
     start, end = run.get("start"), run.get("end")
     if start is not None and end is not None and end < start:
         problems.append(ConfigError(where_run, f"`end` ({end}) is before `start` ({start})"))
@@ -418,5 +456,6 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         land_mask=(base / land_mask).resolve() if land_mask else None,
         land_mask_variable=ocean.get("variable"),
         metadata=metadata,
+        matchup=matchup,
         notes=notes,
     )
