@@ -46,7 +46,8 @@ KIND = "matchup"
 #: One-column figure width, mm (as the figure set's one-column width).
 WIDTH_MM = 85.0
 #: Colours and markers of the method families (Okabe & Ito 2008 palette, as figureset).
-METHOD_STYLE = {"c14": ("#0072B2", "o", "carbon-14"), "o2": ("#D55E00", "^", "oxygen (gross x net/gross)")}
+METHOD_STYLE = {"c14": ("#0072B2", "o", "carbon-14"), "o2": ("#D55E00", "^",
+                                                                 "oxygen, gross to net")}
 FACTOR_CAUTION = ("Satellite NPP models differ from each other by about a factor of two; a "
                   "match-up checks one model against local measurements, it does not remove "
                   "that uncertainty.")
@@ -289,10 +290,15 @@ def scatter(mu: Matchups, png: Path, pdf: Path):
             ax.set(xscale="log", yscale="log", xlim=(lo, hi), ylim=(lo, hi), aspect="equal",
                    xlabel="measured (mg C m$^{-2}$ d$^{-1}$)",
                    ylabel=f"{m} (mg C m$^{{-2}}$ d$^{{-1}}$)")
-            ax.legend(loc="upper left", frameon=False)
+            from matplotlib.ticker import LogFormatterSciNotation, NullFormatter
+
+            for axis in (ax.xaxis, ax.yaxis):
+                axis.set_major_formatter(LogFormatterSciNotation())
+                axis.set_minor_formatter(NullFormatter())
+            ax.legend(loc="upper left", frameon=False, fontsize="small", handlelength=1.5)
         fig.tight_layout()
-        fig.savefig(png, dpi=300)
-        fig.savefig(pdf)
+        fig.savefig(png, dpi=300, bbox_inches="tight")
+        fig.savefig(pdf, bbox_inches="tight")
         plt.close(fig)
     return fig
 
@@ -312,7 +318,7 @@ def target(stats: pd.DataFrame, png: Path, pdf: Path):
     models = list(dict.fromkeys(stats["model"]))
     mm = 1 / 25.4
     with plt.rc_context(_rc()):
-        fig, ax = plt.subplots(figsize=(WIDTH_MM * mm, WIDTH_MM * mm))
+        fig, ax = plt.subplots(figsize=(WIDTH_MM * mm, (WIDTH_MM + 22) * mm))
         th = np.linspace(0, 2 * np.pi, 361)
         ax.plot(np.cos(th), np.sin(th), color="0.3", lw=0.8)
         ax.axhline(0, color="0.6", lw=0.5)
@@ -330,9 +336,10 @@ def target(stats: pd.DataFrame, png: Path, pdf: Path):
         ax.set(xlim=(-lim, lim), ylim=(-lim, lim), aspect="equal",
                xlabel="normalised unbiased RMSD (signed)", ylabel="normalised bias")
         if len(s):
-            ax.legend(loc="upper left", frameon=False, fontsize="small")
+            ax.legend(loc="upper center", bbox_to_anchor=(0.5, -0.16), ncol=1, frameon=False,
+                      fontsize="small")
         fig.tight_layout()
-        fig.savefig(png, dpi=300)
-        fig.savefig(pdf)
+        fig.savefig(png, dpi=300, bbox_inches="tight")
+        fig.savefig(pdf, bbox_inches="tight")
         plt.close(fig)
     return fig
