@@ -171,7 +171,13 @@ _DECIMALS = {"lat": 4, "lon": 4, "grid_lat": 4, "grid_lon": 4, "window_cv": 4, "
              "integration_depth_m": 2}
 
 
+#: Counts: whole numbers (float in the frame when some rows have none).
+_INTEGERS = {"window_n_valid", "window_n_cells", "n_depths", "n", "n_excluded"}
+
+
 def _fmt_col(name: str, values: pd.Series) -> pd.Series:
+    if name in _INTEGERS:
+        return values.map(lambda v: "" if v is None or v != v else str(int(v)))
     if values.dtype.kind not in "fc":
         return values.map(lambda v: "" if v is None or (isinstance(v, float) and v != v) else v)
     dec = _DECIMALS.get(name.rsplit("_low", 1)[0].rsplit("_high", 1)[0],
