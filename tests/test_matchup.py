@@ -251,3 +251,20 @@ def test_matchup_config_table(tmp_path):
         load_config(cfg)
     assert str(err.value) == (f"{cfg} [matchup]: `window` must be an odd whole number of cells "
                               ">= 1 (e.g. 3), not 4")
+
+
+@pytest.mark.slow
+def test_extraction_benchmark_runs_tiny(tmp_path):
+    """benchmarks/matchup_extract.py end to end at a tiny size (figures are for its printed
+    report, not asserted)."""
+    import subprocess
+    import sys
+
+    cmd = [sys.executable, str(ROOT / "benchmarks" / "matchup_extract.py"), "--res", "1/2",
+           "--days", "2", "--stations", "40", "--data", str(tmp_path / "data"),
+           "--work", str(tmp_path / "work")]
+    res = subprocess.run(cmd, capture_output=True, text=True, timeout=300, check=False)
+    assert res.returncode == 0, res.stdout + res.stderr
+    assert "reference: every chunk read once" in res.stdout
+    for layout in ("uniform", "cruises"):
+        assert f"{layout}: 40 stations:" in res.stdout
