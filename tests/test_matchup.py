@@ -7,6 +7,7 @@ from __future__ import annotations
 import csv
 import json
 import shutil
+from pathlib import Path
 
 import dask.array as da
 import numpy as np
@@ -17,7 +18,7 @@ from click.testing import CliRunner
 
 from euphotic import models
 from euphotic.cli import main
-from euphotic.config import load_config
+from euphotic.config import load_config, matchup_table
 from euphotic.errors import ConfigError
 from euphotic.matchup import DailyInputs, WindowOptions, extract, match, station_cells
 from euphotic.stations import MatchupOptionError, read_stations
@@ -209,6 +210,11 @@ def test_errors_are_one_line_and_write_nothing(demo, tmp_path):
     before = folder_bytes(demo)
     other = tmp_path / "other.csv"
     other.write_text("name,value\nx,1\n")
+    config = json.loads((demo / "euphotic_manifest.json").read_text())["config"]
+    no_table = tmp_path / "no_matchup.toml"  # the run's config without its [matchup] table
+    here = Path(config).parent
+    no_table.write_text(Path(config).read_text().split("[matchup]")[0]
+                        .replace('"../', f'"{here.parent}/').replace('"regions/', f'"{here}/regions/'))
     for args, message in (
         (["--stations", str(tmp_path / "gone.csv")],
          f"euphotic: error: {tmp_path / 'gone.csv'}: no such station file\n"),
@@ -218,8 +224,9 @@ def test_errors_are_one_line_and_write_nothing(demo, tmp_path):
          "and date or start)\n"),
         (["--stations", str(STATIONS), "--window", "4"],
          "euphotic: error: window: expected an odd whole number of cells >= 1, not 4\n"),
-        ([], f"euphotic: error: {demo}: no station file: give --stations FILE.csv or "
-             f"`stations` in the [matchup] table of "),
+        (["--config", str(no_table)],
+         f"euphotic: error: {demo}: no station file: give --stations FILE.csv or `stations` in "
+         f"the [matchup] table of {no_table}\n"),
     ):
         res = CliRunner().invoke(main, ["matchup", str(demo), *args])
         assert res.exit_code == 1, res.output
@@ -228,8 +235,10 @@ def test_errors_are_one_line_and_write_nothing(demo, tmp_path):
 
 
 def test_a_new_matchup_replaces_the_set(demo):
-    r = CliRunner().invoke(main, ["matchup", str(demo), "--stations", str(STATIONS), "-q"])
+    # the demo config's [matchup] table names the station file
+    r = CliRunner().invoke(main, ["matchup", str(demo), "-q"])
     assert r.exit_code == 0, r.output
+    assert (demo / "matchup_scatter.png").exists()
     r = CliRunner().invoke(main, ["matchup", str(demo), "--stations", str(STATIONS),
                                   "--no-figures", "--days", "1", "-q"])
     assert r.exit_code == 0, r.output
@@ -243,8 +252,8 @@ def test_a_new_matchup_replaces_the_set(demo):
 def test_matchup_config_table(tmp_path):
     cfg = run_config(tmp_path / "run.toml",
                      extra='[matchup]\nstations = "st.csv"\nwindow = 5\nquotient = "ammonium"\n')
-    c = load_config(cfg)
-    assert c.matchup == {"stations": (tmp_path / "st.csv").resolve(), "window": 5,
+    load_config(cfg)  # accepted, and read by matchup_table
+    assert matchup_table(cfg) == {"stations": (tmp_path / "st.csv").resolve(), "window": 5,
                          "quotient": "ammonium"}
     run_config(cfg, extra="[matchup]\nwindow = 4\n")
     with pytest.raises(ConfigError) as err:

@@ -257,8 +257,6 @@ class RunConfig:
     land_mask_variable: str | None = None
     #: [metadata] keys set by the user (ACDD attributes; see outputs.metadata_from_config)
     metadata: dict[str, str] = field(default_factory=dict)
-    #: [matchup] keys (checked; ``stations`` resolved against the config's folder)
-    matchup: dict = field(default_factory=dict)
     #: things worth knowing that are not errors (logged as warnings when the config is loaded)
     notes: list[str] = field(default_factory=list)
 
@@ -318,6 +316,32 @@ def load_config(path: str | Path) -> RunConfig:
     for note in cfg.notes:
         log.warning("%s", note)
     return cfg
+
+
+def matchup_table(path: str | Path) -> dict:
+    """The checked ``[matchup]`` table of a config (empty when it has none), ``stations``
+    resolved against the config's folder. Kept out of :class:`RunConfig`: it changes no map.
+
+    Raises
+    ------
+    ConfigError
+        The file cannot be read, or a key of the table does not fit (as :func:`load_config`).
+    """
+    path = Path(path)
+    try:
+        raw = tomllib.loads(path.read_text())
+    except OSError as exc:
+        raise ConfigError(path, f"cannot read config ({exc.strerror or exc})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(path, f"not valid TOML: {exc}") from None
+    problems: list[EuphoticError] = []
+    table = check_table(_table(raw, "matchup", str(path), problems, name="[matchup]"),
+                        MATCHUP_KEYS, f"{path} [matchup]", problems)
+    if problems:
+        raise problems[0]
+    if "stations" in table:
+        table["stations"] = (path.resolve().parent / table["stations"]).resolve()
+    return table
 
 
 def config_problems(path: str | Path) -> list[EuphoticError]:
@@ -428,10 +452,9 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         except EuphoticError as exc:
             problems.append(exc)
 
-    matchup = check_table(_table(raw, "matchup", str(path), problems, name="[matchup]"),
-                          MATCHUP_KEYS, f"{path} [matchup]", problems)
-    if "stations" in matchup:
-        matchup["stations"] = (base / matchup["stations"]).resolve()
+    # [matchup] is checked here and read by matchup_table (it changes no map of the run)
+    check_table(_table(raw, "matchup", str(path), problems, name="[matchup]"), MATCHUP_KEYS,
+                f"{path} [matchup]", problems)
 
     start, end = run.get("start"), run.get("end")
     if start is not None and end is not None and end < start:
@@ -456,6 +479,5 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         land_mask=(base / land_mask).resolve() if land_mask else None,
         land_mask_variable=ocean.get("variable"),
         metadata=metadata,
-        matchup=matchup,
         notes=notes,
     )

@@ -121,7 +121,9 @@ def write_matchups(folder: str | Path, *, stations: str | Path | pd.DataFrame | 
     folder = Path(folder)
     manifest = results.committed_manifest(folder)
     config = _run_config(folder, manifest, cfg)
-    table = dict(getattr(config, "matchup", None) or {})
+    from euphotic.config import matchup_table
+
+    table = matchup_table(config.path) if config.path else {}
     src = stations if stations is not None else table.get("stations")
     if src is None:
         raise MatchupOptionError(f"{folder}: no station file: give --stations FILE.csv or "
