@@ -195,3 +195,9 @@ def test_start_end_give_day_and_length():
     t = read_stations(_table(_row(date="", start="2025-04-05T05:30", end="2025-04-05T19:30")))
     s = t.stations.iloc[0]
     assert str(s["date"])[:10] == "2025-04-05" and s["incubation_h"] == 14.0
+
+
+def test_an_unreadable_incubation_length_is_noted_not_dropped():
+    t = read_stations(_table(_row(incubation_h="24h", notes="deck")))
+    assert len(t.stations) == 1 and np.isnan(t.stations.iloc[0]["incubation_h"])
+    assert t.stations.iloc[0]["notes"] == "deck; incubation_h '24h' is not a number of hours > 0 (not used)"

@@ -315,8 +315,12 @@ def _date(text: str) -> dt.datetime:
     raise ValueError(f"bad date {text!r} (expected YYYY-MM-DD or YYYY-MM-DDTHH:MM)")
 
 
-def _num(text: str) -> float:
-    return float(text) if str(text).strip() else float("nan")
+def _float(text: str) -> float:
+    """A number, NaN when empty or not a number (the checks then say which)."""
+    try:
+        return float(text) if str(text).strip() else float("nan")
+    except ValueError:
+        return float("nan")
 
 
 def read_stations(source: str | Path | pd.DataFrame, *, quotient: float = DEFAULT_QUOTIENT,
@@ -423,15 +427,10 @@ def _check_row(r: dict, row: int) -> tuple[dict, tuple[str, str] | None]:
     if (pu.species == "O2") != method.startswith("o2"):
         return {}, ("units_method_mismatch", f"row {row}: units {r['units']!r} do not fit "
                                              f"method {method}")
-    try:
-        lat = float(r["lat"])
-        assert -90.0 <= lat <= 90.0
-    except (ValueError, AssertionError):
+    lat, lon = _float(r["lat"]), _float(r["lon"])
+    if not -90.0 <= lat <= 90.0:
         return {}, ("bad_lat", f"row {row}: latitude {r['lat']!r} not in -90..90")
-    try:
-        lon = float(r["lon"])
-        assert -180.0 <= lon <= 360.0
-    except (ValueError, AssertionError):
+    if not -180.0 <= lon <= 360.0:
         return {}, ("bad_lon", f"row {row}: longitude {r['lon']!r} not in -180..360")
     try:
         start = _date(r["start"]) if r["start"] else None
@@ -443,10 +442,8 @@ def _check_row(r: dict, row: int) -> tuple[dict, tuple[str, str] | None]:
             raise ValueError(f"start {r['start']} is not on date {r['date']}")
     except ValueError as exc:
         return {}, ("bad_date", f"row {row}: {exc}")
-    try:
-        value = float(r["value"])
-        assert math.isfinite(value)
-    except (ValueError, AssertionError):
+    value = _float(r["value"])
+    if not math.isfinite(value):
         return {}, ("bad_value", f"row {row}: value {r['value']!r} is not a number")
     if value < 0:
         return {}, ("negative_production", f"row {row}: negative production {value:g}")
@@ -455,15 +452,15 @@ def _check_row(r: dict, row: int) -> tuple[dict, tuple[str, str] | None]:
         return {}, ("depth_needed", f"row {row}: " + (
             f"volumetric units {r['units']!r} need depth_m" if pu.volumetric
             else f"depth_m given with per-area units {r['units']!r}"))
-    try:
-        z = _num(depth)
-        zto = _num(r["integrate_to_m"])
-        inc = _num(r["incubation_h"])
-        assert not depth or z >= 0
-        assert not r["integrate_to_m"] or zto > 0
-    except (ValueError, AssertionError):
+    z, zto, inc = _float(depth), _float(r["integrate_to_m"]), _float(r["incubation_h"])
+    if (depth and not z >= 0) or (r["integrate_to_m"] and not zto > 0):
         return {}, ("bad_depth", f"row {row}: depth {depth or r['integrate_to_m']!r} is not a "
                                  "number >= 0")
+    notes = r["notes"]
+    if r["incubation_h"] and not inc > 0:
+        notes = "; ".join(x for x in (notes, f"incubation_h {r['incubation_h']!r} is not a "
+                                             "number of hours > 0 (not used)") if x)
+        inc = float("nan")
     if not math.isfinite(inc) and start is not None and end is not None:
         inc = (end - start).total_seconds() / 3600.0
     return {"row": row, "station": r["station"], "cruise": r["cruise"], "lat": lat, "lon": lon,
@@ -472,7 +469,7 @@ def _check_row(r: dict, row: int) -> tuple[dict, tuple[str, str] | None]:
             "end": end.isoformat(timespec="minutes") if end else "",
             "method": method, "incubation_h": inc, "value": value, "units": r["units"],
             "depth": z, "integrate_to": zto, "volumetric": pu.volumetric,
-            "notes": r["notes"]}, None
+            "notes": notes}, None
 
 
 def _combine(good: list[dict], conv: Conversion) -> tuple[list[dict], list[dict]]:
