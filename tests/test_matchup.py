@@ -182,7 +182,7 @@ def demo(demo_run, tmp_path):
 def test_matchup_on_the_demo(demo):
     res = CliRunner().invoke(main, ["matchup", str(demo), "--stations", str(STATIONS)])
     assert res.exit_code == 0, res.output
-    assert "Over all stations the vgpm estimate is within a factor of 2 of carbon-14" in res.output
+    assert "Over all stations the VGPM estimate is within a factor of 2 of carbon-14" in res.output
     manifest = json.loads((demo / "euphotic_manifest.json").read_text())
     mine = sorted(n for n, e in manifest["outputs"].items() if e.get("kind") == "matchup")
     assert mine == ["matchup_scatter.pdf", "matchup_scatter.png", "matchup_statistics.csv",

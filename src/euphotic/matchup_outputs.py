@@ -29,7 +29,7 @@ from euphotic.matchup import (
     match,
     statistics,
 )
-from euphotic.outputs import CAUTION
+from euphotic.outputs import CAUTION, PUBLISHED_NAMES, model_label
 from euphotic.stations import (
     DEFAULT_GROSS_TO_NET,
     DEFAULT_QUOTIENT,
@@ -214,7 +214,9 @@ def summary_text(mu: Matchups, stats: pd.DataFrame, st: StationTable, folder: Pa
              "beside the run's monthly-map value at the station cell.",
              "- Statistics in log10 space (Campbell et al. 2002; Friedrichs et al. 2009; Saba et "
              "al. 2011): bias = mean(log10 model - log10 measured); a bias of b means the model "
-             "is 10^b times the measurements on geometric average.", ""]
+             "is 10^b times the measurements on geometric average.",
+             "- Models: " + "; ".join(f"{model_label(m)}: {PUBLISHED_NAMES.get(m, m)}"
+                                      for m in mu.models) + ".", ""]
     counts = first["reason"].value_counts()
     if len(counts):
         lines.append("Not scored (first model): " + ", ".join(
@@ -230,9 +232,10 @@ def summary_text(mu: Matchups, stats: pd.DataFrame, st: StationTable, folder: Pa
         where = f"In {region}" if region != "all stations" else "Over all stations"
         ci = (f", 95 % interval {s['bias_low']:+.3f} to {s['bias_high']:+.3f}"
               if np.isfinite(s["bias_low"]) else "")
-        r = f", r = {s['r']:.2f}" if np.isfinite(s["r"]) else ""
+        # a correlation of fewer than 3 pairs is +-1 by construction: not reported
+        r = f", r = {s['r']:.2f}" if np.isfinite(s["r"]) and s["n"] >= 3 else ""
         lines.append(
-            f"- {where} the {s['model']} estimate is within a factor of 2 of {what} "
+            f"- {where} the {model_label(s['model'])} estimate is within a factor of 2 of {what} "
             f"measurements at {round(s['within_2'] * s['n'])} of {int(s['n'])} stations "
             f"(within a factor of 3 at {round(s['within_3'] * s['n'])}); on geometric average "
             f"it is {_factor(s)} times the measurements (bias {s['bias']:+.3f} log10{ci}; "
@@ -297,14 +300,20 @@ def scatter(mu: Matchups, png: Path, pdf: Path):
             ax.plot(line, line / 2, color="0.45", lw=0.7, ls="--")
             ax.set(xscale="log", yscale="log", xlim=(lo, hi), ylim=(lo, hi), aspect="equal",
                    xlabel="measured (mg C m$^{-2}$ d$^{-1}$)",
-                   ylabel=f"{m} (mg C m$^{{-2}}$ d$^{{-1}}$)")
-            from matplotlib.ticker import LogFormatterSciNotation, NullFormatter
+                   ylabel=f"{model_label(m)} (mg C m$^{{-2}}$ d$^{{-1}}$)")
+            from matplotlib.ticker import FixedLocator, NullFormatter, ScalarFormatter
 
-            for axis in (ax.xaxis, ax.yaxis):
-                axis.set_major_formatter(LogFormatterSciNotation())
+            from euphotic.figureset import _log_ticks
+
+            for axis in (ax.xaxis, ax.yaxis):  # readable ticks: 100, 300, 1000
+                axis.set_major_locator(FixedLocator(_log_ticks(lo, hi)))
+                axis.set_major_formatter(ScalarFormatter())
                 axis.set_minor_formatter(NullFormatter())
-            ax.legend(loc="upper left", frameon=False, fontsize="small", handlelength=1.5)
-        fig.tight_layout()
+        # one legend for all panels, under them: never over the points
+        handles, labels = axes[0, 0].get_legend_handles_labels()
+        fig.legend(handles, labels, loc="lower center", ncol=2, frameon=False,
+                   fontsize="small", handlelength=1.5, bbox_to_anchor=(0.5, 0.0))
+        fig.tight_layout(rect=(0, 0.09 / n, 1, 1))
         fig.savefig(png, dpi=300, bbox_inches="tight")
         fig.savefig(pdf, bbox_inches="tight")
         plt.close(fig)
@@ -340,7 +349,7 @@ def target(stats: pd.DataFrame, png: Path, pdf: Path):
             lim = max(lim, abs(x) * 1.15, abs(y) * 1.15)
             colour = LINE_COLOURS[models.index(row["model"]) % len(LINE_COLOURS)]
             ax.scatter([x], [y], c=colour, marker=METHOD_STYLE[row["group"]][1], s=30,
-                       label=f"{row['model']}, {METHOD_STYLE[row['group']][2]}")
+                       label=f"{model_label(row['model'])}, {METHOD_STYLE[row['group']][2]}")
         ax.set(xlim=(-lim, lim), ylim=(-lim, lim), aspect="equal",
                xlabel="normalised unbiased RMSD (signed)", ylabel="normalised bias")
         if len(s):
