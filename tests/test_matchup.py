@@ -183,6 +183,10 @@ def test_matchup_on_the_demo(demo):
     res = CliRunner().invoke(main, ["matchup", str(demo), "--stations", str(STATIONS)])
     assert res.exit_code == 0, res.output
     assert "Over all stations the VGPM estimate is within a factor of 2 of carbon-14" in res.output
+    # groups of 2 stations (oxygen in Skerrow Shelf) get no correlation: r = +-1 by construction
+    two = [ln for ln in res.output.splitlines()
+           if ln.startswith("- In Skerrow Shelf the VGPM") and "at 2 of 2 stations" in ln]
+    assert two and all(", r = " not in ln for ln in two)
     manifest = json.loads((demo / "euphotic_manifest.json").read_text())
     mine = sorted(n for n, e in manifest["outputs"].items() if e.get("kind") == "matchup")
     assert mine == ["matchup_scatter.pdf", "matchup_scatter.png", "matchup_statistics.csv",
