@@ -43,6 +43,8 @@ COMPARE_FILES = {"compare_README.txt", "compare_annual_totals.csv", "compare_ano
                  "compare_difference_map.nc", "compare_seasonal_cycle.csv",
                  "compare_trend_map.nc", "compare_trends.csv"}
 METHODS_FILES = {"methods.md", "methods.txt", "references.txt", "references.bib"}
+#: Manifest kinds of a run's own outputs (maps, totals table and sidecar, regions.nc).
+RUN_KINDS = {"map", "table", "table metadata", "regions"}
 
 
 def _case(tmp: Path, tables: str, months: int = 24) -> Path:
@@ -113,7 +115,7 @@ def test_run_adds_every_step_in_order_each_committed(with_steps):
         "fig_seasonal_cycle.png"}
     assert all(f"{n[:-4]}.{ext}" in figs for n in figs if n.endswith(".png")
                for ext in ("pdf", "caption.md", "caption.txt"))
-    assert len(man["outputs"]) == 24 + 2 + len(COMPARE_FILES) + len(figs) + 4 + 1
+    assert len(man["outputs"]) == 24 + 3 + len(COMPARE_FILES) + len(figs) + 4 + 1
     assert _debris(out) == []
     # one commit per command of a step, in the order of euphotic.steps.STEPS, each recorded
     # with the run's command and the step's table
@@ -140,7 +142,7 @@ def test_no_steps_stops_after_the_run(tmp_path):
     res = _run(cfg, "--no-steps")
     assert res.exit_code == 0, res.output
     man = _consistent(tmp_path / "out")
-    assert set(_kinds(man)) == {"map", "table", "table metadata"} and "added" not in man
+    assert set(_kinds(man)) == RUN_KINDS and "added" not in man
     assert "Trends of annual totals" not in res.stdout
 
 
@@ -180,7 +182,7 @@ def test_removing_a_step_table_removes_its_outputs(copy):
     res = _run(cfg)
     assert res.exit_code == 0, res.output
     man = _consistent(out)
-    assert set(_kinds(man)) == {"map", "table", "table metadata"}
+    assert set(_kinds(man)) == RUN_KINDS
     assert sorted(p.name for p in out.iterdir() if not p.name.startswith(".")) == sorted(
         [*man["outputs"], runfolder.MANIFEST_NAME])
 
@@ -224,7 +226,7 @@ def test_failing_step_leaves_the_run_and_earlier_steps_committed(tmp_path):
         f"{out} covers 2023-2023; the run's maps and totals and the steps before it are "
         f"committed in {out}")
     man = _consistent(out)
-    assert set(_kinds(man)) == {"map", "table", "table metadata", "comparison"}
+    assert set(_kinds(man)) == {*RUN_KINDS, "comparison"}
     assert len(_kinds(man)["map"]) == 3
     assert _kinds(man)["comparison"] == COMPARE_FILES
     assert not (out / "report.html").exists()  # the step after the failed one did not run
@@ -244,7 +246,7 @@ def test_compare_step_with_years_outside_the_record(tmp_path):
         f"{out} covers 2023-2023; the run's maps and totals and the steps before it are "
         f"committed in {out}")
     man = _consistent(out)
-    assert set(_kinds(man)) == {"map", "table", "table metadata"}
+    assert set(_kinds(man)) == RUN_KINDS
     assert _debris(out) == []
 
 
@@ -469,7 +471,7 @@ def test_readme_first_command_is_one_line_running_the_decade_demo():
 #: What the README says the first command writes (besides the 240 month maps).
 DECADE_FILES = {
     "regional_totals.csv", "regional_totals.csv-metadata.json", "euphotic_manifest.json",
-    *COMPARE_FILES, *METHODS_FILES, "report.html",
+    "regions.nc", *COMPARE_FILES, *METHODS_FILES, "report.html",
     *(f"fig_{n}.{ext}" for n in ("npp_maps", "npp_difference", "annual_totals",
                                   "seasonal_cycle")
       for ext in ("png", "pdf", "caption.md", "caption.txt")),

@@ -421,6 +421,51 @@ def report_command(folder: Path, quiet: bool, debug: bool) -> None:
         click.echo(f"wrote {w.path} ({w.images} images embedded)")
 
 
+@main.command(name="matchup")
+@click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--stations", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE.csv",
+              help="Station CSV (default: [matchup] stations of the run's config).")
+@click.option("--window", type=int, metavar="N", help="Window width in cells, odd (default 3).")
+@click.option("--days", type=click.IntRange(0, 15), metavar="N",
+              help="Days on each side of the station day (default 0).")
+@click.option("--min-valid", "min_valid", type=click.IntRange(min=1), metavar="N",
+              help="Fewest valid cells in the window (default: more than half).")
+@click.option("--max-cv", "max_cv", type=float, metavar="F",
+              help="Largest coefficient of variation of the window (default: none).")
+@click.option("--quotient", metavar="Q",
+              help="Photosynthetic quotient, mol O2 per mol C: ammonium (1.1), nitrate (1.4, "
+                   "default) or a number.")
+@click.option("--gross-to-net", "gross_to_net", type=float, metavar="F",
+              help="Net/gross factor for oxygen gross production (default 0.667).")
+@click.option("--config", "config", type=click.Path(dir_okay=False, path_type=Path),
+              help="The run's config (default: the one its manifest records).")
+@click.option("--no-figures", is_flag=True, help="Tables and summary only.")
+@click.option("--quiet", "-q", is_flag=True, help="No list of files written.")
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def matchup_command(folder: Path, stations: Path | None, window: int | None, days: int | None,
+                    min_valid: int | None, max_cv: float | None, quotient: str | None,
+                    gross_to_net: float | None, config: Path | None, no_figures: bool,
+                    quiet: bool, debug: bool) -> None:
+    """Match production measured at sea (carbon-14 and oxygen incubations, CSV) with the
+    daily model estimates of the run in FOLDER: match-up table, skill statistics, scatter,
+    target diagram and summary, added to FOLDER and listed in its manifest."""
+    from euphotic.matchup_outputs import write_matchups
+
+    w = _add_to_run("matchup", write_matchups, debug, folder=folder, stations=stations,
+                    cfg=config, window=window, days=days, min_valid=min_valid, max_cv=max_cv,
+                    quotient=quotient, gross_to_net=gross_to_net, figures=not no_figures)
+    if w is None:
+        return
+    click.echo(w.summary.split("## In words", 1)[-1].split("Caution:", 1)[0].strip())
+    from euphotic.outputs import CAUTION
+
+    click.echo("")
+    click.echo("Caution: " + CAUTION)
+    if not quiet:
+        for p in w.files:
+            click.echo(f"wrote {p}")
+
+
 @main.command(name="models")
 def list_models() -> None:
     """List the available models and their citations."""

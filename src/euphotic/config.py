@@ -252,7 +252,39 @@ STEP_KEYS: dict[str, dict[str, Key]] = {
     "report": REPORT_KEYS,
 }
 
-_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", *STEP_KEYS}
+
+def _odd_cells(value) -> int:
+    if not isinstance(value, int) or isinstance(value, bool) or value < 1 or value % 2 == 0:
+        raise _Bad
+    return value
+
+
+def _positive(value) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not value > 0:
+        raise _Bad
+    return float(value)
+
+
+def _quotient(value) -> float | str:
+    if isinstance(value, str) and value in ("ammonium", "nitrate"):
+        return value
+    if isinstance(value, bool) or not isinstance(value, int | float) or not 0.5 <= value <= 3:
+        raise _Bad
+    return float(value)
+
+
+#: [matchup] keys (station match-ups, euphotic.matchup_outputs.write_matchups)
+MATCHUP_KEYS: dict[str, Key] = {
+    "stations": Key(_string, "a station CSV path (string)"),
+    "window": Key(_odd_cells, "an odd whole number of cells >= 1 (e.g. 3)"),
+    "days": Key(_whole_number_min(0), "a whole number of days >= 0 on each side"),
+    "min_valid": Key(_whole_number_min(1), "a whole number of cells >= 1"),
+    "max_cv": Key(_positive, "a number > 0 (e.g. 0.15)"),
+    "quotient": Key(_quotient, '"ammonium", "nitrate" or a number between 0.5 and 3'),
+    "gross_to_net": Key(_fraction, "a fraction between 0 and 1"),
+}
+
+_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", "matchup", *STEP_KEYS}
 _ROLES = ("chl", "par", "sst", "day_length")
 
 
@@ -342,6 +374,32 @@ def load_config(path: str | Path) -> RunConfig:
     for note in cfg.notes:
         log.warning("%s", note)
     return cfg
+
+
+def matchup_table(path: str | Path) -> dict:
+    """The checked ``[matchup]`` table of a config (empty when it has none), ``stations``
+    resolved against the config's folder. Kept out of :class:`RunConfig`: it changes no map.
+
+    Raises
+    ------
+    ConfigError
+        The file cannot be read, or a key of the table does not fit (as :func:`load_config`).
+    """
+    path = Path(path)
+    try:
+        raw = tomllib.loads(path.read_text())
+    except OSError as exc:
+        raise ConfigError(path, f"cannot read config ({exc.strerror or exc})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(path, f"not valid TOML: {exc}") from None
+    problems: list[EuphoticError] = []
+    table = check_table(_table(raw, "matchup", str(path), problems, name="[matchup]"),
+                        MATCHUP_KEYS, f"{path} [matchup]", problems)
+    if problems:
+        raise problems[0]
+    if "stations" in table:
+        table["stations"] = (path.resolve().parent / table["stations"]).resolve()
+    return table
 
 
 def config_problems(path: str | Path) -> list[EuphoticError]:
@@ -451,6 +509,10 @@ def _load(path: Path, problems: list) -> RunConfig | None:
             regions = regions_from_config(regions_raw, base, str(path))
         except EuphoticError as exc:
             problems.append(exc)
+
+    # [matchup] is checked here and read by matchup_table (it changes no map of the run)
+    check_table(_table(raw, "matchup", str(path), problems, name="[matchup]"), MATCHUP_KEYS,
+                f"{path} [matchup]", problems)
 
     steps: dict[str, dict] = {}
     for table, keys in STEP_KEYS.items():
