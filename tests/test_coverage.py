@@ -468,3 +468,19 @@ def test_figures_mark_by_the_runs_rule(ruled_run):
     assert res.exit_code == 0, res.output
     caption = (ruled_run / "fig_npp_maps.caption.txt").read_text()
     assert "coverage below 0.9 " in " ".join(caption.split())
+
+
+def test_compare_step_keys_and_cli_defaults_match_the_function():
+    """[compare] low_coverage / totals reach write_comparisons under the names the command
+    uses, with the same defaults (None: the run's rule; "observed")."""
+    import inspect
+
+    from euphotic import steps
+    from euphotic.compare_outputs import write_comparisons
+
+    sig = {k: v.default for k, v in inspect.signature(write_comparisons).parameters.items()}
+    cli = main.commands["compare"].make_context("compare", ["some_folder"]).params
+    assert (sig["low_coverage"], sig["totals"]) == (cli["low_coverage"], cli["totals"]) == (
+        None, "observed")
+    assert steps.compare_kwargs({"low_coverage": "drop", "totals": "climatology"}) == {
+        "low_coverage": "drop", "totals": "climatology"}

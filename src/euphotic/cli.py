@@ -83,6 +83,11 @@ def main() -> None:
     metavar="N",
     help="Start a local dask.distributed cluster of N worker processes for this run.",
 )
+@click.option(
+    "--no-steps", is_flag=True,
+    help="Stop once the maps and totals are committed: skip the config's [compare], "
+         "[figure_set] and [report] steps.",
+)
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
 def run(
     config: Path,
@@ -92,9 +97,11 @@ def run(
     force: bool,
     scheduler: str | None,
     workers: int | None,
+    no_steps: bool,
     debug: bool,
 ) -> None:
-    """Run the models for CONFIG (a TOML file) and write maps and regional totals."""
+    """Run the models for CONFIG (a TOML file) and write maps and regional totals; then the
+    steps the config sets ([compare], [figure_set], [report]), each added to the folder."""
     _log_warnings()
     try:
         from euphotic.config import load_config
@@ -110,7 +117,7 @@ def run(
             raise EuphoticError("give --scheduler or --workers, not both")
         result = run_pipeline(
             cfg, progress=not quiet, command=command, scheduler=scheduler, workers=workers,
-            force=force,
+            force=force, steps=not no_steps,
         )
     except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
         _fail(exc, debug)
@@ -122,10 +129,17 @@ def run(
         click.echo(f"{len(months)} months; the last one below, all {len(result.rows)} rows in "
                    f"{result.totals_csv}")
     click.echo(format_totals(rows))
+    for done in result.steps:  # the trends of a [compare] step, as `euphotic compare` prints
+        if done.table == "compare":
+            click.echo("")
+            _echo_trends(done.value)
     click.echo("")
     from euphotic.outputs import CAUTION
 
     click.echo("Caution: " + CAUTION)
+    for done in result.steps:
+        for note in done.notes:
+            click.echo(f"note: [{done.table}] {note}")
     if not quiet:
         click.echo("")
         for note in result.notes:
@@ -144,6 +158,9 @@ def run(
             click.echo(f"wrote {p}")
         if result.manifest is not None:
             click.echo(f"wrote {result.manifest}")
+        for done in result.steps:
+            for p in done.files:
+                click.echo(f"wrote {p} [{done.table}]")
 
 
 @main.command(name="check")
@@ -285,6 +302,26 @@ def _add_to_run(name: str, write, debug: bool, **options):
         return None
 
 
+def _echo_trends(w) -> None:
+    """The totals and coverage rule used, and the annual-total trends of ``euphotic compare``
+    (or a [compare] step), one line each."""
+    from euphotic.compare_outputs import rule_words
+
+    click.echo(f"Totals: {w.totals}. Coverage rule: {rule_words(*w.rule)}.")
+    click.echo(f"Trends of annual totals (Theil-Sen slope per year, Mann-Kendall p; baseline "
+               f"{w.baseline[0]}-{w.baseline[1]}):")
+    for t in w.trends:
+        if t["series"] != "annual totals":
+            continue
+        if not t["slope"] == t["slope"]:  # NaN: too few complete years for a slope
+            click.echo(f"  {t['region']:<24} {t['model']:<12} no trend: "
+                       f"{int(t['n_years'])} complete year(s) of data")
+            continue
+        note = "  (short record)" if t["short_record"] else ""
+        click.echo(f"  {t['region']:<24} {t['model']:<12} {t['slope']:+9.3f} Tg C yr-2  "
+                   f"p = {t['p_value']:.3f}  n = {int(t['n_years'])} years{note}")
+
+
 @main.command(name="compare")
 @click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
 @click.option("--baseline", metavar="FIRST-LAST",
@@ -311,26 +348,14 @@ def compare_command(folder: Path, baseline: str | None, compare_to: str | None,
     """Compare the years and regions of the run in FOLDER: annual totals, seasonal cycle,
     anomalies against a baseline, trends (tables), and per-cell trend and difference maps.
     They are added to FOLDER and listed in its manifest."""
-    from euphotic.compare_outputs import rule_words, write_comparisons
+    from euphotic.compare_outputs import write_comparisons
 
     w = _add_to_run("compare", write_comparisons, debug, folder=folder, baseline=baseline,
                     compare_years=compare_to, min_coverage=min_coverage,
                     low_coverage=low_coverage, totals=totals, maps=not no_maps)
     if w is None:
         return
-    click.echo(f"Totals: {w.totals}. Coverage rule: {rule_words(*w.rule)}.")
-    click.echo(f"Trends of annual totals (Theil-Sen slope per year, Mann-Kendall p; baseline "
-               f"{w.baseline[0]}-{w.baseline[1]}):")
-    for t in w.trends:
-        if t["series"] != "annual totals":
-            continue
-        if not t["slope"] == t["slope"]:  # NaN: too few complete years for a slope
-            click.echo(f"  {t['region']:<24} {t['model']:<12} no trend: "
-                       f"{int(t['n_years'])} complete year(s) of data")
-            continue
-        note = "  (short record)" if t["short_record"] else ""
-        click.echo(f"  {t['region']:<24} {t['model']:<12} {t['slope']:+9.3f} Tg C yr-2  "
-                   f"p = {t['p_value']:.3f}  n = {int(t['n_years'])} years{note}")
+    _echo_trends(w)
     from euphotic.outputs import CAUTION
 
     click.echo("")

@@ -199,6 +199,64 @@ OCEAN_KEYS: dict[str, Key] = {
     "variable": Key(_string, "a variable name (string)"),
 }
 
+def _years(value) -> str:
+    """A span of years as the comparison and figure functions take it: "FIRST-LAST" or a
+    single year (a TOML integer or string); whether the run covers it is known only after
+    the run, and checked then."""
+    if isinstance(value, int) and not isinstance(value, bool) and value > 0:
+        return str(value)
+    if not isinstance(value, str):
+        raise _Bad
+    m = re.fullmatch(r"\s*(\d{1,4})\s*(?:-\s*(\d{1,4})\s*)?", value)
+    if m is None or int(m.group(1)) == 0:
+        raise _Bad
+    first, last = int(m.group(1)), int(m.group(2) or m.group(1))
+    if last < first:
+        raise _Bad
+    return str(first) if first == last else f"{first}-{last}"
+
+
+_YEARS = 'years as "FIRST-LAST" (e.g. "2015-2019") or one year (2020)'
+
+#: Steps after a run (euphotic.steps): each table, when present, makes `euphotic run` add its
+#: outputs to the committed run, in the order of euphotic.steps.STEPS. The keys are the
+#: options of the command of the same job (`euphotic compare`, `euphotic figures`,
+#: `euphotic methods` + `euphotic report`); a key left out takes that command's default.
+
+#: [compare] keys: `euphotic compare` (euphotic.compare_outputs.write_comparisons)
+COMPARE_KEYS: dict[str, Key] = {
+    "baseline": Key(_years, _YEARS),
+    "compare_to": Key(_years, _YEARS),
+    "min_coverage": Key(_fraction, "a fraction between 0 and 1"),
+    "low_coverage": Key(_choice("flag", "drop"), '"flag" or "drop"'),
+    "totals": Key(_choice("observed", "scaled", "climatology"),
+                  '"observed", "scaled" or "climatology"'),
+    "maps": Key(_boolean, "true or false (a TOML boolean, without quotes)"),
+}
+
+#: [figure_set] keys: `euphotic figures` (euphotic.figureset.write_figure_set)
+FIGURE_SET_KEYS: dict[str, Key] = {
+    "period": Key(_years, _YEARS),
+    "baseline": Key(_years, _YEARS),
+    "projection": Key(_choice("equal-area", "latlon"), '"equal-area" or "latlon"'),
+    "width": Key(_choice("one-column", "two-column"), '"one-column" or "two-column"'),
+    "min_coverage": Key(_fraction, "a fraction between 0 and 1"),
+    "absolute": Key(_boolean, "true or false (a TOML boolean, without quotes)"),
+}
+
+#: [report] keys: `euphotic methods` and `euphotic report` (an empty table writes both)
+REPORT_KEYS: dict[str, Key] = {
+    "methods": Key(_boolean, "true or false (a TOML boolean, without quotes)"),
+}
+
+#: Step table -> its keys; the order in which they run is euphotic.steps.STEPS.
+STEP_KEYS: dict[str, dict[str, Key]] = {
+    "compare": COMPARE_KEYS,
+    "figure_set": FIGURE_SET_KEYS,
+    "report": REPORT_KEYS,
+}
+
+
 def _odd_cells(value) -> int:
     if not isinstance(value, int) or isinstance(value, bool) or value < 1 or value % 2 == 0:
         raise _Bad
@@ -230,7 +288,7 @@ MATCHUP_KEYS: dict[str, Key] = {
     "gross_to_net": Key(_fraction, "a fraction between 0 and 1"),
 }
 
-_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", "matchup"}
+_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", "matchup", *STEP_KEYS}
 _ROLES = ("chl", "par", "sst", "day_length")
 
 
@@ -262,6 +320,9 @@ class RunConfig:
     metadata: dict[str, str] = field(default_factory=dict)
     #: things worth knowing that are not errors (logged as warnings when the config is loaded)
     notes: list[str] = field(default_factory=list)
+    #: steps after the run: table name -> its checked keys, for the tables present
+    #: ([compare], [figure_set], [report]; see euphotic.steps)
+    steps: dict[str, dict] = field(default_factory=dict)
 
 
 def _check_keys(table: dict, allowed, where: str, problems: list) -> None:
@@ -459,6 +520,12 @@ def _load(path: Path, problems: list) -> RunConfig | None:
     check_table(_table(raw, "matchup", str(path), problems, name="[matchup]"), MATCHUP_KEYS,
                 f"{path} [matchup]", problems)
 
+    steps: dict[str, dict] = {}
+    for table, keys in STEP_KEYS.items():
+        if table in raw:
+            step_raw = _table(raw, table, str(path), problems, name=f"[{table}]")
+            steps[table] = check_table(step_raw, keys, f"{path} [{table}]", problems)
+
     start, end = run.get("start"), run.get("end")
     if start is not None and end is not None and end < start:
         problems.append(ConfigError(where_run, f"`end` ({end}) is before `start` ({start})"))
@@ -484,4 +551,5 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         land_mask_variable=ocean.get("variable"),
         metadata=metadata,
         notes=notes,
+        steps=steps,
     )
