@@ -456,13 +456,12 @@ def test_flags_empty_cells_and_warnings_never_a_silent_zero(tmp_path):
     assert sea_feb["ocean_area_km2"] == sea_jan["ocean_area_km2"]
     assert sea_feb["mean_npp_mgC_m-2_d-1"] == sea_feb["total_TgC"] == sea_feb["total_filled_TgC"] == ""
     ocean = sea_jan["ocean_area_km2"]
+    # one warning per region and case, naming every month it holds for
     assert [m for m in messages if "(flag " in m] == [
-        "region 'Land', 2024-01, model vgpm: no ocean cell of the grid in the region; mean and "
-        "totals left empty (flag no_ocean_cells)",
+        "region 'Land', 2 month(s) (2024-01, 2024-02), model(s) vgpm: no ocean cell of the grid "
+        "in the region; mean and totals left empty (flag no_ocean_cells)",
         f"region 'Sea', 2024-02, model vgpm: no valid estimate on the region's {ocean} km2 of "
         "ocean; mean and totals left empty (flag no_valid_data)",
-        "region 'Land', 2024-02, model vgpm: no ocean cell of the grid in the region; mean and "
-        "totals left empty (flag no_ocean_cells)",
     ]
     # in memory: NaN, not zero
     rows = {(r["region"], r["month"]): r for r in result.rows}

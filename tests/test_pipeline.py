@@ -469,3 +469,19 @@ def test_min_coverage_must_be_a_fraction(tmp_path):
     with pytest.raises(ConfigError, match=r"`min_coverage` must be a fraction between 0 and 1, "
                                           r"not 2"):
         load_config(path)
+
+
+def test_empty_region_months_are_warned_about_once_per_region(caplog):
+    """Seven empty months of two models give one warning naming them, not fourteen."""
+    import logging
+
+    from euphotic import aggregate
+
+    found = [(aggregate.FLAG_NO_DATA, "Bank", f"2016-{m:02d}", model, 6.0e10)
+             for m in range(1, 8) for model in ("vgpm", "eppley_vgpm")]
+    with caplog.at_level(logging.WARNING, logger="euphotic"):
+        aggregate.warn_empty_regions(found)
+    assert [r.getMessage() for r in caplog.records] == [
+        "region 'Bank', 7 month(s) (2016-01, 2016-02, 2016-03, 2016-04, 2016-05, 2016-06 and "
+        "1 more), model(s) vgpm, eppley_vgpm: no valid estimate on the region's 60000 km2 of "
+        "ocean; mean and totals left empty (flag no_valid_data)"]

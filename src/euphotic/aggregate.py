@@ -532,8 +532,36 @@ def region_sums(
     )
 
 
+def warn_empty_regions(found: list[tuple[str, str, str, str, float]]) -> None:
+    """One warning per region and flag for the empty totals gathered by :func:`finish_totals`
+    (``found`` items: flag, region, month, model, ocean m2), listing the months and models,
+    instead of one warning per month and model."""
+    groups: dict[tuple[str, str], list] = {}
+    for flag, name, month, model, ocean_m2 in found:
+        groups.setdefault((flag, name), []).append((month, model, ocean_m2))
+    for (flag, name), items in groups.items():
+        months = list(dict.fromkeys(m for m, _, _ in items))
+        models = list(dict.fromkeys(md for _, md, _ in items))
+        if len(items) == 1:
+            month, model, ocean_m2 = items[0]
+            where = f"region {name!r}, {month}, model {model}"
+        else:
+            shown = ", ".join(months[:6]) + (f" and {len(months) - 6} more" if len(months) > 6
+                                             else "")
+            where = (f"region {name!r}, {len(months)} month(s) ({shown}), model(s) "
+                     f"{', '.join(models)}")
+            ocean_m2 = items[0][2]
+        if flag == FLAG_NO_OCEAN:
+            _log.warning("%s: no ocean cell of the grid in the region; mean and totals left "
+                         "empty (flag %s)", where, flag)
+        else:
+            _log.warning("%s: no valid estimate on the region's %.0f km2 of ocean; mean and "
+                         "totals left empty (flag %s)", where, ocean_m2 / 1e6, flag)
+
+
 def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray, *,
-                  min_coverage: float | None = None) -> list[dict]:
+                  min_coverage: float | None = None,
+                  empty: list | None = None) -> list[dict]:
     """Rows of the regional totals table from the computed sums (keys: the columns of
     :data:`euphotic.outputs.TOTALS_COLUMNS`).
 
@@ -543,7 +571,10 @@ def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray, *,
     are NaN (empty cells), ``flag`` says why (:data:`FLAG_NO_OCEAN`, :data:`FLAG_NO_DATA`) and
     one warning per case goes to the ``euphotic`` logger. A region whose coverage is below
     ``min_coverage`` (0-1) is flagged :data:`FLAG_LOW_COVERAGE` (its numbers are kept).
+    With an ``empty`` list, the empty cases are appended to it (for one summary warning per
+    region through :func:`warn_empty_regions`) instead of each being warned about here.
     """
+    found = [] if empty is None else empty
     rows = []
     to_tg = lazy.n_days / MG_PER_G / G_PER_TG
     for name, (ocean_m2, observed_m2, integral, cov_m2) in zip(
@@ -552,17 +583,10 @@ def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray, *,
         flags = []
         if not ocean_m2 > 0:
             flags.append(FLAG_NO_OCEAN)
-            _log.warning(
-                "region %r, %s, model %s: no ocean cell of the grid in the region; mean and "
-                "totals left empty (flag %s)", name, lazy.month, lazy.model, FLAG_NO_OCEAN,
-            )
+            found.append((FLAG_NO_OCEAN, name, str(lazy.month), lazy.model, float(ocean_m2)))
         elif not observed_m2 > 0:
             flags.append(FLAG_NO_DATA)
-            _log.warning(
-                "region %r, %s, model %s: no valid estimate on the region's %.0f km2 of ocean; "
-                "mean and totals left empty (flag %s)",
-                name, lazy.month, lazy.model, ocean_m2 / 1e6, FLAG_NO_DATA,
-            )
+            found.append((FLAG_NO_DATA, name, str(lazy.month), lazy.model, float(ocean_m2)))
         seen = observed_m2 > 0
         coverage = cov_m2 / ocean_m2 if ocean_m2 > 0 else np.nan
         if seen and min_coverage is not None and coverage < min_coverage:
@@ -582,4 +606,6 @@ def finish_totals(lazy: RegionSumsLazy, sums: np.ndarray, *,
                 "flag": ";".join(flags),
             }
         )
+    if empty is None:
+        warn_empty_regions(found)
     return rows

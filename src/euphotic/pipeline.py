@@ -379,6 +379,7 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
     keep: set[str] = set()  # names reused where they are
     reused: list[tuple[str, str]] = []
     todo: list[tuple[str, np.datetime64]] = []
+    empty_regions: list[tuple] = []  # regions without ocean or data, warned about once
     try:
         for model_name in cfg.models:
             for month in prep.months:
@@ -428,7 +429,8 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             sums = iter(sums)
             for (model_name, month), z, nv, name in zip(items, lazies, n_valid, names,
                                                         strict=True):
-                rows = (aggregate.finish_totals(z, next(sums), min_coverage=cfg.min_coverage)
+                rows = (aggregate.finish_totals(z, next(sums), min_coverage=cfg.min_coverage,
+                                                empty=empty_regions)
                         if z is not None else [])
                 entry = {"kind": "map", "model": model_name,
                          "month": str(np.datetime64(month, "M")),
@@ -439,6 +441,7 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             with _writing(out_dir, "the run's staging index"):
                 stage.save()  # after a kill, the next run reuses what is recorded here
 
+        aggregate.warn_empty_regions(empty_regions)  # one warning per region, all months
         _check_not_empty(cfg, prep, entries)
         result = _finish(cfg, prep, folder, stage, entries, keep, previous, command=command,
                          input_files=input_files, run_id=run_id, provenance=provenance,
