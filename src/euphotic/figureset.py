@@ -1412,7 +1412,7 @@ def input_lines(folder: str | Path) -> list[str]:
         files = inputs.get(role)
         if not files:
             continue
-        line = f"{_ROLE_WORDS.get(role, role)} ({role}): {_file_pattern(list(files))}"
+        line = f"{role}, {_ROLE_WORDS.get(role, role)}: {_file_pattern(list(files))}"
         if attrs.get(f"input_periods_{role}"):
             line += f"; {attrs[f'input_periods_{role}']}"
         if attrs.get(f"input_units_{role}"):
@@ -1435,8 +1435,10 @@ def caption_texts(drawn: Drawn, ds: xr.Dataset, *, min_coverage: float, folder: 
     refs = [f"{names[m]}: {cites[m]}" for m in names]
     rule = (f"Coverage rule: a cell's monthly value is the mean over the days with a valid "
             f"estimate; coverage is the fraction of the month's days with one. Cells with mean "
-            f"coverage below {min_coverage:g} are marked on maps (this tool's default "
-            f"{DEFAULT_MIN_COVERAGE:g}); regional totals are over observed cells.")
+            f"coverage below {min_coverage:g} are marked on maps, and region-months below it "
+            f"(or flagged '{FLAG_LOW_COVERAGE}' by the run) on the regional charts (this "
+            f"tool's default {DEFAULT_MIN_COVERAGE:g}); regional totals are over observed "
+            f"cells.")
     source = (f"Run in {folder} (run id {ds.attrs.get('euphotic_run_id', 'unknown')}), drawn "
               f"by euphotic {__version__}.")
     md_in = ["Inputs:", *[f"- {r}" for r in inputs], ""] if inputs else []
