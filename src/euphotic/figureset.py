@@ -83,6 +83,10 @@ WHOLE_MAP_FRACTION = 0.5
 #: Longest side, in cells, of a mask outlined at full resolution (each cell split in 2 x 2 so
 #: that the outline follows the cell edges); larger masks are thinned by striding.
 MAX_OUTLINE_CELLS = 800
+#: Narrowest map panel (mm) that holds the regions' names; narrower panels (three or more
+#: maps at one-column width, for example) name them in a legend under the figure (this
+#: tool's choice, from looking at the drawn figures).
+MIN_NAMED_PANEL_MM = 50.0
 #: Ratio maps: the symmetric limits (1/f to f) are the smallest of these factors that holds
 #: the :data:`DIFF_PERCENTILE` th percentile of |log ratio|; with the middle tick of each.
 RATIO_LIMITS: dict[float, float] = {1.1: 1.05, 1.25: 1.1, 1.5: 1.2, 2.0: 1.5, 3.0: 2.0,
@@ -96,6 +100,7 @@ MAX_SIDE_BY_SIDE = 3
 
 NPP_LABEL = "net primary production (mg C m$^{-2}$ d$^{-1}$)"
 NPP_TEXT = "net primary production (mg C m-2 d-1)"
+RATIO_LABEL = "ratio of net primary production (dimensionless, logarithmic scale)"
 
 Projection = Literal["equal-area", "latlon"]
 Width = Literal["one-column", "two-column"]
@@ -221,8 +226,8 @@ def _title_chars(n: int, width: Width) -> int:
 
 
 def _grid_layout(n: int, width: Width) -> tuple[int, int]:
-    if width == "one-column":
-        return n, 1
+    if width == "one-column":  # two stacked maps at most: three or more in two columns
+        return (n, 1) if n <= 2 else (math.ceil(n / 2), 2)
     ncols = min(n, 3)
     return math.ceil(n / ncols), ncols
 
@@ -252,9 +257,16 @@ def _map_axes(n: int, *, width: Width, projection: Projection, lat, lon, extra_h
     return fig, axes, crs
 
 
+def _narrow(ncols: int, width: Width) -> bool:
+    """Map panels under :data:`MIN_NAMED_PANEL_MM` wide: region names go into a legend and
+    gridlines get fewer labels."""
+    return (WIDTHS_MM[width] - 15.0) / ncols < MIN_NAMED_PANEL_MM
+
+
 def _draw_base(ax, lat, lon, land: np.ndarray, no_data: np.ndarray, *, hatch_no_data=False,
-               left_labels=True, bottom_labels=True):
-    """Land and ocean without data as flat neutral colours, the domain's extent, gridlines."""
+               left_labels=True, bottom_labels=True, narrow=False):
+    """Land and ocean without data as flat neutral colours, the domain's extent, gridlines
+    (fewer of them on a ``narrow`` panel)."""
     import cartopy.crs as ccrs
     from matplotlib.colors import ListedColormap
 
@@ -272,6 +284,10 @@ def _draw_base(ax, lat, lon, land: np.ndarray, no_data: np.ndarray, *, hatch_no_
     gl.top_labels = gl.right_labels = False
     gl.left_labels, gl.bottom_labels = left_labels, bottom_labels
     gl.xlabel_style = gl.ylabel_style = {"size": FONT_PT}
+    if narrow:
+        from cartopy.mpl.ticker import LatitudeLocator, LongitudeLocator
+
+        gl.xlocator, gl.ylocator = LongitudeLocator(nbins=3), LatitudeLocator(nbins=4)
     ax.spines["geo"].set_linewidth(0.5)
     return gl
 
@@ -366,7 +382,11 @@ def _label_points(layer: RegionLayer, lat, lon) -> dict[str, tuple[float, float,
         for py, px in placed:  # keep clear of other names (an eighth of the map)
             dist = np.hypot((yy - py) / ms.shape[0], (xx - px) / ms.shape[1])
             score = np.where(dist < 0.12, score * dist / 0.12, score)
-        iy, ix = np.unravel_index(np.argmax(np.where(ms, score, -1.0)), ms.shape)
+        score = np.where(ms, score, -1.0)
+        # of the deepest cells (within 10 % of the best), the one nearest their middle
+        cy, cx = np.nonzero(score >= 0.9 * score.max())
+        k = np.argmin(np.hypot(cy - cy.mean(), cx - cx.mean()))
+        iy, ix = cy[k], cx[k]
         placed.append((iy, ix))
         fx = ix / max(ms.shape[1] - 1, 1)
         ha = "left" if fx < 0.15 else "right" if fx > 0.85 else "center"
@@ -411,7 +431,28 @@ def _draw_regions(ax, layer: RegionLayer, lat, lon, *, names: bool):
     return outlines, texts
 
 
-def _regions_text(layer: RegionLayer) -> str:
+def _legend_height(layer: RegionLayer) -> float:
+    """Inches a legend of the regions' names takes under a figure (two columns)."""
+    return 0.3 + 0.14 * math.ceil(len(layer.masks) / 2) if layer.masks else 0.0
+
+
+def _region_legend(fig, layer: RegionLayer, *, ncols: int) -> list:
+    """The regions' names as a legend of outline colours under the figure (for panels too
+    small to hold names); returns the legend's texts."""
+    from matplotlib.lines import Line2D
+
+    named = [(i, n) for i, (n, m) in enumerate(layer.masks) if m.any()]
+    if not named:
+        return []
+    handles = [Line2D([], [], color=REGION_COLOURS[i % len(REGION_COLOURS)], lw=1.2)
+               for i, _ in named]
+    leg = fig.legend(handles, [n for _, n in named], loc="outside lower center", ncols=ncols,
+                     fontsize=FONT_PT, frameon=False, title="regions (outlines)",
+                     title_fontsize=FONT_PT)
+    return list(leg.get_texts())
+
+
+def _regions_text(layer: RegionLayer, *, legend: bool = False) -> str:
     """The caption's sentence on region outlines."""
     if layer.skipped:
         return (f"The run's {layer.skipped} regions are not outlined (more than "
@@ -420,8 +461,9 @@ def _regions_text(layer: RegionLayer) -> str:
         return ""
     whole = [n for n, m in layer.masks if m.any() and m.mean() > WHOLE_MAP_FRACTION]
     text = (f"Coloured outlines: the run's regions ({', '.join(n for n, _ in layer.masks)}) "
-            f"along the edges of their cells, named on the first panel")
-    if whole:
+            f"along the edges of their cells, named "
+            + ("in the legend under the maps" if legend else "on the first panel"))
+    if whole and not legend:
         text += f" ({', '.join(whole)}, covering most of the map, in the upper left corner)"
     return text + ". "
 
@@ -491,7 +533,9 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
     cmap = _cmap(SEQUENTIAL_CMAP)
     extend = _extend(data_lo, data_hi, lo, hi)
     with plt.rc_context(_rc()):
-        fig, axes, _ = _map_axes(len(models), width=width, projection=projection, lat=lat, lon=lon)
+        narrow = _narrow(_grid_layout(len(models), width)[1], width)
+        fig, axes, _ = _map_axes(len(models), width=width, projection=projection, lat=lat, lon=lon,
+                                 extra_height_in=_legend_height(layer) if narrow else 0.0)
         import cartopy.crs as ccrs
 
         meshes, marks, outlines, labels = [], [], [], []
@@ -500,13 +544,13 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
             c = mean["coverage"].sel(model=m).values
             land = ~np.isfinite(c)
             no_data = np.isfinite(c) & ~np.isfinite(v)
-            _draw_base(ax, lat, lon, land, no_data)
+            _draw_base(ax, lat, lon, land, no_data, narrow=narrow)
             shown = np.where(np.isfinite(v), np.maximum(v, lo * 1e-3), np.nan)  # 0 -> under
             mesh = ax.pcolormesh(_edges(lon), _edges(lat), shown, norm=norm, cmap=cmap,
                                  transform=ccrs.PlateCarree(), rasterized=True)
             meshes.append(mesh)
             marks.append(_mark(ax, lat, lon, np.isfinite(v) & (c < min_coverage), "...."))
-            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0)
+            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
             ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
@@ -517,6 +561,8 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
         cb.ax.xaxis.set_major_locator(FixedLocator(_log_ticks(lo, hi)))
         cb.ax.xaxis.set_minor_locator(NullLocator())
         cb.ax.xaxis.set_major_formatter(lambda x, _: f"{x:g}")
+        if narrow:
+            labels += _region_legend(fig, layer, ncols=2)
         fig.suptitle(f"Mean net primary production, {_span_text(period)}")
     n_low = {m: int((np.isfinite(mean['npp'].sel(model=m).values)
                      & (mean['coverage'].sel(model=m).values < min_coverage)).sum()) for m in models}
@@ -530,7 +576,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
         f"Mid grey: land; light grey: ocean without data. Stippled: cells whose mean coverage "
         f"over the period is below {min_coverage:g} of days (this tool's default is "
         f"{DEFAULT_MIN_COVERAGE:g}; {', '.join(f'{names[m]}: {n_low[m]} cells' for m in models)}). "
-        + _regions_text(layer) + _projection_text(projection)
+        + _regions_text(layer, legend=narrow) + _projection_text(projection)
     )
     return Drawn("fig_npp_maps", fig, f"Mean net primary production, {_span_text(period)}",
                  caption, {"meshes": meshes, "colorbar": cb, "norm": norm, "marks": marks,
@@ -593,13 +639,16 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     label = (f"change in net primary production ({unit})" if relative
              else f"difference in net primary production ({unit})")
     with plt.rc_context(_rc()):
-        fig, axes, _ = _map_axes(len(models), width=width, projection=projection, lat=lat, lon=lon)
+        narrow = _narrow(_grid_layout(len(models), width)[1], width)
+        fig, axes, _ = _map_axes(len(models), width=width, projection=projection, lat=lat, lon=lon,
+                                 extra_height_in=_legend_height(layer) if narrow else 0.0)
         meshes, outlines, labels = [], [], []
         for k, (ax, m) in enumerate(zip(axes, models, strict=True)):
             v = d.sel(model=m).values
             c = per_cov.sel(model=m).values
             land = ~np.isfinite(c)
-            _draw_base(ax, lat, lon, land, ~land & ~np.isfinite(v), hatch_no_data=True)
+            _draw_base(ax, lat, lon, land, ~land & ~np.isfinite(v), hatch_no_data=True,
+                       narrow=narrow)
             mesh = ax.pcolormesh(_edges(lon), _edges(lat), v, norm=norm,
                                  cmap=_cmap(DIVERGING_CMAP), transform=ccrs.PlateCarree(),
                                  rasterized=True)
@@ -607,7 +656,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
             low = np.isfinite(v) & ((c < min_coverage)
                                     | (base_cov.sel(model=m).values < min_coverage))
             _mark(ax, lat, lon, low, "....")
-            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0)
+            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
             ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
@@ -615,6 +664,8 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
         cb = fig.colorbar(meshes[0], ax=axes, orientation="horizontal", extend=extend,
                           shrink=0.85, aspect=35, pad=0.02)
         cb.set_label(label)
+        if narrow:
+            labels += _region_legend(fig, layer, ncols=2)
         fig.suptitle(f"Net primary production {_span_text(period)} against "
                      f"{_span_text(baseline)}")
     what = ("in percent of the baseline mean" if relative
@@ -626,7 +677,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
         f"{_ordinal(DIFF_PERCENTILE)} percentile of the absolute change (+-{_num(lim)}; arrows mark "
         f"values beyond). Mid grey: land; light grey, hatched: ocean without data in either "
         f"period. Stippled: mean coverage below {min_coverage:g} of days in either period. "
-        + _regions_text(layer) + _projection_text(projection)
+        + _regions_text(layer, legend=narrow) + _projection_text(projection)
     )
     return Drawn("fig_npp_difference", fig,
                  f"Net primary production {_span_text(period)} against {_span_text(baseline)}",
@@ -758,30 +809,36 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
     titles = [textwrap.fill(p[0], _title_chars(len(panels), width)) for p in panels]
     lines = max(t.count("\n") + 1 for t in titles)
     with plt.rc_context(_rc()):
+        narrow = _narrow(_grid_layout(len(panels), width)[1], width)
         fig, axes, _ = _map_axes(len(panels), width=width, projection=projection, lat=lat,
-                                 lon=lon, extra_height_in=0.16 * max(lines - 2, 0))
+                                 lon=lon, extra_height_in=0.16 * max(lines - 2, 0)
+                                 + (_legend_height(layer) if narrow else 0.0))
         meshes, outlines, labels = [], [], []
         for k, (ax, (_, r, low, land), title) in enumerate(zip(axes, panels, titles,
                                                                strict=True)):
-            _draw_base(ax, lat, lon, land, ~land & ~np.isfinite(r), hatch_no_data=True)
+            _draw_base(ax, lat, lon, land, ~land & ~np.isfinite(r), hatch_no_data=True,
+                       narrow=narrow)
             with np.errstate(all="ignore"):
                 shown = np.where(np.isnan(r), np.nan, np.clip(r, 1e-3 / f, 1e3 * f))
             mesh = ax.pcolormesh(_edges(lon), _edges(lat), shown, norm=norm, cmap=cmap,
                                  transform=ccrs.PlateCarree(), rasterized=True)
             meshes.append(mesh)
             _mark(ax, lat, lon, low, "....")
-            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0)
+            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
             ax.set_title(title, fontsize=FONT_PT + 1)
         cb = fig.colorbar(meshes[0], ax=axes, orientation="horizontal", extend=extend,
                           shrink=0.85, aspect=35, pad=0.02)
-        cb.set_label("ratio of net primary production (dimensionless, logarithmic scale)")
+        cb.set_label(textwrap.fill(RATIO_LABEL, 90 if width == "two-column" else 45))
+        if narrow:
+            labels += _region_legend(fig, layer, ncols=2)
         cb.ax.xaxis.set_major_locator(FixedLocator(ticks))
         cb.ax.xaxis.set_minor_locator(NullLocator())
         cb.ax.xaxis.set_major_formatter(lambda x, _: f"{x:.2g}")
-        fig.suptitle(f"Ratio of net primary production, {P} / {B}"
-                     + (" and between models" if len(models) > 1 else ""))
+        fig.suptitle(textwrap.fill(f"Ratio of net primary production, {P} / {B}"
+                                   + (" and between models" if len(models) > 1 else ""),
+                                   90 if width == "two-column" else 45))
     between = (f" Last panel{'s' if len(models) > 2 else ''}: "
                + ", ".join(f"{names[m]} / {names[first]}" for m in models[1:])
                + f", means over {P}." if len(models) > 1 else "")
@@ -793,7 +850,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
         f"holding the {_ordinal(DIFF_PERCENTILE)} percentile of |log ratio|; arrows on the "
         f"colour bar mark values beyond). Mid grey: land; light grey, hatched: ocean without "
         f"data in either. Stippled: mean coverage below {min_coverage:g} of days in either. "
-        + _regions_text(layer) + _projection_text(projection)
+        + _regions_text(layer, legend=narrow) + _projection_text(projection)
     )
     return Drawn("fig_npp_ratio", fig, f"Ratio of net primary production, {P} / {B}", caption,
                  {"meshes": meshes, "colorbar": cb, "norm": norm, "ticks": ticks,
@@ -847,12 +904,16 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
                          np.linspace(lat.min(), lat.max(), 9))
     pts = crs.transform_points(_ccrs.PlateCarree(), xs, ys)
     aspect = float(np.ptp(pts[..., 1]) / max(np.ptp(pts[..., 0]), 1e-9))
-    panel_h = min((w_in - 0.5) / 3 * aspect, MAX_PANEL_HEIGHT_MM / MM_PER_INCH)
+    panel_h = min((w_in - 0.9) / 3 * aspect, MAX_PANEL_HEIGHT_MM / MM_PER_INCH)
     row_h = panel_h + 0.75
     cb_h = 0.75
+    # panels under about 50 mm wide cannot hold the names: a legend instead
+    in_map = not _narrow(3, width)
+    legend_h = 0.0 if in_map else _legend_height(layer)
     pc = ccrs.PlateCarree()
     with plt.rc_context(_rc()):
-        fig = plt.figure(figsize=(w_in, n * row_h + cb_h + 0.35), layout="constrained")
+        fig = plt.figure(figsize=(w_in, n * row_h + cb_h + 0.35 + legend_h),
+                         layout="constrained")
         subs = fig.subfigures(n + 1, 1, height_ratios=[row_h] * n + [cb_h])
         rows, means, changes, outlines, labels = [], [], [], [], []
         for i, (sf, m) in enumerate(zip(subs[:n], models, strict=True)):
@@ -865,7 +926,7 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
                 v, c = ds["npp"].sel(model=m).values, ds["coverage"].sel(model=m).values
                 land = ~np.isfinite(c)
                 _draw_base(ax, lat, lon, land, ~land & ~np.isfinite(v), left_labels=j == 0,
-                           bottom_labels=i == n - 1)
+                           bottom_labels=i == n - 1, narrow=not in_map)
                 means.append(ax.pcolormesh(
                     _edges(lon), _edges(lat),
                     np.where(np.isfinite(v), np.maximum(v, lo * 1e-3), np.nan), norm=norm,
@@ -876,7 +937,7 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
             c = per["coverage"].sel(model=m).values
             land = ~np.isfinite(c)
             _draw_base(axs[2], lat, lon, land, ~land & ~np.isfinite(v), hatch_no_data=True,
-                       left_labels=False, bottom_labels=i == n - 1)
+                       left_labels=False, bottom_labels=i == n - 1, narrow=not in_map)
             changes.append(axs[2].pcolormesh(_edges(lon), _edges(lat), v, norm=dnorm,
                                              cmap=_cmap(DIVERGING_CMAP), transform=pc,
                                              rasterized=True))
@@ -886,7 +947,7 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
             axs[2].set_title(f"change, {P} against {B}" if width == "two-column"
                              else "change", fontsize=FONT_PT + 1)
             for j, ax in enumerate(axs):
-                o, t = _draw_regions(ax, layer, lat, lon, names=i == 0 and j == 0)
+                o, t = _draw_regions(ax, layer, lat, lon, names=in_map and i == 0 and j == 0)
                 outlines.append(o)
                 labels += t
         cax = subs[n].subplots(1, 2, gridspec_kw={"width_ratios": [2, 1]})
@@ -899,7 +960,10 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
                                extend=dextend)
         dcb.set_label(f"change ({unit})")
         dcb.ax.xaxis.set_major_locator(MaxNLocator(nbins=4, symmetric=True))
-        fig.suptitle(f"Net primary production: {B} baseline, {P} and the change")
+        if not in_map:
+            labels += _region_legend(fig, layer, ncols=2)
+        fig.suptitle(textwrap.fill(f"Net primary production: {B} baseline, {P} and the change",
+                                   90 if width == "two-column" else 45))
     what = ("in percent of the baseline mean" if relative
             else "as the difference of the means (mg C m-2 d-1)")
     caption = (
@@ -913,7 +977,7 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
         f"value (+-{_num(lim)}); arrows on the colour bars mark clipped values. Mid grey: "
         f"land; light grey: ocean without data (hatched on the change). Stippled: mean "
         f"coverage below {min_coverage:g} of days. "
-        + _regions_text(layer) + _projection_text(projection)
+        + _regions_text(layer, legend=not in_map) + _projection_text(projection)
     )
     return Drawn("fig_npp_baseline_period_change", fig,
                  f"Net primary production, {B} baseline against {P}", caption,
