@@ -1410,7 +1410,8 @@ def monthly_series(totals: xr.Dataset, *, baseline: tuple[int, int],
           f"by calendar month; dashed: mean) of the "
         + ("mean across models" if len(models) > 1 else "model")
         + f". Crosses: months whose coverage is below {min_coverage:g} of days or that the run "
-          f"flagged '{FLAG_LOW_COVERAGE}'. Each region on its own panel and y axis."
+          f"flagged '{FLAG_LOW_COVERAGE}'; gaps in a line: months without any observed cell "
+          f"in the region. Each region on its own panel and y axis."
     )
     return Drawn("fig_monthly_totals", fig, f"Monthly carbon fixed by region, "
                  f"{_span_text(span)}", caption,
