@@ -45,6 +45,16 @@ PUBLISHED_NAMES: dict[str, str] = {
     "dependence",
 }
 
+#: Short labels for axes and legends (the captions and metadata give PUBLISHED_NAMES and the
+#: citations).
+MODEL_LABELS: dict[str, str] = {"vgpm": "VGPM", "eppley_vgpm": "Eppley-VGPM"}
+
+
+def model_label(model: str) -> str:
+    """Short display label of a model id (the id itself when it has none)."""
+    return MODEL_LABELS.get(model, model)
+
+
 #: Value written for a [metadata] attribute the user did not set (an honest "unknown").
 NOT_SPECIFIED = "not specified by the user"
 

@@ -56,6 +56,8 @@ class RunResult:
     #: what the run did to the folder besides its outputs (recovery, clean-up)
     notes: list[str] = field(default_factory=list)
     manifest: Path | None = None
+    #: what the steps after the run added (euphotic.steps.Done, in order)
+    steps: list = field(default_factory=list)
 
 
 def prepare(cfg: RunConfig) -> Prepared:
@@ -173,6 +175,7 @@ def run(
     scheduler: str | None = None,
     workers: int | None = None,
     force: bool = False,
+    steps: bool = True,
 ) -> RunResult:
     """Produce monthly maps, the regional totals table and figures for a configuration.
 
@@ -183,15 +186,26 @@ def run(
 
     ``scheduler`` / ``workers`` choose a dask.distributed engine (see :func:`compute_engine`);
     by default the local threaded scheduler runs the graph.
+
+    Then, with ``steps``, the steps after the run that ``cfg.steps`` configures
+    (:func:`euphotic.steps.run_steps`: comparisons, figure set, methods and report), each
+    committed on its own, under the same lock; a failing step raises
+    :class:`euphotic.steps.StepError` with the run committed.
     """
     if not cfg.models:
         raise ConfigError(f"{cfg.path} [run]", "`models` is empty: name at least one model")
     cfg.models = list(dict.fromkeys(cfg.models))  # a model listed twice runs once
     prep = prepare(cfg)
     folder = runfolder.OutputFolder(Path(cfg.output_dir))
-    with folder.locked(command), compute_engine(scheduler, workers) as client:
-        return _run(cfg, prep, folder, progress=progress, command=command, client=client,
-                    force=force)
+    with folder.locked(command):
+        with compute_engine(scheduler, workers) as client:
+            result = _run(cfg, prep, folder, progress=progress, command=command, client=client,
+                          force=force)
+        if steps and cfg.steps:  # still under the lock: no other command adds in between
+            from euphotic.steps import run_steps
+
+            result.steps = run_steps(cfg, folder.path, command=command)
+    return result
 
 
 #: Bumped when a change of the code changes the bytes of maps for the same inputs.
@@ -202,7 +216,7 @@ FIGURE_FORMAT = 2
 REGIONS_FORMAT = 1
 #: RunConfig fields that do not change what a month's map or totals contain.
 _NOT_IN_FINGERPRINT = {"path", "output_dir", "figures", "months_per_compute", "start", "end",
-                       "models"}
+                       "models", "steps"}
 
 
 def _input_files(prep: Prepared) -> dict[str, list[str]]:

@@ -48,6 +48,19 @@ TOTALS_VARIABLES: dict[str, str] = {
     "flag": "flag",
 }
 
+#: The totals that are masses of carbon: long name and comment. Their ``units`` stay "Tg"
+#: (teragrams), which UDUNITS parses as CF asks; "TgC" of the CSV column names is not a
+#: UDUNITS unit, so "of carbon" is said here instead.
+CARBON_TOTALS: dict[str, dict[str, str]] = {
+    "total_TgC": {
+        "long_name": "total carbon fixed in the month",
+        "comment": "mass of carbon (Tg = 1e9 kg of carbon; the table's column total_TgC)"},
+    "total_filled_TgC": {
+        "long_name": "total carbon fixed in the month (gaps filled)",
+        "comment": "mass of carbon (Tg = 1e9 kg of carbon; the table's column "
+                   "total_filled_TgC)"},
+}
+
 #: How long a reader waits for a run that is committing right now (its renames take
 #: milliseconds) before it calls the folder inconsistent, in seconds.
 COMMIT_WAIT_S = 5.0
@@ -452,6 +465,7 @@ def open_totals(folder: str | os.PathLike) -> xr.Dataset:
         a = {"long_name": c.title, "description": c.description}
         if c.unit is not None:
             a["units"] = c.unit
+        a.update(CARBON_TOTALS.get(col, {}))
         return a
 
     data_vars = {TOTALS_VARIABLES[c]: (("region", "month", "model"), values[c], attrs(c))
