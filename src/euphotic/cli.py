@@ -86,7 +86,7 @@ def main() -> None:
 @click.option(
     "--no-steps", is_flag=True,
     help="Stop once the maps and totals are committed: skip the config's [compare], "
-         "[figure_set] and [report] steps.",
+         "[figure_set], [matchup] and [report] steps.",
 )
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
 def run(
@@ -101,7 +101,7 @@ def run(
     debug: bool,
 ) -> None:
     """Run the models for CONFIG (a TOML file) and write maps and regional totals; then the
-    steps the config sets ([compare], [figure_set], [report]), each added to the folder."""
+    steps the config sets ([compare], [figure_set], [matchup], [report]), each added to the folder."""
     _log_warnings()
     try:
         from euphotic.config import load_config
@@ -133,6 +133,12 @@ def run(
         if done.table == "compare":
             click.echo("")
             _echo_trends(done.value)
+        if done.table == "matchup":  # the overall sentences; the rest in matchup_summary.md
+            click.echo("")
+            click.echo("Station match-ups:")
+            for line in done.value.summary.splitlines():
+                if line.startswith("- Over all stations"):
+                    click.echo(line)
     click.echo("")
     from euphotic.outputs import CAUTION
 

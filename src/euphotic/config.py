@@ -245,12 +245,6 @@ REPORT_KEYS: dict[str, Key] = {
     "methods": Key(_boolean, "true or false (a TOML boolean, without quotes)"),
 }
 
-#: Step table -> its keys; the order in which they run is euphotic.steps.STEPS.
-STEP_KEYS: dict[str, dict[str, Key]] = {
-    "compare": COMPARE_KEYS,
-    "figure_set": FIGURE_SET_KEYS,
-    "report": REPORT_KEYS,
-}
 
 
 def _odd_cells(value) -> int:
@@ -282,6 +276,14 @@ MATCHUP_KEYS: dict[str, Key] = {
     "max_cv": Key(_positive, "a number > 0 (e.g. 0.15)"),
     "quotient": Key(_quotient, '"ammonium", "nitrate" or a number between 0.5 and 3'),
     "gross_to_net": Key(_fraction, "a fraction between 0 and 1"),
+}
+
+#: Step table -> its keys; the order in which they run is euphotic.steps.STEPS.
+STEP_KEYS: dict[str, dict[str, Key]] = {
+    "compare": COMPARE_KEYS,
+    "figure_set": FIGURE_SET_KEYS,
+    "matchup": MATCHUP_KEYS,
+    "report": REPORT_KEYS,
 }
 
 _TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", "matchup", *STEP_KEYS}
@@ -509,10 +511,6 @@ def _load(path: Path, problems: list) -> RunConfig | None:
             regions = regions_from_config(regions_raw, base, str(path))
         except EuphoticError as exc:
             problems.append(exc)
-
-    # [matchup] is checked here and read by matchup_table (it changes no map of the run)
-    check_table(_table(raw, "matchup", str(path), problems, name="[matchup]"), MATCHUP_KEYS,
-                f"{path} [matchup]", problems)
 
     steps: dict[str, dict] = {}
     for table, keys in STEP_KEYS.items():

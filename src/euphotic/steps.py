@@ -87,6 +87,13 @@ def _figure_set(folder: Path, options: dict, *, cfg, command: str) -> Done:
     return Done("figure_set", files=list(fs.files), notes=list(fs.notes), value=fs)
 
 
+def _matchup(folder: Path, options: dict, *, cfg, command: str) -> Done:
+    from euphotic.matchup_outputs import write_matchups
+
+    w = write_matchups(folder, cfg=cfg, command=command)  # reads its [matchup] table itself
+    return Done("matchup", files=list(w.files), value=w)
+
+
 def _report(folder: Path, options: dict, *, cfg, command: str) -> Done:
     from euphotic.methods import write_methods
     from euphotic.report import write_report
@@ -114,6 +121,7 @@ class Step:
 STEPS: tuple[Step, ...] = (
     Step("compare", _compare),
     Step("figure_set", _figure_set),
+    Step("matchup", _matchup),
     Step("report", _report),
 )
 
