@@ -585,3 +585,32 @@ def test_monthly_series_band_climatology_and_low_marks(data):
     one = figureset.monthly_series(totals.isel(model=[0]), baseline=(2023, 2024))
     assert one.artists["spread"] == [None, None]
     plt.close(one.figure)
+
+
+def test_a_region_mask_on_another_grid_is_one_clear_error(data):
+    maps, _ = data
+    shape = (maps.sizes["lat"], maps.sizes["lon"])
+    with pytest.raises(figureset.FigureOptionError) as exc:
+        figureset.region_layer({"Odd": np.zeros((3, 4), bool)}, maps["lat"].values,
+                               maps["lon"].values)
+    assert str(exc.value) == (f"region 'Odd': mask of shape (3, 4) is not on the maps' grid "
+                              f"({shape[0]} x {shape[1]} cells)")
+
+
+def test_a_run_without_region_masks_gets_figures_without_outlines(tmp_path, monkeypatch):
+    from euphotic.errors import NoRunError
+
+    cfg = monthly_case(tmp_path, 3, regions=(("Box", [-30.0, 40.0, -20.0, 50.0]),))
+    assert CliRunner().invoke(main, ["run", str(cfg), "-q"]).exit_code == 0
+    out = tmp_path / "out"
+
+    def no_masks(folder):  # stands for a run from before regions.nc was written
+        raise NoRunError(f"{folder}: the run recorded no region masks")
+
+    monkeypatch.setattr(results, "open_region_masks", no_masks)
+    res = CliRunner().invoke(main, ["figures", str(out), "-q"])
+    assert res.exit_code == 0, res.output
+    assert (f"note: no region outlines on the maps: {out}: the run recorded no region masks"
+            in res.stdout.splitlines())
+    assert "Coloured outlines" not in (out / "fig_npp_maps.caption.txt").read_text()
+    assert (out / "fig_totals_coverage.png").is_file()
