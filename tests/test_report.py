@@ -142,7 +142,8 @@ def test_figure_set_captions_and_comparisons_are_used_when_present(folder):
     res = _report(folder)
     assert res.exit_code == 0, res.output
     figure_set = _pngs(folder, "figure set")
-    assert figure_set == ["fig_annual_totals.png", "fig_npp_maps.png", "fig_seasonal_cycle.png"]
+    assert figure_set == ["fig_annual_totals.png", "fig_monthly_totals.png", "fig_npp_maps.png",
+                          "fig_seasonal_cycle.png", "fig_totals_coverage.png"]
     page = _parse(folder / "report.html")
     decoded = [base64.b64decode(s.split(",", 1)[1]) for s in page.imgs]
     # the figure set replaces the quick looks

@@ -112,7 +112,8 @@ def test_run_adds_every_step_in_order_each_committed(with_steps):
     figs = kinds["figure set"]
     assert {n for n in figs if n.endswith(".png")} == {
         "fig_annual_totals.png", "fig_npp_difference.png", "fig_npp_maps.png",
-        "fig_seasonal_cycle.png"}
+        "fig_seasonal_cycle.png", "fig_npp_baseline_period_change.png", "fig_npp_ratio.png",
+        "fig_totals_coverage.png", "fig_monthly_totals.png"}
     assert all(f"{n[:-4]}.{ext}" in figs for n in figs if n.endswith(".png")
                for ext in ("pdf", "caption.md", "caption.txt"))
     assert len(man["outputs"]) == 24 + 3 + len(COMPARE_FILES) + len(figs) + 4 + 1
@@ -128,7 +129,7 @@ def test_run_adds_every_step_in_order_each_committed(with_steps):
     ]
     # the report embeds the figure set (not the quick-look figures) and the comparisons
     images = _report_images(out / "report.html")
-    assert len(images) == 4 and all(i.startswith(PNG_SIGNATURE) for i in images)
+    assert len(images) == 8 and all(i.startswith(PNG_SIGNATURE) for i in images)
     assert sorted(images) == sorted((out / n).read_bytes() for n in figs if n.endswith(".png"))
     text = " ".join(_parse(out / "report.html").text)
     assert "compare_trends.csv" in text and "Behrenfeld and Falkowski (1997)" in text
@@ -334,14 +335,14 @@ def test_the_lock_is_reentrant_in_its_thread_only(tmp_path):
 def test_figures_after_report_rebuild_the_report_in_the_same_commit(copy):
     _, out = copy
     old_images = _report_images(out / "report.html")
-    assert len(old_images) == 4
+    assert len(old_images) == 8
     res = CliRunner().invoke(main, ["figures", str(out), "--period", "2024", "--baseline",
                                     "2023", "--width", "two-column", "--projection", "latlon",
                                     "-q"])
     assert res.exit_code == 0, res.output
     man = _consistent(out)
     figs = sorted(n for n in _kinds(man)["figure set"] if n.endswith(".png"))
-    assert len(figs) == 4
+    assert len(figs) == 8
     # one commit added the figures and the rebuilt report
     last = man["added"][-1]
     assert last["command"].startswith("euphotic figures ") and "report.html" in last["outputs"]
@@ -357,7 +358,7 @@ def test_figures_after_report_rebuild_the_report_in_the_same_commit(copy):
     _consistent(out)
     text = " ".join(_parse(out / "report.html").text)
     assert "compare_annual_totals.csv" in text and "compare_trends.csv" in text
-    assert len(_report_images(out / "report.html")) == 4
+    assert len(_report_images(out / "report.html")) == 8
 
 
 def test_a_report_that_cannot_be_rebuilt_stops_the_commit(copy):
@@ -472,8 +473,9 @@ def test_readme_first_command_is_one_line_running_the_decade_demo():
 DECADE_FILES = {
     "regional_totals.csv", "regional_totals.csv-metadata.json", "euphotic_manifest.json",
     "regions.nc", *COMPARE_FILES, *METHODS_FILES, "report.html",
-    *(f"fig_{n}.{ext}" for n in ("npp_maps", "npp_difference", "annual_totals",
-                                  "seasonal_cycle")
+    *(f"fig_{n}.{ext}" for n in ("npp_maps", "npp_difference", "npp_baseline_period_change",
+                                  "npp_ratio", "annual_totals", "seasonal_cycle",
+                                  "totals_coverage", "monthly_totals")
       for ext in ("png", "pdf", "caption.md", "caption.txt")),
 }
 
@@ -493,7 +495,7 @@ def test_decade_demo_with_its_steps(tmp_path):
     assert names - maps == DECADE_FILES
     assert set(man["outputs"]) == names - {runfolder.MANIFEST_NAME}
     assert man["months"][0] == "2015-01" and man["months"][-1] == "2024-12"
-    assert len(_report_images(out / "report.html")) == 4
+    assert len(_report_images(out / "report.html")) == 8
     assert "baseline 2015-2019" in res.stdout
     with open(out / "compare_annual_totals.csv") as fh:
         assert len(fh.read().splitlines()) == 1 + 4 * 10 * 2  # regions x years x models

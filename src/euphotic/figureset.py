@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import math
 import textwrap
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
@@ -27,7 +28,9 @@ import numpy as np
 import xarray as xr
 
 from euphotic import __version__, compare, results, runfolder
-from euphotic.errors import EuphoticError
+from euphotic.aggregate import FLAG_LOW_COVERAGE
+from euphotic.errors import EuphoticError, NoRunError
+from euphotic.figures import MAX_REGIONS_DRAWN  # more regions than this are not outlined
 from euphotic.outputs import CAUTION
 
 #: The kind under which the figure set is listed in the run manifest; a new
@@ -70,8 +73,34 @@ LINE_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9"
 #: Band of the spread across models (neutral, so it reads apart from any model's colour).
 SPREAD_COLOUR = "#c8c8c8"
 
+#: Outline colours of the regions on maps: the Okabe & Ito (2008) palette of the lines, drawn
+#: with a white halo so that they read on every colour of the colour maps.
+REGION_COLOURS = LINE_COLOURS
+#: A region holding more than this fraction of the map's cells is named in a corner label
+#: instead of at a point inside it (its outline is the map's frame or close to it); this
+#: tool's choice.
+WHOLE_MAP_FRACTION = 0.5
+#: Longest side, in cells, of a mask outlined at full resolution (each cell split in 2 x 2 so
+#: that the outline follows the cell edges); larger masks are thinned by striding.
+MAX_OUTLINE_CELLS = 800
+#: Narrowest map panel (mm) that holds the regions' names; narrower panels (three or more
+#: maps at one-column width, for example) name them in a legend under the figure (this
+#: tool's choice, from looking at the drawn figures).
+MIN_NAMED_PANEL_MM = 50.0
+#: Ratio maps: the symmetric limits (1/f to f) are the smallest of these factors that holds
+#: the :data:`DIFF_PERCENTILE` th percentile of |log ratio|; with the middle tick of each.
+RATIO_LIMITS: dict[float, float] = {1.1: 1.05, 1.25: 1.1, 1.5: 1.2, 2.0: 1.5, 3.0: 2.0,
+                                    5.0: 2.0, 10.0: 3.0}
+#: Baseline monthly climatology behind the monthly series: range (fill) and mean (line).
+CLIMATOLOGY_COLOUR = "#eadfc4"
+CLIMATOLOGY_LINE = "#7d6b43"
+#: More models than this are drawn as their mean with a min-max whisker in the totals chart
+#: instead of side by side bars.
+MAX_SIDE_BY_SIDE = 3
+
 NPP_LABEL = "net primary production (mg C m$^{-2}$ d$^{-1}$)"
 NPP_TEXT = "net primary production (mg C m-2 d-1)"
+RATIO_LABEL = "ratio of net primary production (dimensionless, logarithmic scale)"
 
 Projection = Literal["equal-area", "latlon"]
 Width = Literal["one-column", "two-column"]
@@ -189,19 +218,28 @@ def _edges(c: np.ndarray) -> np.ndarray:
     return np.concatenate([[2 * c[0] - mid[0]], mid, [2 * c[-1] - mid[-1]]])
 
 
+def _title_chars(n: int, width: Width) -> int:
+    """Characters per line of a panel title in the default grid of ``n`` panels (about
+    1.75 mm a character at FONT_PT + 1 points; measured on the drawn figures)."""
+    ncols = _grid_layout(n, width)[1]
+    return max(24, int((WIDTHS_MM[width] - 15) / ncols / 1.75))
+
+
 def _grid_layout(n: int, width: Width) -> tuple[int, int]:
-    if width == "one-column":
-        return n, 1
+    if width == "one-column":  # two stacked maps at most: three or more in two columns
+        return (n, 1) if n <= 2 else (math.ceil(n / 2), 2)
     ncols = min(n, 3)
     return math.ceil(n / ncols), ncols
 
 
-def _map_axes(n: int, *, width: Width, projection: Projection, lat, lon, extra_height_in=0.0):
-    """A figure of ``n`` map panels at the print width; returns (fig, axes, crs)."""
+def _map_axes(n: int, *, width: Width, projection: Projection, lat, lon, extra_height_in=0.0,
+              layout: tuple[int, int] | None = None):
+    """A figure of ``n`` map panels at the print width (``layout`` (rows, columns) or the
+    default grid); returns (fig, axes, crs)."""
     import matplotlib.pyplot as plt
 
     crs = _projection(projection, lat, lon)
-    nrows, ncols = _grid_layout(n, width)
+    nrows, ncols = layout or _grid_layout(n, width)
     w_in = WIDTHS_MM[width] / MM_PER_INCH
     # panel aspect from the projected extent of the domain
     import cartopy.crs as ccrs
@@ -219,8 +257,16 @@ def _map_axes(n: int, *, width: Width, projection: Projection, lat, lon, extra_h
     return fig, axes, crs
 
 
-def _draw_base(ax, lat, lon, land: np.ndarray, no_data: np.ndarray, *, hatch_no_data=False):
-    """Land and ocean without data as flat neutral colours, the domain's extent, gridlines."""
+def _narrow(ncols: int, width: Width) -> bool:
+    """Map panels under :data:`MIN_NAMED_PANEL_MM` wide: region names go into a legend and
+    gridlines get fewer labels."""
+    return (WIDTHS_MM[width] - 15.0) / ncols < MIN_NAMED_PANEL_MM
+
+
+def _draw_base(ax, lat, lon, land: np.ndarray, no_data: np.ndarray, *, hatch_no_data=False,
+               left_labels=True, bottom_labels=True, narrow=False):
+    """Land and ocean without data as flat neutral colours, the domain's extent, gridlines
+    (fewer of them on a ``narrow`` panel)."""
     import cartopy.crs as ccrs
     from matplotlib.colors import ListedColormap
 
@@ -236,7 +282,12 @@ def _draw_base(ax, lat, lon, land: np.ndarray, no_data: np.ndarray, *, hatch_no_
     gl = ax.gridlines(crs=pc, draw_labels=True, linewidth=0.3, color="#555555", alpha=0.6,
                       x_inline=False, y_inline=False)
     gl.top_labels = gl.right_labels = False
+    gl.left_labels, gl.bottom_labels = left_labels, bottom_labels
     gl.xlabel_style = gl.ylabel_style = {"size": FONT_PT}
+    if narrow:
+        from cartopy.mpl.ticker import LatitudeLocator, LongitudeLocator
+
+        gl.xlocator, gl.ylocator = LongitudeLocator(nbins=3), LatitudeLocator(nbins=4)
     ax.spines["geo"].set_linewidth(0.5)
     return gl
 
@@ -249,6 +300,172 @@ def _mark(ax, lat, lon, mask: np.ndarray, hatch: str):
         return None
     return ax.contourf(lon, lat, mask.astype(float), levels=[0.5, 1.5], colors="none",
                        hatches=[hatch], transform=ccrs.PlateCarree())
+
+
+# --------------------------------------------------------------------------------------------
+# regions on maps
+
+
+@dataclass
+class RegionLayer:
+    """The run's regions as drawn on a map figure: (name, boolean (lat, lon) mask) pairs in
+    the run's order, or none drawn (``skipped``: more than :data:`MAX_REGIONS_DRAWN`)."""
+
+    masks: list[tuple[str, np.ndarray]] = field(default_factory=list)
+    skipped: int = 0
+
+
+def region_layer(regions, lat: np.ndarray, lon: np.ndarray) -> RegionLayer:
+    """The masks of ``regions`` (a mapping name -> boolean (lat, lon) mask, such as
+    :func:`euphotic.results.open_region_masks`; None for no regions) on the maps' grid.
+
+    More than :data:`MAX_REGIONS_DRAWN` regions are not unpacked at all (``skipped`` counts
+    them). A mask on another grid than the maps' raises :class:`FigureOptionError`.
+    """
+    if regions is None or len(regions) == 0:
+        return RegionLayer()
+    if len(regions) > MAX_REGIONS_DRAWN:
+        return RegionLayer(skipped=len(regions))
+    out = []
+    for name in regions:
+        m = np.asarray(regions[name], dtype=bool)
+        if m.shape != (len(lat), len(lon)):
+            raise FigureOptionError(
+                f"region {name!r}: mask of shape {m.shape} is not on the maps' grid "
+                f"({len(lat)} x {len(lon)} cells)")
+        out.append((str(name), m))
+    return RegionLayer(out)
+
+
+def _step_axis(c: np.ndarray, sub: int) -> np.ndarray:
+    """Positions of ``sub`` equal sub-cells in each cell of centres ``c`` with one extra cell
+    beyond each end (so a mask touching the grid's edge closes on the outer cell edge)."""
+    e = _edges(c)
+    e = np.concatenate([[2 * e[0] - e[1]], e, [2 * e[-1] - e[-2]]])
+    frac = (np.arange(sub) + 0.5) / sub
+    return (e[:-1, None] + np.diff(e)[:, None] * frac[None, :]).ravel()
+
+
+def _outline_grid(mask: np.ndarray, lat: np.ndarray, lon: np.ndarray):
+    """(x, y, z) to contour at 0.5 so that the line follows the cell edges of ``mask``: the
+    mask padded with one empty cell all round and each cell split in 2 x 2 (or, for a large
+    grid, thinned by striding)."""
+    stride = max(1, math.ceil(max(mask.shape) / MAX_OUTLINE_CELLS))
+    if stride > 1:
+        mask, lat, lon = mask[::stride, ::stride], lat[::stride], lon[::stride]
+    sub = 2 if stride == 1 else 1
+    z = np.pad(mask, 1).astype(np.float32)
+    z = np.repeat(np.repeat(z, sub, axis=0), sub, axis=1)
+    return _step_axis(lon, sub), _step_axis(lat, sub), z
+
+
+def _label_points(layer: RegionLayer, lat, lon) -> dict[str, tuple[float, float, str] | None]:
+    """Where each region's name goes: (lon, lat, horizontal alignment) at the cell deepest
+    inside the region (largest distance to its edge, scipy.ndimage), away from the names
+    already placed; None for a region named in the corner (more than
+    :data:`WHOLE_MAP_FRACTION` of the map) or without cells."""
+    from scipy.ndimage import distance_transform_edt
+
+    ny, nx = len(lat), len(lon)
+    stride = max(1, math.ceil(max(ny, nx) / MAX_OUTLINE_CELLS))
+    placed: list[tuple[float, float]] = []
+    out: dict[str, tuple[float, float, str] | None] = {}
+    # smallest regions first: they have the fewest places to put a name
+    for name, m in sorted(layer.masks, key=lambda nm: nm[1].sum()):
+        if not m.any() or m.mean() > WHOLE_MAP_FRACTION:
+            out[name] = None
+            continue
+        ms = m[::stride, ::stride]
+        depth = distance_transform_edt(np.pad(ms, 1))[1:-1, 1:-1]
+        yy, xx = np.mgrid[0:ms.shape[0], 0:ms.shape[1]]
+        score = depth.astype(float)
+        for py, px in placed:  # keep clear of other names (an eighth of the map)
+            dist = np.hypot((yy - py) / ms.shape[0], (xx - px) / ms.shape[1])
+            score = np.where(dist < 0.12, score * dist / 0.12, score)
+        score = np.where(ms, score, -1.0)
+        # of the deepest cells (within 10 % of the best), the one nearest their middle
+        cy, cx = np.nonzero(score >= 0.9 * score.max())
+        k = np.argmin(np.hypot(cy - cy.mean(), cx - cx.mean()))
+        iy, ix = cy[k], cx[k]
+        placed.append((iy, ix))
+        fx = ix / max(ms.shape[1] - 1, 1)
+        ha = "left" if fx < 0.15 else "right" if fx > 0.85 else "center"
+        out[name] = (float(lon[::stride][ix]), float(lat[::stride][iy]), ha)
+    return out
+
+
+def _draw_regions(ax, layer: RegionLayer, lat, lon, *, names: bool):
+    """Outline every region of ``layer`` on ``ax`` (one contour artist per region, white
+    halo) and, with ``names``, write its name inside it or, for a region covering most of the
+    map, in a corner label. Returns (outline artists, name texts)."""
+    import cartopy.crs as ccrs
+    import matplotlib.patheffects as pe
+
+    pc = ccrs.PlateCarree()
+    halo = [pe.withStroke(linewidth=2.2, foreground="white")]
+    outlines, texts = [], []
+    where = _label_points(layer, lat, lon) if names else {}
+    corner = 0
+    for i, (name, m) in enumerate(layer.masks):
+        colour = REGION_COLOURS[i % len(REGION_COLOURS)]
+        if not m.any():
+            continue
+        x, y, z = _outline_grid(m, lat, lon)
+        cs = ax.contour(x, y, z, levels=[0.5], colors=[colour], linewidths=1.0, transform=pc)
+        cs.set_path_effects(halo)
+        outlines.append(cs)
+        if not names:
+            continue
+        at = where.get(name)
+        if at is None:  # covers most of the map: named in the upper left corner
+            t = ax.text(0.02, 0.98 - 0.075 * corner, name, transform=ax.transAxes, ha="left",
+                        va="top", fontsize=FONT_PT, fontweight="bold", color=colour,
+                        bbox={"boxstyle": "square,pad=0.2", "fc": "white", "ec": colour,
+                              "lw": 1.0, "alpha": 0.85}, zorder=6)
+            corner += 1
+        else:
+            t = ax.text(at[0], at[1], textwrap.fill(name, 16), transform=pc, ha=at[2],
+                        va="center", fontsize=FONT_PT, fontweight="bold", color=colour,
+                        path_effects=halo, zorder=6, multialignment="center")
+        texts.append(t)
+    return outlines, texts
+
+
+def _legend_height(layer: RegionLayer) -> float:
+    """Inches a legend of the regions' names takes under a figure (two columns)."""
+    return 0.3 + 0.14 * math.ceil(len(layer.masks) / 2) if layer.masks else 0.0
+
+
+def _region_legend(fig, layer: RegionLayer, *, ncols: int) -> list:
+    """The regions' names as a legend of outline colours under the figure (for panels too
+    small to hold names); returns the legend's texts."""
+    from matplotlib.lines import Line2D
+
+    named = [(i, n) for i, (n, m) in enumerate(layer.masks) if m.any()]
+    if not named:
+        return []
+    handles = [Line2D([], [], color=REGION_COLOURS[i % len(REGION_COLOURS)], lw=1.2)
+               for i, _ in named]
+    leg = fig.legend(handles, [n for _, n in named], loc="outside lower center", ncols=ncols,
+                     fontsize=FONT_PT, frameon=False, title="regions (outlines)",
+                     title_fontsize=FONT_PT)
+    return list(leg.get_texts())
+
+
+def _regions_text(layer: RegionLayer, *, legend: bool = False) -> str:
+    """The caption's sentence on region outlines."""
+    if layer.skipped:
+        return (f"The run's {layer.skipped} regions are not outlined (more than "
+                f"{MAX_REGIONS_DRAWN}); the totals table has them all. ")
+    if not layer.masks:
+        return ""
+    whole = [n for n, m in layer.masks if m.any() and m.mean() > WHOLE_MAP_FRACTION]
+    text = (f"Coloured outlines: the run's regions ({', '.join(n for n, _ in layer.masks)}) "
+            f"along the edges of their cells, named "
+            + ("in the legend under the maps" if legend else "on the first panel"))
+    if whole and not legend:
+        text += f" ({', '.join(whole)}, covering most of the map, in the upper left corner)"
+    return text + ". "
 
 
 # --------------------------------------------------------------------------------------------
@@ -265,7 +482,8 @@ def _period_maps(maps: xr.Dataset, span: tuple[int, int]) -> xr.Dataset:
 
 
 def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Projection = "equal-area",
-               min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column") -> Drawn:
+               min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
+               regions=None) -> Drawn:
     """Mean rate over ``period`` for every model, one shared logarithmic colour scale.
 
     Parameters
@@ -276,12 +494,16 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
         Map projection (Lambert azimuthal equal-area centred on the domain, or plain
         lat-lon), the coverage (0-1, fraction of days) under which a cell is stippled, and the
         print width.
+    regions : mapping, keyword-only
+        Region name -> boolean (lat, lon) mask (:func:`euphotic.results.open_region_masks`),
+        outlined on every panel and named on the first; None: no outlines.
 
     Returns
     -------
     Drawn
         ``artists``: ``meshes`` (one per panel, all with the same norm object), ``colorbar``,
-        ``norm``, ``marks`` (the stipple per panel or None).
+        ``norm``, ``marks`` (the stipple per panel or None), ``outlines`` (per panel, one
+        contour artist per region), ``region_names`` (the name texts).
 
     Notes
     -----
@@ -295,6 +517,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
 
     mean = _period_maps(maps, period)
     lat, lon = mean["lat"].values, mean["lon"].values
+    layer = region_layer(regions, lat, lon)
     names = _model_names(maps)
     models = [str(m) for m in mean["model"].values]
     vals = mean["npp"].values
@@ -310,21 +533,26 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
     cmap = _cmap(SEQUENTIAL_CMAP)
     extend = _extend(data_lo, data_hi, lo, hi)
     with plt.rc_context(_rc()):
-        fig, axes, _ = _map_axes(len(models), width=width, projection=projection, lat=lat, lon=lon)
+        narrow = _narrow(_grid_layout(len(models), width)[1], width)
+        fig, axes, _ = _map_axes(len(models), width=width, projection=projection, lat=lat, lon=lon,
+                                 extra_height_in=_legend_height(layer) if narrow else 0.0)
         import cartopy.crs as ccrs
 
-        meshes, marks = [], []
-        for ax, m in zip(axes, models, strict=True):
+        meshes, marks, outlines, labels = [], [], [], []
+        for k, (ax, m) in enumerate(zip(axes, models, strict=True)):
             v = mean["npp"].sel(model=m).values
             c = mean["coverage"].sel(model=m).values
             land = ~np.isfinite(c)
             no_data = np.isfinite(c) & ~np.isfinite(v)
-            _draw_base(ax, lat, lon, land, no_data)
+            _draw_base(ax, lat, lon, land, no_data, narrow=narrow)
             shown = np.where(np.isfinite(v), np.maximum(v, lo * 1e-3), np.nan)  # 0 -> under
             mesh = ax.pcolormesh(_edges(lon), _edges(lat), shown, norm=norm, cmap=cmap,
                                  transform=ccrs.PlateCarree(), rasterized=True)
             meshes.append(mesh)
             marks.append(_mark(ax, lat, lon, np.isfinite(v) & (c < min_coverage), "...."))
+            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
+            outlines.append(o)
+            labels += t
             ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
                          fontsize=FONT_PT + 1)
         cb = fig.colorbar(meshes[0], ax=axes, orientation="horizontal", extend=extend,
@@ -333,23 +561,27 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
         cb.ax.xaxis.set_major_locator(FixedLocator(_log_ticks(lo, hi)))
         cb.ax.xaxis.set_minor_locator(NullLocator())
         cb.ax.xaxis.set_major_formatter(lambda x, _: f"{x:g}")
+        if narrow:
+            labels += _region_legend(fig, layer, ncols=2)
         fig.suptitle(f"Mean net primary production, {_span_text(period)}")
     n_low = {m: int((np.isfinite(mean['npp'].sel(model=m).values)
                      & (mean['coverage'].sel(model=m).values < min_coverage)).sum()) for m in models}
     caption = (
         f"Mean daily net primary production (mg C m-2 d-1) over {_span_text(period)} "
         f"(mean of the monthly mean rates), {', '.join(names[m] for m in models)}. "
-        f"One logarithmic colour scale for all panels, clipped at the {CLIP_PERCENTILES[0]:g}th "
-        f"and {CLIP_PERCENTILES[1]:g}th percentiles of all panels' values together "
-        f"({lo:.3g}-{hi:.3g} mg C m-2 d-1; arrows on the colour bar mark clipped values). "
+        f"One logarithmic colour scale for all panels, clipped at the "
+        f"{_ordinal(CLIP_PERCENTILES[0])} and {_ordinal(CLIP_PERCENTILES[1])} percentiles of "
+        f"all panels' values together ({_num(lo)}-{_num(hi)} mg C m-2 d-1; arrows on the "
+        f"colour bar mark clipped values). "
         f"Mid grey: land; light grey: ocean without data. Stippled: cells whose mean coverage "
         f"over the period is below {min_coverage:g} of days (this tool's default is "
         f"{DEFAULT_MIN_COVERAGE:g}; {', '.join(f'{names[m]}: {n_low[m]} cells' for m in models)}). "
-        + _projection_text(projection)
+        + _regions_text(layer, legend=narrow) + _projection_text(projection)
     )
     return Drawn("fig_npp_maps", fig, f"Mean net primary production, {_span_text(period)}",
                  caption, {"meshes": meshes, "colorbar": cb, "norm": norm, "marks": marks,
-                           "axes": axes, "clip": (lo, hi), "extend": extend})
+                           "axes": axes, "clip": (lo, hi), "extend": extend,
+                           "outlines": outlines, "region_names": labels})
 
 
 def _projection_text(projection: Projection) -> str:
@@ -361,7 +593,7 @@ def _projection_text(projection: Projection) -> str:
 def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
                    projection: Projection = "equal-area", relative: bool = True,
                    min_coverage: float = DEFAULT_MIN_COVERAGE,
-                   width: Width = "two-column") -> Drawn:
+                   width: Width = "two-column", regions=None) -> Drawn:
     """Mean rate over ``period`` against ``baseline``, per model (from
     :func:`euphotic.compare.difference`), diverging colours centred on zero.
 
@@ -369,12 +601,19 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     ----------
     relative : keyword-only
         Percent of the baseline (default) or absolute difference (mg C m-2 d-1).
+    regions : keyword-only
+        As for :func:`map_panels`.
 
     Returns
     -------
     Drawn
         ``artists``: ``meshes`` (sharing ``norm``, whose limits are symmetric about zero),
-        ``colorbar``, ``norm``.
+        ``colorbar``, ``norm``, ``outlines``, ``region_names``.
+
+    Notes
+    -----
+    Only the change is drawn here; :func:`comparison_panels` draws baseline | period |
+    change side by side.
     """
     import cartopy.crs as ccrs
     import matplotlib.pyplot as plt
@@ -386,6 +625,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     base_cov = _period_maps(maps, baseline)["coverage"]
     per_cov = _period_maps(maps, period)["coverage"]
     lat, lon = d["lat"].values, d["lon"].values
+    layer = region_layer(regions, lat, lon)
     names = _model_names(maps)
     models = [str(m) for m in d["model"].values]
     vals = d.values
@@ -399,13 +639,16 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     label = (f"change in net primary production ({unit})" if relative
              else f"difference in net primary production ({unit})")
     with plt.rc_context(_rc()):
-        fig, axes, _ = _map_axes(len(models), width=width, projection=projection, lat=lat, lon=lon)
-        meshes = []
-        for ax, m in zip(axes, models, strict=True):
+        narrow = _narrow(_grid_layout(len(models), width)[1], width)
+        fig, axes, _ = _map_axes(len(models), width=width, projection=projection, lat=lat, lon=lon,
+                                 extra_height_in=_legend_height(layer) if narrow else 0.0)
+        meshes, outlines, labels = [], [], []
+        for k, (ax, m) in enumerate(zip(axes, models, strict=True)):
             v = d.sel(model=m).values
             c = per_cov.sel(model=m).values
             land = ~np.isfinite(c)
-            _draw_base(ax, lat, lon, land, ~land & ~np.isfinite(v), hatch_no_data=True)
+            _draw_base(ax, lat, lon, land, ~land & ~np.isfinite(v), hatch_no_data=True,
+                       narrow=narrow)
             mesh = ax.pcolormesh(_edges(lon), _edges(lat), v, norm=norm,
                                  cmap=_cmap(DIVERGING_CMAP), transform=ccrs.PlateCarree(),
                                  rasterized=True)
@@ -413,11 +656,16 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
             low = np.isfinite(v) & ((c < min_coverage)
                                     | (base_cov.sel(model=m).values < min_coverage))
             _mark(ax, lat, lon, low, "....")
+            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
+            outlines.append(o)
+            labels += t
             ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
                          fontsize=FONT_PT + 1)
         cb = fig.colorbar(meshes[0], ax=axes, orientation="horizontal", extend=extend,
                           shrink=0.85, aspect=35, pad=0.02)
         cb.set_label(label)
+        if narrow:
+            labels += _region_legend(fig, layer, ncols=2)
         fig.suptitle(f"Net primary production {_span_text(period)} against "
                      f"{_span_text(baseline)}")
     what = ("in percent of the baseline mean" if relative
@@ -426,14 +674,316 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
         f"Change of the mean daily net primary production over {_span_text(period)} against "
         f"the {_span_text(baseline)} baseline, {what}, {', '.join(names[m] for m in models)}. "
         f"Diverging colour scale centred on zero with symmetric limits at the "
-        f"{DIFF_PERCENTILE:g}th percentile of the absolute change (+-{lim:.3g}; arrows mark "
+        f"{_ordinal(DIFF_PERCENTILE)} percentile of the absolute change (+-{_num(lim)}; arrows mark "
         f"values beyond). Mid grey: land; light grey, hatched: ocean without data in either "
         f"period. Stippled: mean coverage below {min_coverage:g} of days in either period. "
-        + _projection_text(projection)
+        + _regions_text(layer, legend=narrow) + _projection_text(projection)
     )
     return Drawn("fig_npp_difference", fig,
                  f"Net primary production {_span_text(period)} against {_span_text(baseline)}",
-                 caption, {"meshes": meshes, "colorbar": cb, "norm": norm, "axes": axes})
+                 caption, {"meshes": meshes, "colorbar": cb, "norm": norm, "axes": axes,
+                           "outlines": outlines, "region_names": labels})
+
+
+def _ordinal(x: float) -> str:
+    n = int(round(x))
+    suffix = "th" if 10 <= n % 100 <= 20 else {1: "st", 2: "nd", 3: "rd"}.get(n % 10, "th")
+    return f"{n}{suffix}"
+
+
+def _num(x: float) -> str:
+    """A number with three significant digits, never in exponent notation (1000, not 1e+03)."""
+    return f"{float(f'{x:.3g}'):,.10g}".replace(",", "")
+
+
+def _log_scale(values: list[np.ndarray]) -> tuple[Any, str, tuple[float, float]]:
+    """One logarithmic norm for all ``values`` together: limits at :data:`CLIP_PERCENTILES`
+    of the positive values; returns (norm, extend, (lo, hi))."""
+    from matplotlib.colors import LogNorm
+
+    vals = np.concatenate([np.ravel(v) for v in values])
+    fin = vals[np.isfinite(vals)]
+    pos = fin[fin > 0]
+    if pos.size:
+        lo, hi = (float(v) for v in np.percentile(pos, CLIP_PERCENTILES))
+        if hi <= lo:
+            lo, hi = lo / 2, hi * 2
+        extend = _extend(float(fin.min()), float(pos.max()), lo, hi)
+    else:
+        lo, hi, extend = 10.0, 1000.0, "neither"
+    return LogNorm(vmin=lo, vmax=hi), extend, (lo, hi)
+
+
+def _diverging_scale(values: list[np.ndarray]) -> tuple[Any, str, float]:
+    """A norm centred on zero with symmetric limits at the :data:`DIFF_PERCENTILE` th
+    percentile of |values|; returns (norm, extend, limit)."""
+    from matplotlib.colors import Normalize
+
+    vals = np.concatenate([np.ravel(v) for v in values])
+    fin = np.abs(vals[np.isfinite(vals)])
+    lim = float(np.percentile(fin, DIFF_PERCENTILE)) if fin.size else 1.0
+    lim = lim if lim > 0 else 1.0
+    top = float(fin.max()) if fin.size else 0.0
+    return Normalize(vmin=-lim, vmax=lim), _extend(-top, top, -lim, lim), lim
+
+
+def ratio_limits(ratios: np.ndarray) -> tuple[float, list[float]]:
+    """Symmetric limits of a ratio map: the factor f (limits 1/f and f) and the ticks.
+
+    f is the smallest of :data:`RATIO_LIMITS` at or above exp of the
+    :data:`DIFF_PERCENTILE` th percentile of |ln r| over the finite positive ratios (the
+    largest, 10, when none is); ticks are 1/f, 1/m, 1, m, f with m the factor's middle tick.
+    """
+    r = np.asarray(ratios, dtype=float)
+    r = r[np.isfinite(r) & (r > 0)]
+    q = float(np.exp(np.percentile(np.abs(np.log(r)), DIFF_PERCENTILE))) if r.size else 2.0
+    f = next((f for f in sorted(RATIO_LIMITS) if f >= q * (1 - 1e-9)), max(RATIO_LIMITS))
+    mid = RATIO_LIMITS[f]
+    return f, [1 / f, 1 / mid, 1.0, mid, f]
+
+
+def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
+              projection: Projection = "equal-area", min_coverage: float = DEFAULT_MIN_COVERAGE,
+              width: Width = "two-column", regions=None) -> Drawn:
+    """Ratio of mean rates: ``period`` / ``baseline`` per model and, where several models
+    ran, each further model / the first over ``period``; diverging colours centred on one on
+    a logarithmic scale with symmetric limits (1/f to f, :func:`ratio_limits`).
+
+    Parameters
+    ----------
+    maps : the Dataset of :func:`euphotic.results.open_maps` (npp in mg m-2 d-1 of carbon)
+    period, baseline : (first_year, last_year), both included
+    projection, min_coverage, width, regions : keyword-only
+        As for :func:`map_panels`.
+
+    Returns
+    -------
+    Drawn
+        ``artists``: ``meshes`` (all with the one ``norm``, a LogNorm with norm(1) = 0.5),
+        ``colorbar``, ``norm``, ``ticks``, ``extend``, ``axes``, ``outlines``,
+        ``region_names``, ``ratios`` (the arrays drawn, 1).
+
+    Notes
+    -----
+    A panel is mean(A) / mean(B) cell by cell, the means over the years' months as in
+    :func:`map_panels`; 0 / 0 and cells without data in either are left as no data, x / 0
+    is drawn in the top colour and 0 / x in the bottom one.
+    """
+    import cartopy.crs as ccrs
+    import matplotlib.pyplot as plt
+    from matplotlib.colors import LogNorm
+    from matplotlib.ticker import FixedLocator, NullLocator
+
+    per, base = _period_maps(maps, period), _period_maps(maps, baseline)
+    lat, lon = per["lat"].values, per["lon"].values
+    layer = region_layer(regions, lat, lon)
+    names = _model_names(maps)
+    models = [str(m) for m in per["model"].values]
+    P, B = _span_text(period), _span_text(baseline)
+    panels = []  # (title, ratio, low coverage, land)
+    with np.errstate(all="ignore"):
+        for m in models:
+            a, b = per["npp"].sel(model=m).values, base["npp"].sel(model=m).values
+            ca, cb_ = per["coverage"].sel(model=m).values, base["coverage"].sel(model=m).values
+            r = a / b
+            panels.append((f"{names[m]}: {P} / {B}", r,
+                           np.isfinite(a) & np.isfinite(b) & ((ca < min_coverage)
+                                                               | (cb_ < min_coverage)),
+                           ~np.isfinite(ca)))
+        first = models[0]
+        for m in models[1:]:
+            a, b = per["npp"].sel(model=m).values, per["npp"].sel(model=first).values
+            ca, cb_ = per["coverage"].sel(model=m).values, per["coverage"].sel(model=first).values
+            panels.append((f"{names[m]} / {names[first]}, {P}", a / b,
+                           np.isfinite(a) & np.isfinite(b) & ((ca < min_coverage)
+                                                               | (cb_ < min_coverage)),
+                           ~np.isfinite(ca)))
+    allr = np.concatenate([p[1].ravel() for p in panels])
+    f, ticks = ratio_limits(allr)
+    norm = LogNorm(vmin=1 / f, vmax=f)
+    shown_r = allr[~np.isnan(allr)]
+    lo_data = float(shown_r.min()) if shown_r.size else 1.0
+    hi_data = float(shown_r.max()) if shown_r.size else 1.0
+    extend = _extend(lo_data, hi_data, 1 / f, f)
+    cmap = _cmap(DIVERGING_CMAP)
+    titles = [textwrap.fill(p[0], _title_chars(len(panels), width)) for p in panels]
+    lines = max(t.count("\n") + 1 for t in titles)
+    with plt.rc_context(_rc()):
+        narrow = _narrow(_grid_layout(len(panels), width)[1], width)
+        fig, axes, _ = _map_axes(len(panels), width=width, projection=projection, lat=lat,
+                                 lon=lon, extra_height_in=0.16 * max(lines - 2, 0)
+                                 + (_legend_height(layer) if narrow else 0.0))
+        meshes, outlines, labels = [], [], []
+        for k, (ax, (_, r, low, land), title) in enumerate(zip(axes, panels, titles,
+                                                               strict=True)):
+            _draw_base(ax, lat, lon, land, ~land & ~np.isfinite(r), hatch_no_data=True,
+                       narrow=narrow)
+            with np.errstate(all="ignore"):
+                shown = np.where(np.isnan(r), np.nan, np.clip(r, 1e-3 / f, 1e3 * f))
+            mesh = ax.pcolormesh(_edges(lon), _edges(lat), shown, norm=norm, cmap=cmap,
+                                 transform=ccrs.PlateCarree(), rasterized=True)
+            meshes.append(mesh)
+            _mark(ax, lat, lon, low, "....")
+            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
+            outlines.append(o)
+            labels += t
+            ax.set_title(title, fontsize=FONT_PT + 1)
+        cb = fig.colorbar(meshes[0], ax=axes, orientation="horizontal", extend=extend,
+                          shrink=0.85, aspect=35, pad=0.02)
+        cb.set_label(textwrap.fill(RATIO_LABEL, 90 if width == "two-column" else 45))
+        if narrow:
+            labels += _region_legend(fig, layer, ncols=2)
+        cb.ax.xaxis.set_major_locator(FixedLocator(ticks))
+        cb.ax.xaxis.set_minor_locator(NullLocator())
+        cb.ax.xaxis.set_major_formatter(lambda x, _: f"{x:.2g}")
+        fig.suptitle(textwrap.fill(f"Ratio of net primary production, {P} / {B}"
+                                   + (" and between models" if len(models) > 1 else ""),
+                                   90 if width == "two-column" else 45))
+    between = (f" Last panel{'s' if len(models) > 2 else ''}: "
+               + ", ".join(f"{names[m]} / {names[first]}" for m in models[1:])
+               + f", means over {P}." if len(models) > 1 else "")
+    caption = (
+        f"Ratio of the mean daily net primary production over {P} to that over the {B} "
+        f"baseline, cell by cell, for {', '.join(names[m] for m in models)}.{between} "
+        f"Diverging colour scale centred on one on a logarithmic scale, with symmetric limits "
+        f"{_num(1 / f)} to {_num(f)} (the smallest of {', '.join(_num(x) for x in RATIO_LIMITS)} "
+        f"holding the {_ordinal(DIFF_PERCENTILE)} percentile of |log ratio|; arrows on the "
+        f"colour bar mark values beyond). Mid grey: land; light grey, hatched: ocean without "
+        f"data in either. Stippled: mean coverage below {min_coverage:g} of days in either. "
+        + _regions_text(layer, legend=narrow) + _projection_text(projection)
+    )
+    return Drawn("fig_npp_ratio", fig, f"Ratio of net primary production, {P} / {B}", caption,
+                 {"meshes": meshes, "colorbar": cb, "norm": norm, "ticks": ticks,
+                  "extend": extend, "axes": axes, "outlines": outlines, "region_names": labels,
+                  "ratios": [p[1] for p in panels]})
+
+
+def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
+                      projection: Projection = "equal-area", relative: bool = True,
+                      min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
+                      regions=None) -> Drawn:
+    """Baseline | period | change, one row per model: the two means on one shared
+    logarithmic scale, the change (:func:`euphotic.compare.difference`) on a diverging scale
+    centred on zero with symmetric limits.
+
+    Parameters
+    ----------
+    maps : the Dataset of :func:`euphotic.results.open_maps` (npp in mg m-2 d-1 of carbon)
+    period, baseline : (first_year, last_year), both included
+    projection, relative, min_coverage, width, regions : keyword-only
+        As for :func:`difference_map` and :func:`map_panels`.
+
+    Returns
+    -------
+    Drawn
+        ``artists``: ``axes`` (rows of three), ``means`` (the meshes of the two means, all
+        with ``norm``), ``changes`` (the change meshes, all with ``diff_norm``),
+        ``colorbar`` and ``diff_colorbar``, ``outlines``, ``region_names``.
+    """
+    import cartopy.crs as ccrs
+    import matplotlib.pyplot as plt
+    from matplotlib.ticker import FixedLocator, MaxNLocator, NullLocator
+
+    per, base = _period_maps(maps, period), _period_maps(maps, baseline)
+    change = compare.difference(maps, baseline, period).load()["percent" if relative
+                                                                else "difference"]
+    lat, lon = per["lat"].values, per["lon"].values
+    layer = region_layer(regions, lat, lon)
+    names = _model_names(maps)
+    models = [str(m) for m in per["model"].values]
+    P, B = _span_text(period), _span_text(baseline)
+    norm, extend, (lo, hi) = _log_scale([per["npp"].values, base["npp"].values])
+    dnorm, dextend, lim = _diverging_scale([change.values])
+    unit = "%" if relative else "mg C m$^{-2}$ d$^{-1}$"
+    crs = _projection(projection, lat, lon)
+    n = len(models)
+    w_in = WIDTHS_MM[width] / MM_PER_INCH
+    import cartopy.crs as _ccrs
+
+    xs, ys = np.meshgrid(np.linspace(lon.min(), lon.max(), 9),
+                         np.linspace(lat.min(), lat.max(), 9))
+    pts = crs.transform_points(_ccrs.PlateCarree(), xs, ys)
+    aspect = float(np.ptp(pts[..., 1]) / max(np.ptp(pts[..., 0]), 1e-9))
+    panel_h = min((w_in - 0.9) / 3 * aspect, MAX_PANEL_HEIGHT_MM / MM_PER_INCH)
+    row_h = panel_h + 0.75
+    cb_h = 0.75
+    # panels under about 50 mm wide cannot hold the names: a legend instead
+    in_map = not _narrow(3, width)
+    legend_h = 0.0 if in_map else _legend_height(layer)
+    pc = ccrs.PlateCarree()
+    with plt.rc_context(_rc()):
+        fig = plt.figure(figsize=(w_in, n * row_h + cb_h + 0.35 + legend_h),
+                         layout="constrained")
+        subs = fig.subfigures(n + 1, 1, height_ratios=[row_h] * n + [cb_h])
+        rows, means, changes, outlines, labels = [], [], [], [], []
+        for i, (sf, m) in enumerate(zip(subs[:n], models, strict=True)):
+            sf.suptitle(textwrap.fill(names[m], 90 if width == "two-column" else 45),
+                        fontsize=FONT_PT + 1, fontweight="bold")
+            axs = [sf.add_subplot(1, 3, j + 1, projection=crs) for j in range(3)]
+            rows.append(axs)
+            for j, (ax, ds, title) in enumerate(zip(axs, (base, per),
+                                                    (f"{B} (baseline)", P), strict=False)):
+                v, c = ds["npp"].sel(model=m).values, ds["coverage"].sel(model=m).values
+                land = ~np.isfinite(c)
+                _draw_base(ax, lat, lon, land, ~land & ~np.isfinite(v), left_labels=j == 0,
+                           bottom_labels=i == n - 1, narrow=not in_map)
+                means.append(ax.pcolormesh(
+                    _edges(lon), _edges(lat),
+                    np.where(np.isfinite(v), np.maximum(v, lo * 1e-3), np.nan), norm=norm,
+                    cmap=_cmap(SEQUENTIAL_CMAP), transform=pc, rasterized=True))
+                _mark(ax, lat, lon, np.isfinite(v) & (c < min_coverage), "....")
+                ax.set_title(title, fontsize=FONT_PT + 1)
+            v = change.sel(model=m).values
+            c = per["coverage"].sel(model=m).values
+            land = ~np.isfinite(c)
+            _draw_base(axs[2], lat, lon, land, ~land & ~np.isfinite(v), hatch_no_data=True,
+                       left_labels=False, bottom_labels=i == n - 1, narrow=not in_map)
+            changes.append(axs[2].pcolormesh(_edges(lon), _edges(lat), v, norm=dnorm,
+                                             cmap=_cmap(DIVERGING_CMAP), transform=pc,
+                                             rasterized=True))
+            _mark(axs[2], lat, lon, np.isfinite(v) & (
+                (c < min_coverage) | (base["coverage"].sel(model=m).values < min_coverage)),
+                "....")
+            axs[2].set_title(f"change, {P} against {B}" if width == "two-column"
+                             else "change", fontsize=FONT_PT + 1)
+            for j, ax in enumerate(axs):
+                o, t = _draw_regions(ax, layer, lat, lon, names=in_map and i == 0 and j == 0)
+                outlines.append(o)
+                labels += t
+        cax = subs[n].subplots(1, 2, gridspec_kw={"width_ratios": [2, 1]})
+        cb = subs[n].colorbar(means[0], cax=cax[0], orientation="horizontal", extend=extend)
+        cb.set_label(textwrap.fill(NPP_LABEL, 60 if width == "two-column" else 32))
+        cb.ax.xaxis.set_major_locator(FixedLocator(_log_ticks(lo, hi)))
+        cb.ax.xaxis.set_minor_locator(NullLocator())
+        cb.ax.xaxis.set_major_formatter(lambda x, _: f"{x:g}")
+        dcb = subs[n].colorbar(changes[0], cax=cax[1], orientation="horizontal",
+                               extend=dextend)
+        dcb.set_label(f"change ({unit})")
+        dcb.ax.xaxis.set_major_locator(MaxNLocator(nbins=4, symmetric=True))
+        if not in_map:
+            labels += _region_legend(fig, layer, ncols=2)
+        fig.suptitle(textwrap.fill(f"Net primary production: {B} baseline, {P} and the change",
+                                   90 if width == "two-column" else 45))
+    what = ("in percent of the baseline mean" if relative
+            else "as the difference of the means (mg C m-2 d-1)")
+    caption = (
+        f"Mean daily net primary production over the {B} baseline (left) and over {P} "
+        f"(middle), one row per model ({', '.join(names[m] for m in models)}), and the change "
+        f"{what} (right). The two means of every row share one logarithmic colour scale, "
+        f"clipped at the {_ordinal(CLIP_PERCENTILES[0])} and "
+        f"{_ordinal(CLIP_PERCENTILES[1])} percentiles of all their values together "
+        f"({_num(lo)}-{_num(hi)} mg C m-2 d-1); the change a diverging scale centred on zero "
+        f"with symmetric limits at the {_ordinal(DIFF_PERCENTILE)} percentile of its absolute "
+        f"value (+-{_num(lim)}); arrows on the colour bars mark clipped values. Mid grey: "
+        f"land; light grey: ocean without data (hatched on the change). Stippled: mean "
+        f"coverage below {min_coverage:g} of days. "
+        + _regions_text(layer, legend=not in_map) + _projection_text(projection)
+    )
+    return Drawn("fig_npp_baseline_period_change", fig,
+                 f"Net primary production, {B} baseline against {P}", caption,
+                 {"axes": rows, "means": means, "changes": changes, "norm": norm,
+                  "diff_norm": dnorm, "colorbar": cb, "diff_colorbar": dcb,
+                  "outlines": outlines, "region_names": labels, "extend": extend})
 
 
 def _panel_grid(n: int, width: Width, panel_h_in: float):
@@ -557,27 +1107,413 @@ def seasonal_figure(totals: xr.Dataset, *, period: tuple[int, int],
                  caption, {"axes": axes})
 
 
+def low_coverage(totals: xr.Dataset, min_coverage: float) -> xr.DataArray:
+    """Region-months-models whose total rests on few days: coverage below ``min_coverage``
+    or flagged ``low_coverage`` by the run (its own ``[run] min_coverage``); (region, month,
+    model) booleans."""
+    cov = totals["coverage"]
+    flagged = xr.apply_ufunc(np.vectorize(lambda f: FLAG_LOW_COVERAGE in str(f).split(";"),
+                                          otypes=[bool]), totals["flag"])
+    return (cov < min_coverage) | flagged
+
+
+def _months_of(totals: xr.Dataset, period: tuple[int, int] | None) -> xr.Dataset:
+    if period is None:
+        return totals
+    years = totals["month"].dt.year
+    return totals.isel(month=np.flatnonzero(((years >= period[0])
+                                             & (years <= period[1])).values))
+
+
+def _month_axis(ax, months: np.ndarray, *, labels: bool = True) -> None:
+    """Month index on x: ticks at each January (every few years on a long record), or every
+    third month on a short one."""
+    dt = months.astype("datetime64[M]")
+    years = dt.astype("datetime64[Y]").astype(int) + 1970
+    cal = dt.astype(int) % 12 + 1
+    n = len(dt)
+    if n > 24:
+        step = max(1, math.ceil(len(set(years.tolist())) / 8))
+        at = [i for i in range(n) if cal[i] == 1 and (years[i] - years[0]) % step == 0]
+        if not at:
+            at = [0]
+        text = [str(years[i]) for i in at]
+    else:
+        at = [i for i in range(n) if (cal[i] - 1) % 3 == 0]
+        text = [f"{years[i]}-{cal[i]:02d}" for i in at]
+    ax.set_xticks(at, text if labels else [])
+    ax.set_xlim(-0.6, n - 0.4)
+
+
+def _mark_bar(bar, colour: str) -> None:
+    """A bar resting on few days: its colour pale, cross-hatched in near-black."""
+    from matplotlib.colors import to_rgba
+
+    bar.set_facecolor(to_rgba(colour, 0.4))
+    bar.set_edgecolor(MARK_COLOUR)
+    bar.set_hatch("xxxx")
+    bar.set_linewidth(0.3)
+
+
+def _region_grid(n: int, width: Width, panel_h_in: float, strip: bool):
+    """One panel per region (and, with ``strip``, a thin coverage strip under each); returns
+    (fig, main axes, strip axes or None each)."""
+    import matplotlib.pyplot as plt
+
+    ncols = 1 if width == "one-column" else min(n, 2)
+    nrows = math.ceil(n / ncols)
+    w_in = WIDTHS_MM[width] / MM_PER_INCH
+    strip_h = 0.32 if strip else 0.0
+    fig = plt.figure(figsize=(w_in, nrows * (panel_h_in + strip_h + 0.3) + 1.0),
+                     layout="constrained")
+    ratios = [panel_h_in, strip_h] if strip else [panel_h_in]
+    gs = fig.add_gridspec(nrows * len(ratios), ncols, height_ratios=ratios * nrows)
+    mains, strips = [], []
+    for k in range(n):
+        r, c = divmod(k, ncols)
+        ax = fig.add_subplot(gs[r * len(ratios), c])
+        mains.append(ax)
+        strips.append(fig.add_subplot(gs[r * len(ratios) + 1, c], sharex=ax) if strip else None)
+    return fig, mains, strips
+
+
+def totals_chart(totals: xr.Dataset, *, period: tuple[int, int] | None = None,
+                 min_coverage: float = DEFAULT_MIN_COVERAGE,
+                 width: Width = "two-column") -> Drawn:
+    """Monthly totals per region with their coverage: one small panel per region (its own y
+    axis), bars of carbon fixed per month (Tg C month-1) and under them a strip of the
+    region's coverage; months below ``min_coverage`` (or flagged by the run) hatched and
+    marked.
+
+    Parameters
+    ----------
+    totals : the Dataset of :func:`euphotic.results.open_totals`
+    period : (first_year, last_year), keyword-only; default the whole run
+    min_coverage : keyword-only
+        Coverage (0-1, area-weighted fraction of the month's days) under which a month is
+        marked as resting on few days.
+    width : keyword-only
+
+    Returns
+    -------
+    Drawn
+        ``artists``: ``axes`` and ``strips`` (per region), ``strip_meshes`` (sharing
+        ``coverage_norm``, 0-1), ``colorbar``, ``low_bars`` (the hatched bars) and
+        ``low_marks`` (per region, the marks in the strip or None).
+
+    Notes
+    -----
+    Up to :data:`MAX_SIDE_BY_SIDE` models: one bar per model, side by side. More: one bar of
+    the mean across models with a whisker from the lowest to the highest model.
+    """
+    import matplotlib.pyplot as plt
+    from matplotlib.colors import Normalize
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    t = _months_of(totals, period)
+    low = low_coverage(t, min_coverage).values
+    names = _model_names(totals)
+    models = [str(m) for m in t["model"].values]
+    regions = [str(r) for r in t["region"].values]
+    months = t["month"].values
+    n, nm = len(months), len(models)
+    x = np.arange(n)
+    side = nm <= MAX_SIDE_BY_SIDE
+    cov_norm = Normalize(vmin=0.0, vmax=1.0)
+    cov_cmap = _cmap("grayC")
+    with plt.rc_context(_rc()):
+        fig, axes, strips = _region_grid(len(regions), width, 1.1, strip=True)
+        low_bars, low_marks, strip_meshes = [], [], []
+        for ax, sx, r in zip(axes, strips, regions, strict=True):
+            ri = regions.index(r)
+            tot = t["total"].sel(region=r).transpose("month", "model").values
+            cov = t["coverage"].sel(region=r).transpose("month", "model").values
+            lo = low[ri]  # (month, model)
+            if side:
+                bw = 0.8 / nm
+                for j in range(nm):
+                    col = LINE_COLOURS[j % len(LINE_COLOURS)]
+                    pos = x + (j - (nm - 1) / 2) * bw
+                    bars = ax.bar(pos, np.nan_to_num(tot[:, j]), bw * 0.95, color=col, lw=0)
+                    for b, is_low in zip(bars, lo[:, j], strict=True):
+                        if is_low:
+                            _mark_bar(b, col)
+                            low_bars.append(b)
+            else:
+                with warnings.catch_warnings():  # a month without any model: no bar
+                    warnings.simplefilter("ignore", RuntimeWarning)
+                    mean = np.nanmean(tot, axis=1)
+                    err = [mean - np.nanmin(tot, axis=1), np.nanmax(tot, axis=1) - mean]
+                bars = ax.bar(x, np.nan_to_num(mean), 0.8, color=LINE_COLOURS[0], lw=0)
+                ax.errorbar(x, mean, yerr=err, fmt="none", ecolor=MARK_COLOUR, elinewidth=0.5,
+                            capsize=0)
+                for b, is_low in zip(bars, lo.any(axis=1), strict=True):
+                    if is_low:
+                        _mark_bar(b, LINE_COLOURS[0])
+                        low_bars.append(b)
+            ax.set_title(r, fontsize=FONT_PT + 1, loc="left")
+            ax.set_ylabel("Tg C month$^{-1}$")
+            ax.tick_params(labelbottom=False)
+            # the coverage strip: one row per model
+            mesh = sx.pcolormesh(np.arange(n + 1) - 0.5, np.arange(nm + 1), cov.T,
+                                 norm=cov_norm, cmap=cov_cmap, rasterized=True)
+            strip_meshes.append(mesh)
+            iy, ix = np.nonzero(lo.T)
+            low_marks.append(sx.scatter(ix, iy + 0.5, marker="x", s=9, lw=0.8,
+                                        color="#D55E00", zorder=3) if ix.size else None)
+            sx.set_yticks([]) if nm == 1 else sx.set_yticks(
+                np.arange(nm) + 0.5, [str(k + 1) for k in range(nm)], fontsize=FONT_PT - 1)
+            sx.set_ylim(0, nm)
+            sx.set_ylabel("cov.", rotation=0, ha="right", va="center", fontsize=FONT_PT)
+            _month_axis(sx, months)
+        cb = fig.colorbar(strip_meshes[0], ax=axes + strips, orientation="horizontal",
+                          shrink=0.5, aspect=30, pad=0.01, location="bottom")
+        cb.set_label(textwrap.fill("region coverage (fraction of the month's days with data, 1)",
+                                   70 if width == "two-column" else 40))
+        handles = ([Patch(color=LINE_COLOURS[j % len(LINE_COLOURS)], lw=0)
+                    for j in range(nm)] if side else
+                   [Patch(color=LINE_COLOURS[0], lw=0),
+                    Line2D([], [], color=MARK_COLOUR, lw=0.5)])
+        labels = ([f"{j + 1}: {names[m]}" for j, m in enumerate(models)] if side else
+                  ["mean across models", "lowest to highest model"])
+        handles += [Patch(facecolor="#bbbbbb", hatch="xxxx", edgecolor=MARK_COLOUR, lw=0.3),
+                    Line2D([], [], marker="x", color="#D55E00", lw=0, ms=4)]
+        labels += [f"coverage below {min_coverage:g} (bar)", "coverage below "
+                   f"{min_coverage:g} (strip)"]
+        fig.legend(handles, [textwrap.fill(lb, 55) for lb in labels], loc="outside lower center",
+                   ncols=1 if width == "one-column" else 2, fontsize=FONT_PT, frameon=False)
+        span = (int(str(months[0])[:4]), int(str(months[-1])[:4])) if n else (0, 0)
+        fig.suptitle(textwrap.fill(f"Carbon fixed per month by region, with coverage, "
+                                   f"{_span_text(span)}", 80 if width == "two-column" else 40))
+    n_low = int(low.sum())
+    caption = (
+        f"Carbon fixed per month over the observed cells of each region (Tg C month-1, bars), "
+        f"{_span_text(span)}, "
+        + (f"one bar per model side by side ({', '.join(names[m] for m in models)}). "
+           if side else f"the mean across {nm} models with a whisker from the lowest to the "
+                        f"highest ({', '.join(names[m] for m in models)}). ")
+        + "Each region on its own panel and y axis (a basin is not drawn beside its "
+          "sub-regions). Under each panel, the region's coverage (area-weighted fraction of "
+          "the month's days with a valid estimate; one row per model"
+        + ", numbered as in the legend" * (nm > 1)
+        + f"). Months whose coverage is below {min_coverage:g} or that the run flagged "
+          f"'{FLAG_LOW_COVERAGE}' are hatched and marked with a cross "
+          f"({n_low} region-months{' and models' * (nm > 1)}): their totals rest on few days "
+          f"and cover only the observed part of the region."
+    )
+    return Drawn("fig_totals_coverage", fig, f"Monthly carbon fixed by region with coverage, "
+                 f"{_span_text(span)}", caption,
+                 {"axes": axes, "strips": strips, "strip_meshes": strip_meshes,
+                  "coverage_norm": cov_norm, "colorbar": cb, "low_bars": low_bars,
+                  "low_marks": low_marks, "n_low": n_low})
+
+
+def monthly_series(totals: xr.Dataset, *, baseline: tuple[int, int],
+                   period: tuple[int, int] | None = None,
+                   min_coverage: float = DEFAULT_MIN_COVERAGE,
+                   width: Width = "two-column") -> Drawn:
+    """Monthly totals per region (Tg C month-1), one small panel per region: each model's
+    line, the models' spread as a band, the baseline's monthly climatology (mean and range by
+    calendar month, :func:`euphotic.compare.seasonal_cycle`) shaded behind, and months of
+    low coverage marked.
+
+    Parameters
+    ----------
+    totals : the Dataset of :func:`euphotic.results.open_totals`
+    baseline : (first_year, last_year) of the climatology, keyword-only
+    period : (first_year, last_year) drawn, keyword-only; default the whole run
+    min_coverage, width : keyword-only
+        As for :func:`totals_chart`.
+
+    Returns
+    -------
+    Drawn
+        ``artists``: ``axes``, ``climatology`` (per region, the shaded range), ``spread``
+        (per region, the band or None), ``low_marks`` (per region, the marks or None).
+
+    Notes
+    -----
+    The climatology is that of the mean across models (one model: of that model), months
+    without a value skipped; the spread is the lowest to the highest model in each month.
+    """
+    import matplotlib.pyplot as plt
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    t = _months_of(totals, period)
+    names = _model_names(totals)
+    models = [str(m) for m in t["model"].values]
+    regions = [str(r) for r in t["region"].values]
+    months = t["month"].values
+    x = np.arange(len(months))
+    cal = (months.astype("datetime64[M]").astype(int) % 12)  # 0-11
+    with np.errstate(all="ignore"):
+        ens = totals["total"].mean("model", skipna=True)
+    ens.attrs["units"] = totals["total"].attrs.get("units", "Tg")
+    clim = compare.seasonal_cycle(ens.rename("total"), years=baseline)
+    low = low_coverage(t, min_coverage)
+    B = _span_text(baseline)
+    with plt.rc_context(_rc()):
+        fig, axes, _ = _region_grid(len(regions), width, 1.35, strip=False)
+        clims, spreads, marks = [], [], []
+        for ax, r in zip(axes, regions, strict=True):
+            c = clim.sel(region=r)
+            cm = c["calendar_month"].values.astype(int) - 1
+            mean = np.full(12, np.nan)
+            lo_, hi_ = np.full(12, np.nan), np.full(12, np.nan)
+            mean[cm], lo_[cm], hi_[cm] = c["mean"].values, c["min"].values, c["max"].values
+            clims.append(ax.fill_between(x, lo_[cal], hi_[cal], color=CLIMATOLOGY_COLOUR, lw=0,
+                                         zorder=0))
+            ax.plot(x, mean[cal], color=CLIMATOLOGY_LINE, lw=0.7, ls="--", zorder=1)
+            tr = t["total"].sel(region=r).transpose("model", "month").values
+            if len(models) > 1:
+                with warnings.catch_warnings():  # a month without any model: no band there
+                    warnings.simplefilter("ignore", RuntimeWarning)
+                    spreads.append(ax.fill_between(x, np.nanmin(tr, axis=0),
+                                                   np.nanmax(tr, axis=0), color=SPREAD_COLOUR,
+                                                   alpha=0.45, lw=0, zorder=2))
+            else:
+                spreads.append(None)
+            lo = low.sel(region=r).transpose("model", "month").values
+            xs, ys = [], []
+            for j, m in enumerate(models):
+                ax.plot(x, tr[j], color=LINE_COLOURS[j % len(LINE_COLOURS)], lw=0.9,
+                        zorder=3, label=names[m])
+                xs += list(x[lo[j]])
+                ys += list(tr[j][lo[j]])
+            marks.append(ax.scatter(xs, ys, marker="x", s=12, lw=0.9, color=MARK_COLOUR,
+                                    zorder=4) if xs else None)
+            ax.set_title(r, fontsize=FONT_PT + 1, loc="left")
+            ax.set_ylabel("Tg C month$^{-1}$")
+            _month_axis(ax, months)
+        handles, labels = axes[0].get_legend_handles_labels()
+        if len(models) > 1:
+            handles.append(Patch(color=SPREAD_COLOUR, alpha=0.45, lw=0))
+            labels.append("spread across models (lowest to highest)")
+        handles += [Patch(color=CLIMATOLOGY_COLOUR, lw=0),
+                    Line2D([], [], color=CLIMATOLOGY_LINE, lw=0.7, ls="--"),
+                    Line2D([], [], marker="x", color=MARK_COLOUR, lw=0, ms=4)]
+        labels += [f"baseline {B}: range by calendar month",
+                   f"baseline {B}: mean by calendar month",
+                   f"coverage below {min_coverage:g} of days"]
+        fig.legend(handles, [textwrap.fill(lb, 55) for lb in labels], loc="outside lower center",
+                   ncols=1 if width == "one-column" else 2, fontsize=FONT_PT, frameon=False)
+        span = (int(str(months[0])[:4]), int(str(months[-1])[:4])) if len(months) else (0, 0)
+        fig.suptitle(f"Carbon fixed per month by region, {_span_text(span)}")
+    caption = (
+        f"Monthly net primary production per region: carbon fixed per month over the observed "
+        f"cells (Tg C month-1), {_span_text(span)}, one line per model "
+        f"({', '.join(names[m] for m in models)})"
+        + ("; grey band: spread across models (lowest to highest)" if len(models) > 1 else "")
+        + f". Shaded behind: the {B} baseline's monthly climatology (range, minimum to maximum "
+          f"by calendar month; dashed: mean) of the "
+        + ("mean across models" if len(models) > 1 else "model")
+        + f". Crosses: months whose coverage is below {min_coverage:g} of days or that the run "
+          f"flagged '{FLAG_LOW_COVERAGE}'; gaps in a line: months without any observed cell "
+          f"in the region. Each region on its own panel and y axis."
+    )
+    return Drawn("fig_monthly_totals", fig, f"Monthly carbon fixed by region, "
+                 f"{_span_text(span)}", caption,
+                 {"axes": axes, "climatology": clims, "spread": spreads, "low_marks": marks})
+
+
 # --------------------------------------------------------------------------------------------
 # captions and files
 
 
-def caption_texts(drawn: Drawn, ds: xr.Dataset, *, min_coverage: float, folder: Path
-                  ) -> tuple[str, str]:
-    """(Markdown, plain text) caption: what is shown, the models' citations, the coverage
-    rule and the caution."""
+def _file_pattern(files: list[str]) -> str:
+    """The files of one input as a pattern: the path itself for one file; for several, their
+    common start and end around a ``*`` (digits at the seam left to the ``*``), with the
+    count and the first and last file name."""
+    import os
+
+    if len(files) == 1:
+        return files[0]
+    head = os.path.commonprefix(files).rstrip("0123456789")
+    tail = os.path.commonprefix([f[::-1] for f in files])[::-1].lstrip("0123456789")
+    first, last = sorted(files)[0], sorted(files)[-1]
+    return (f"{head}*{tail} ({len(files)} files, {os.path.basename(first)} to "
+            f"{os.path.basename(last)})")
+
+
+def _run_map_attrs(folder: Path, manifest: dict) -> dict:
+    """Global attributes of a map the committed run wrote itself (its input files are the
+    manifest's), newest month first; else the newest map's; {} when none can be read."""
+    inputs = manifest.get("inputs") or {}
+    entries = sorted(((n, e) for n, e in manifest.get("outputs", {}).items()
+                      if e.get("kind") == "map"), key=lambda ne: ne[1].get("month", ""),
+                     reverse=True)
+    fallback: dict = {}
+    for name, _ in entries[:24]:
+        path = folder / name
+        kw = {"engine": "zarr", "consolidated": True} if path.is_dir() else {"engine": "netcdf4"}
+        try:
+            with xr.open_dataset(path, decode_times=False, **kw) as ds:
+                attrs = dict(ds.attrs)
+        except (OSError, ValueError, KeyError):
+            continue
+        if all(attrs.get(f"input_files_{r}") == ", ".join(f) for r, f in inputs.items()):
+            return attrs
+        fallback = fallback or attrs
+    return fallback
+
+
+def input_lines(folder: str | Path) -> list[str]:
+    """The inputs of the run committed in ``folder``, one line per variable for the
+    captions: what it is, its files (or their pattern), their periods and units, as the
+    manifest's ``inputs`` and the maps' ``input_periods_*`` / ``input_units_*`` attributes
+    record them. [] when the run recorded no inputs."""
+    from euphotic.methods import _ROLE_WORDS, ROLES
+
+    folder = Path(folder)
+    manifest = results.committed_manifest(folder)
+    inputs = manifest.get("inputs") or {}
+    if not inputs:
+        return []
+    attrs = _run_map_attrs(folder, manifest)
+    lines = []
+    for role in [*ROLES, *sorted(set(inputs) - set(ROLES))]:
+        files = inputs.get(role)
+        if not files:
+            continue
+        line = f"{role}, {_ROLE_WORDS.get(role, role)}: {_file_pattern(list(files))}"
+        if attrs.get(f"input_periods_{role}"):
+            line += f"; {attrs[f'input_periods_{role}']}"
+        if attrs.get(f"input_units_{role}"):
+            line += f"; in {attrs[f'input_units_{role}']}"
+        lines.append(line)
+    return lines
+
+
+def caption_texts(drawn: Drawn, ds: xr.Dataset, *, min_coverage: float, folder: Path,
+                  inputs: list[str] | None = None) -> tuple[str, str]:
+    """(Markdown, plain text) caption: what is shown, the models' citations, the inputs
+    (``inputs``, default :func:`input_lines` of ``folder``), the coverage rule and the
+    caution."""
+    if inputs is None:
+        try:
+            inputs = input_lines(folder)
+        except EuphoticError:  # not a committed run (a notebook's own Dataset)
+            inputs = []
     names, cites = _model_names(ds), _citations(ds)
     refs = [f"{names[m]}: {cites[m]}" for m in names]
     rule = (f"Coverage rule: a cell's monthly value is the mean over the days with a valid "
             f"estimate; coverage is the fraction of the month's days with one. Cells with mean "
-            f"coverage below {min_coverage:g} are marked on maps (this tool's default "
-            f"{DEFAULT_MIN_COVERAGE:g}); regional totals are over observed cells.")
+            f"coverage below {min_coverage:g} are marked on maps, and region-months below it "
+            f"(or flagged '{FLAG_LOW_COVERAGE}' by the run) on the regional charts (this "
+            f"tool's default {DEFAULT_MIN_COVERAGE:g}); regional totals are over observed "
+            f"cells.")
     source = (f"Run in {folder} (run id {ds.attrs.get('euphotic_run_id', 'unknown')}), drawn "
               f"by euphotic {__version__}.")
+    md_in = ["Inputs:", *[f"- {r}" for r in inputs], ""] if inputs else []
+    txt_in = ["Inputs:", *[f"  {r}" for r in inputs], ""] if inputs else []
     md = "\n".join([f"**{drawn.caption_title}.** {drawn.caption}", "", rule, "",
-                    "Models:", *[f"- {r}" for r in refs], "", f"*Caution:* {CAUTION}", "",
-                    source, ""])
+                    "Models:", *[f"- {r}" for r in refs], "", *md_in, f"*Caution:* {CAUTION}",
+                    "", source, ""])
     txt = "\n".join([f"{drawn.caption_title}. {drawn.caption}", "", rule, "", "Models:",
-                     *[f"  {r}" for r in refs], "", f"Caution: {CAUTION}", "", source, ""])
+                     *[f"  {r}" for r in refs], "", *txt_in, f"Caution: {CAUTION}", "", source,
+                     ""])
     return md, txt
 
 
@@ -598,13 +1534,16 @@ def save(drawn: Drawn, folder: Path) -> list[Path]:
 def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | None = None,
              baseline: tuple[int, int] | None = None, projection: Projection = "equal-area",
              min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
-             relative: bool = True, folder: Path | None = None) -> tuple[list[Drawn], list[str]]:
+             relative: bool = True, folder: Path | None = None,
+             regions=None) -> tuple[list[Drawn], list[str]]:
     """Every figure of the set (not saved), and notes on figures left out.
 
-    ``period`` defaults to the whole run. The difference map sets ``period`` (or, by default,
-    the run's last year) against ``baseline`` (by default the years before it); it is left out
-    when the run has a single year and no baseline was given. The regional figures are left
-    out when the run has no regions.
+    ``period`` defaults to the whole run. The difference, baseline | period | change and
+    ratio maps set ``period`` (or, by default, the run's last year) against ``baseline`` (by
+    default the years before it); they are left out when the run has a single year and no
+    baseline was given. The regional figures are left out when the run has no regions.
+    ``regions`` (name -> boolean mask, :func:`euphotic.results.open_region_masks`) are
+    outlined on every map.
     """
     import matplotlib
 
@@ -625,19 +1564,25 @@ def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | 
     shown = period or whole
     notes: list[str] = []
     drawn = [map_panels(maps, period=shown, projection=projection, min_coverage=min_coverage,
-                        width=width)]
+                        width=width, regions=regions)]
     compared = period or (years[-1], years[-1])
     base = baseline or ((years[0], compared[0] - 1) if compared[0] > years[0] else None)
     if base is None:
         notes.append("no difference map: the run has a single year (give --baseline)")
     else:
-        drawn.append(difference_map(maps, period=compared, baseline=base, projection=projection,
-                                    relative=relative, min_coverage=min_coverage, width=width))
+        kw = {"period": compared, "baseline": base, "projection": projection,
+              "min_coverage": min_coverage, "width": width, "regions": regions}
+        drawn.append(difference_map(maps, relative=relative, **kw))
+        drawn.append(comparison_panels(maps, relative=relative, **kw))
+        drawn.append(ratio_map(maps, **kw))
     if totals.sizes.get("region", 0) == 0:
         notes.append("no regional figures: the run has no regions")
     else:
         drawn.append(annual_series(totals, baseline=base or whole, width=width))
         drawn.append(seasonal_figure(totals, period=shown, width=width))
+        drawn.append(totals_chart(totals, period=period, min_coverage=min_coverage, width=width))
+        drawn.append(monthly_series(totals, baseline=base or whole, period=period,
+                                    min_coverage=min_coverage, width=width))
     return drawn, notes
 
 
@@ -661,10 +1606,15 @@ def write_figure_set(folder: str | Path, *, period: str | None = None,
     totals = results.open_totals(folder)
     if min_coverage is None:  # the run's coverage rule ([run] min_coverage; figures mark cells)
         min_coverage = float(maps.attrs.get("min_coverage", DEFAULT_MIN_COVERAGE))
+    try:
+        regions, region_note = results.open_region_masks(folder), []
+    except NoRunError as exc:  # a run from before region masks were recorded
+        regions, region_note = None, [f"no region outlines on the maps: {exc}"]
+    inputs = input_lines(folder)
     drawn, notes = draw_all(maps, totals, period=span, baseline=base, projection=projection,
                             min_coverage=min_coverage, width=width, relative=relative,
-                            folder=folder)
-    out = FigureSet(notes=notes)
+                            folder=folder, regions=regions)
+    out = FigureSet(notes=notes + region_note)
     try:
         with runfolder.OutputFolder(folder).adding(command, replace_kinds=(KIND,)) as (stage,
                                                                                       added):
@@ -672,7 +1622,8 @@ def write_figure_set(folder: str | Path, *, period: str | None = None,
                 for p in save(d, stage.path):
                     added[p.name] = {"kind": KIND, "description": d.caption_title}
                     out.files.append(folder / p.name)
-                md, txt = caption_texts(d, maps, min_coverage=min_coverage, folder=folder)
+                md, txt = caption_texts(d, maps, min_coverage=min_coverage, folder=folder,
+                                        inputs=inputs)
                 for ext, text in (("caption.md", md), ("caption.txt", txt)):
                     name = f"{d.name}.{ext}"
                     stage.file(name).write_text(text)
