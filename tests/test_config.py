@@ -109,7 +109,7 @@ def test_empty_model_list_is_an_error_and_keeps_the_previous_table(tmp_path):
     assert csv.read_bytes() == before
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == [
         ".euphotic.lock", "euphotic_manifest.json", "npp_vgpm_2024-03.nc", "regional_totals.csv",
-        "regional_totals.csv-metadata.json",
+        "regional_totals.csv-metadata.json", "regions.nc",
     ]
 
 
@@ -121,7 +121,7 @@ def test_duplicate_models_run_once_with_a_warning(tmp_path):
     assert res.stderr == 'euphotic: warning: models: "vgpm" listed twice; running it once\n'
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == [
         ".euphotic.lock", "euphotic_manifest.json", "npp_vgpm_2024-03.nc", "regional_totals.csv",
-        "regional_totals.csv-metadata.json",
+        "regional_totals.csv-metadata.json", "regions.nc",
     ]
     rows = (tmp_path / "out" / "regional_totals.csv").read_text().splitlines()
     assert len(rows) == 2 and rows[1].startswith("Box,2024-03,vgpm,")

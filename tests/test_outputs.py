@@ -586,3 +586,57 @@ def test_metadata_must_be_a_table(tmp_path):
     with pytest.raises(ConfigError) as info:
         load_config(cfg)
     assert str(info.value) == f"{cfg} [metadata]: must be a table of text values ([metadata])"
+
+
+# --------------------------------------------------------------------------------------------
+# regions.nc: the run's region masks and cell areas
+# --------------------------------------------------------------------------------------------
+
+
+def test_regions_file_passes_cf_checks(demo_run, monkeypatch):
+    scored, failed = _check(demo_run / "regions.nc", "cf:1.8", monkeypatch)
+    bad = [(r.weight, r.name, r.msgs) for r in failed if r.weight >= 2]
+    assert bad == [], "\n".join(f"[{w}] {n}: {m}" for w, n, m in bad)
+
+
+def test_regions_file_masks_match_cell_centres_and_areas_match_pyproj(demo_run):
+    """The stored masks are the configured regions (a box checked cell by cell with plain
+    numpy on the cell centres; configs/demo.toml: "Skerrow Shelf" = [-22, 44, -15, 56]) and
+    the stored cell areas are the WGS84 cell areas (pyproj.Geod polygon area, an outside
+    reference)."""
+    from pyproj import Geod
+
+    from euphotic import results
+
+    masks = results.open_region_masks(demo_run)
+    assert masks.names == ["Skerrow Shelf", "Outer Maren Gyre", "Tollan Bank", "Whole Maren Sea"]
+    lat, lon = masks.lat, masks.lon
+    box = ((lon[None, :] >= -22) & (lon[None, :] <= -15) & (lat[:, None] >= 44)
+           & (lat[:, None] <= 56))
+    np.testing.assert_array_equal(masks["Skerrow Shelf"], box)
+    whole = ((lon[None, :] >= -36) & (lon[None, :] <= -14) & (lat[:, None] >= 40)
+             & (lat[:, None] <= 60))
+    np.testing.assert_array_equal(masks["Whole Maren Sea"], whole)
+    d = float(lat[1] - lat[0])
+    geod = Geod(ellps="WGS84")
+    for i in (0, len(lat) // 2, len(lat) - 1):
+        s, n = lat[i] - d / 2, lat[i] + d / 2
+        w, e = lon[0] - d / 2, lon[0] + d / 2
+        # edges along the parallels densified, so that geodesic edges follow them
+        xs = np.linspace(w, e, 200)
+        ref, _ = geod.polygon_area_perimeter(np.r_[xs, xs[::-1]], np.r_[np.full(200, s),
+                                                                          np.full(200, n)])
+        assert masks.cell_area_m2[i] == pytest.approx(abs(ref), rel=1e-9)
+    ds = results.open_regions(demo_run)
+    assert list(ds["region"].values) == masks.names
+    np.testing.assert_array_equal(ds["mask"].sel(region="Tollan Bank").values,
+                                  masks["Tollan Bank"])
+    assert ds["cell_area"].attrs["units"] == "m2"
+
+
+def test_regions_file_is_listed_in_the_manifest(demo_run):
+    import json
+
+    man = json.loads((demo_run / "euphotic_manifest.json").read_text())
+    assert man["outputs"]["regions.nc"]["kind"] == "regions"
+    assert man["outputs"]["regions.nc"]["bytes"] == (demo_run / "regions.nc").stat().st_size

@@ -515,3 +515,56 @@ def test_figures_with_many_regions_stay_readable(tmp_path):
     assert labels == [f"r{i:03d}" for i in range(70, 100)]  # the 30 largest, in table order
     assert "the 30 largest of 100 regions" in ax.get_title()
     real_close(captured["fig"])
+
+
+# --------------------------------------------------------------------------------------------
+# boxes as index ranges
+# --------------------------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("lon0", [-180.0, 0.0])  # -180..180 and 0..360 grids
+def test_box_window_matches_shapely_on_random_boxes(lon0):
+    """Index-range boxes against shapely's point-in-polygon test of every cell centre (an
+    outside reference), on 200 seeded random boxes, antimeridian crossings included. Box
+    edges are whole degrees and centres are at .25/.75, so no centre lies on an edge."""
+    import shapely
+
+    from euphotic.regions import box_geometry, box_window
+
+    lat = np.arange(-89.75, 90, 0.5)
+    lon = np.arange(lon0 + 0.25, lon0 + 360, 0.5)
+    glon, glat = np.meshgrid(lon, lat)
+    rng = np.random.default_rng(7)
+    for _ in range(200):
+        s, n = np.sort(rng.choice(np.arange(-90, 91), 2, replace=False)).astype(float)
+        w, e = rng.choice(np.arange(-180, 181), 2, replace=False).astype(float)
+        g = box_geometry(w, s, e, n)
+        ref = np.zeros(glon.shape, bool)
+        for shift in (0.0, 360.0):
+            ref |= shapely.contains_xy(g, glon - shift, glat)
+        win = box_window(w, s, e, n, lat, lon)
+        got = np.zeros(glon.shape, bool)
+        got[win.rows, win.cols] = win.mask
+        np.testing.assert_array_equal(got, ref, err_msg=f"box {[w, s, e, n]}")
+
+
+def test_box_edges_are_half_open_so_neighbours_tile():
+    """This tool's rule (README "Regions"): south and west edges in, north and east out, so
+    two boxes sharing an edge never count a cell twice; north = 90 takes the top row."""
+    from euphotic.regions import box_window
+
+    lat = np.arange(-90.0, 90.0, 1.0)  # centres exactly on whole degrees: on the edges
+    lon = np.arange(-180.0, 180.0, 1.0)
+
+    def cells(*b):
+        w = box_window(*b, lat, lon)
+        m = np.zeros((len(lat), len(lon)), bool)
+        m[w.rows, w.cols] = w.mask
+        return m
+
+    a, b = cells(-10, -5, 0, 5), cells(0, -5, 10, 5)
+    assert not (a & b).any()
+    np.testing.assert_array_equal(a | b, cells(-10, -5, 10, 5))
+    assert cells(-10, -5, 10, 5).sum() == 20 * 10
+    assert cells(-180, 80, 180, 90)[-1].all()  # whole globe in longitude, top row in
+    assert cells(170, 0, -170, 1).sum() == 20  # across the antimeridian

@@ -110,7 +110,7 @@ def test_report_is_written_listed_and_self_contained(folder):
     # the table's regions and units (region names as configured; units from open_totals)
     for region in ("Box", ODD_REGION):
         assert region in page.text  # the whole text of a table cell
-    assert "total (Tg)" in text and "mean NPP (mg m-2 d-1)" in text
+    assert "total carbon fixed in the month (Tg)" in text and "mean NPP (mg m-2 d-1)" in text
     # the methods paragraph, its references and the provenance
     assert "Behrenfeld and Falkowski (1997)" in text
     assert man["config_sha256"] in text and "run.toml" in text

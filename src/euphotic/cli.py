@@ -83,6 +83,11 @@ def main() -> None:
     metavar="N",
     help="Start a local dask.distributed cluster of N worker processes for this run.",
 )
+@click.option(
+    "--no-steps", is_flag=True,
+    help="Stop once the maps and totals are committed: skip the config's [compare], "
+         "[figure_set], [matchup] and [report] steps.",
+)
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
 def run(
     config: Path,
@@ -92,9 +97,11 @@ def run(
     force: bool,
     scheduler: str | None,
     workers: int | None,
+    no_steps: bool,
     debug: bool,
 ) -> None:
-    """Run the models for CONFIG (a TOML file) and write maps and regional totals."""
+    """Run the models for CONFIG (a TOML file) and write maps and regional totals; then the
+    steps the config sets ([compare], [figure_set], [matchup], [report]), each added to the folder."""
     _log_warnings()
     try:
         from euphotic.config import load_config
@@ -110,7 +117,7 @@ def run(
             raise EuphoticError("give --scheduler or --workers, not both")
         result = run_pipeline(
             cfg, progress=not quiet, command=command, scheduler=scheduler, workers=workers,
-            force=force,
+            force=force, steps=not no_steps,
         )
     except Exception as exc:  # noqa: BLE001 - every failure becomes one line unless --debug
         _fail(exc, debug)
@@ -122,10 +129,23 @@ def run(
         click.echo(f"{len(months)} months; the last one below, all {len(result.rows)} rows in "
                    f"{result.totals_csv}")
     click.echo(format_totals(rows))
+    for done in result.steps:  # the trends of a [compare] step, as `euphotic compare` prints
+        if done.table == "compare":
+            click.echo("")
+            _echo_trends(done.value)
+        if done.table == "matchup":  # the overall sentences; the rest in matchup_summary.md
+            click.echo("")
+            click.echo("Station match-ups:")
+            for line in done.value.summary.splitlines():
+                if line.startswith("- Over all stations"):
+                    click.echo(line)
     click.echo("")
     from euphotic.outputs import CAUTION
 
     click.echo("Caution: " + CAUTION)
+    for done in result.steps:
+        for note in done.notes:
+            click.echo(f"note: [{done.table}] {note}")
     if not quiet:
         click.echo("")
         for note in result.notes:
@@ -144,6 +164,9 @@ def run(
             click.echo(f"wrote {p}")
         if result.manifest is not None:
             click.echo(f"wrote {result.manifest}")
+        for done in result.steps:
+            for p in done.files:
+                click.echo(f"wrote {p} [{done.table}]")
 
 
 @main.command(name="check")
@@ -285,6 +308,22 @@ def _add_to_run(name: str, write, debug: bool, **options):
         return None
 
 
+def _echo_trends(w) -> None:
+    """The annual-total trends of ``euphotic compare`` (or a [compare] step), one line each."""
+    click.echo(f"Trends of annual totals (Theil-Sen slope per year, Mann-Kendall p; baseline "
+               f"{w.baseline[0]}-{w.baseline[1]}):")
+    for t in w.trends:
+        if t["series"] != "annual totals":
+            continue
+        if not t["slope"] == t["slope"]:  # NaN: too few complete years for a slope
+            click.echo(f"  {t['region']:<24} {t['model']:<12} no trend: "
+                       f"{int(t['n_years'])} complete year(s) of data")
+            continue
+        note = "  (short record)" if t["short_record"] else ""
+        click.echo(f"  {t['region']:<24} {t['model']:<12} {t['slope']:+9.3f} Tg C yr-2  "
+                   f"p = {t['p_value']:.3f}  n = {int(t['n_years'])} years{note}")
+
+
 @main.command(name="compare")
 @click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
 @click.option("--baseline", metavar="FIRST-LAST",
@@ -307,18 +346,7 @@ def compare_command(folder: Path, baseline: str | None, compare_to: str | None,
                     compare_years=compare_to, min_coverage=min_coverage, maps=not no_maps)
     if w is None:
         return
-    click.echo(f"Trends of annual totals (Theil-Sen slope per year, Mann-Kendall p; baseline "
-               f"{w.baseline[0]}-{w.baseline[1]}):")
-    for t in w.trends:
-        if t["series"] != "annual totals":
-            continue
-        if not t["slope"] == t["slope"]:  # NaN: too few complete years for a slope
-            click.echo(f"  {t['region']:<24} {t['model']:<12} no trend: "
-                       f"{int(t['n_years'])} complete year(s) of data")
-            continue
-        note = "  (short record)" if t["short_record"] else ""
-        click.echo(f"  {t['region']:<24} {t['model']:<12} {t['slope']:+9.3f} Tg C yr-2  "
-                   f"p = {t['p_value']:.3f}  n = {int(t['n_years'])} years{note}")
+    _echo_trends(w)
     from euphotic.outputs import CAUTION
 
     click.echo("")
@@ -397,6 +425,51 @@ def report_command(folder: Path, quiet: bool, debug: bool) -> None:
         return
     if not quiet:
         click.echo(f"wrote {w.path} ({w.images} images embedded)")
+
+
+@main.command(name="matchup")
+@click.argument("folder", type=click.Path(file_okay=False, path_type=Path))
+@click.option("--stations", type=click.Path(dir_okay=False, path_type=Path), metavar="FILE.csv",
+              help="Station CSV (default: [matchup] stations of the run's config).")
+@click.option("--window", type=int, metavar="N", help="Window width in cells, odd (default 3).")
+@click.option("--days", type=click.IntRange(0, 15), metavar="N",
+              help="Days on each side of the station day (default 0).")
+@click.option("--min-valid", "min_valid", type=click.IntRange(min=1), metavar="N",
+              help="Fewest valid cells in the window (default: more than half).")
+@click.option("--max-cv", "max_cv", type=float, metavar="F",
+              help="Largest coefficient of variation of the window (default: none).")
+@click.option("--quotient", metavar="Q",
+              help="Photosynthetic quotient, mol O2 per mol C: ammonium (1.1), nitrate (1.4, "
+                   "default) or a number.")
+@click.option("--gross-to-net", "gross_to_net", type=float, metavar="F",
+              help="Net/gross factor for oxygen gross production (default 0.667).")
+@click.option("--config", "config", type=click.Path(dir_okay=False, path_type=Path),
+              help="The run's config (default: the one its manifest records).")
+@click.option("--no-figures", is_flag=True, help="Tables and summary only.")
+@click.option("--quiet", "-q", is_flag=True, help="No list of files written.")
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def matchup_command(folder: Path, stations: Path | None, window: int | None, days: int | None,
+                    min_valid: int | None, max_cv: float | None, quotient: str | None,
+                    gross_to_net: float | None, config: Path | None, no_figures: bool,
+                    quiet: bool, debug: bool) -> None:
+    """Match production measured at sea (carbon-14 and oxygen incubations, CSV) with the
+    daily model estimates of the run in FOLDER: match-up table, skill statistics, scatter,
+    target diagram and summary, added to FOLDER and listed in its manifest."""
+    from euphotic.matchup_outputs import write_matchups
+
+    w = _add_to_run("matchup", write_matchups, debug, folder=folder, stations=stations,
+                    cfg=config, window=window, days=days, min_valid=min_valid, max_cv=max_cv,
+                    quotient=quotient, gross_to_net=gross_to_net, figures=not no_figures)
+    if w is None:
+        return
+    click.echo(w.summary.split("## In words", 1)[-1].split("Caution:", 1)[0].strip())
+    from euphotic.outputs import CAUTION
+
+    click.echo("")
+    click.echo("Caution: " + CAUTION)
+    if not quiet:
+        for p in w.files:
+            click.echo(f"wrote {p}")
 
 
 @main.command(name="models")

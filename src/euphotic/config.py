@@ -198,7 +198,95 @@ OCEAN_KEYS: dict[str, Key] = {
     "variable": Key(_string, "a variable name (string)"),
 }
 
-_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata"}
+def _years(value) -> str:
+    """A span of years as the comparison and figure functions take it: "FIRST-LAST" or a
+    single year (a TOML integer or string); whether the run covers it is known only after
+    the run, and checked then."""
+    if isinstance(value, int) and not isinstance(value, bool) and value > 0:
+        return str(value)
+    if not isinstance(value, str):
+        raise _Bad
+    m = re.fullmatch(r"\s*(\d{1,4})\s*(?:-\s*(\d{1,4})\s*)?", value)
+    if m is None or int(m.group(1)) == 0:
+        raise _Bad
+    first, last = int(m.group(1)), int(m.group(2) or m.group(1))
+    if last < first:
+        raise _Bad
+    return str(first) if first == last else f"{first}-{last}"
+
+
+_YEARS = 'years as "FIRST-LAST" (e.g. "2015-2019") or one year (2020)'
+
+#: Steps after a run (euphotic.steps): each table, when present, makes `euphotic run` add its
+#: outputs to the committed run, in the order of euphotic.steps.STEPS. The keys are the
+#: options of the command of the same job (`euphotic compare`, `euphotic figures`,
+#: `euphotic methods` + `euphotic report`); a key left out takes that command's default.
+
+#: [compare] keys: `euphotic compare` (euphotic.compare_outputs.write_comparisons)
+COMPARE_KEYS: dict[str, Key] = {
+    "baseline": Key(_years, _YEARS),
+    "compare_to": Key(_years, _YEARS),
+    "min_coverage": Key(_fraction, "a fraction between 0 and 1"),
+    "maps": Key(_boolean, "true or false (a TOML boolean, without quotes)"),
+}
+
+#: [figure_set] keys: `euphotic figures` (euphotic.figureset.write_figure_set)
+FIGURE_SET_KEYS: dict[str, Key] = {
+    "period": Key(_years, _YEARS),
+    "baseline": Key(_years, _YEARS),
+    "projection": Key(_choice("equal-area", "latlon"), '"equal-area" or "latlon"'),
+    "width": Key(_choice("one-column", "two-column"), '"one-column" or "two-column"'),
+    "min_coverage": Key(_fraction, "a fraction between 0 and 1"),
+    "absolute": Key(_boolean, "true or false (a TOML boolean, without quotes)"),
+}
+
+#: [report] keys: `euphotic methods` and `euphotic report` (an empty table writes both)
+REPORT_KEYS: dict[str, Key] = {
+    "methods": Key(_boolean, "true or false (a TOML boolean, without quotes)"),
+}
+
+
+
+def _odd_cells(value) -> int:
+    if not isinstance(value, int) or isinstance(value, bool) or value < 1 or value % 2 == 0:
+        raise _Bad
+    return value
+
+
+def _positive(value) -> float:
+    if isinstance(value, bool) or not isinstance(value, int | float) or not value > 0:
+        raise _Bad
+    return float(value)
+
+
+def _quotient(value) -> float | str:
+    if isinstance(value, str) and value in ("ammonium", "nitrate"):
+        return value
+    if isinstance(value, bool) or not isinstance(value, int | float) or not 0.5 <= value <= 3:
+        raise _Bad
+    return float(value)
+
+
+#: [matchup] keys (station match-ups, euphotic.matchup_outputs.write_matchups)
+MATCHUP_KEYS: dict[str, Key] = {
+    "stations": Key(_string, "a station CSV path (string)"),
+    "window": Key(_odd_cells, "an odd whole number of cells >= 1 (e.g. 3)"),
+    "days": Key(_whole_number_min(0), "a whole number of days >= 0 on each side"),
+    "min_valid": Key(_whole_number_min(1), "a whole number of cells >= 1"),
+    "max_cv": Key(_positive, "a number > 0 (e.g. 0.15)"),
+    "quotient": Key(_quotient, '"ammonium", "nitrate" or a number between 0.5 and 3'),
+    "gross_to_net": Key(_fraction, "a fraction between 0 and 1"),
+}
+
+#: Step table -> its keys; the order in which they run is euphotic.steps.STEPS.
+STEP_KEYS: dict[str, dict[str, Key]] = {
+    "compare": COMPARE_KEYS,
+    "figure_set": FIGURE_SET_KEYS,
+    "matchup": MATCHUP_KEYS,
+    "report": REPORT_KEYS,
+}
+
+_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", "matchup", *STEP_KEYS}
 _ROLES = ("chl", "par", "sst", "day_length")
 
 
@@ -228,6 +316,9 @@ class RunConfig:
     metadata: dict[str, str] = field(default_factory=dict)
     #: things worth knowing that are not errors (logged as warnings when the config is loaded)
     notes: list[str] = field(default_factory=list)
+    #: steps after the run: table name -> its checked keys, for the tables present
+    #: ([compare], [figure_set], [report]; see euphotic.steps)
+    steps: dict[str, dict] = field(default_factory=dict)
 
 
 def _check_keys(table: dict, allowed, where: str, problems: list) -> None:
@@ -285,6 +376,32 @@ def load_config(path: str | Path) -> RunConfig:
     for note in cfg.notes:
         log.warning("%s", note)
     return cfg
+
+
+def matchup_table(path: str | Path) -> dict:
+    """The checked ``[matchup]`` table of a config (empty when it has none), ``stations``
+    resolved against the config's folder. Kept out of :class:`RunConfig`: it changes no map.
+
+    Raises
+    ------
+    ConfigError
+        The file cannot be read, or a key of the table does not fit (as :func:`load_config`).
+    """
+    path = Path(path)
+    try:
+        raw = tomllib.loads(path.read_text())
+    except OSError as exc:
+        raise ConfigError(path, f"cannot read config ({exc.strerror or exc})") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(path, f"not valid TOML: {exc}") from None
+    problems: list[EuphoticError] = []
+    table = check_table(_table(raw, "matchup", str(path), problems, name="[matchup]"),
+                        MATCHUP_KEYS, f"{path} [matchup]", problems)
+    if problems:
+        raise problems[0]
+    if "stations" in table:
+        table["stations"] = (path.resolve().parent / table["stations"]).resolve()
+    return table
 
 
 def config_problems(path: str | Path) -> list[EuphoticError]:
@@ -395,6 +512,12 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         except EuphoticError as exc:
             problems.append(exc)
 
+    steps: dict[str, dict] = {}
+    for table, keys in STEP_KEYS.items():
+        if table in raw:
+            step_raw = _table(raw, table, str(path), problems, name=f"[{table}]")
+            steps[table] = check_table(step_raw, keys, f"{path} [{table}]", problems)
+
     start, end = run.get("start"), run.get("end")
     if start is not None and end is not None and end < start:
         problems.append(ConfigError(where_run, f"`end` ({end}) is before `start` ({start})"))
@@ -419,4 +542,5 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         land_mask_variable=ocean.get("variable"),
         metadata=metadata,
         notes=notes,
+        steps=steps,
     )

@@ -45,6 +45,16 @@ PUBLISHED_NAMES: dict[str, str] = {
     "dependence",
 }
 
+#: Short labels for axes and legends (the captions and metadata give PUBLISHED_NAMES and the
+#: citations).
+MODEL_LABELS: dict[str, str] = {"vgpm": "VGPM", "eppley_vgpm": "Eppley-VGPM"}
+
+
+def model_label(model: str) -> str:
+    """Short display label of a model id (the id itself when it has none)."""
+    return MODEL_LABELS.get(model, model)
+
+
 #: Value written for a [metadata] attribute the user did not set (an honest "unknown").
 NOT_SPECIFIED = "not specified by the user"
 
@@ -546,6 +556,83 @@ def write_lazy(ds: xr.Dataset, tmp: Path, fmt: str):
                           consolidated=True)
     return ds.to_netcdf(tmp, engine="netcdf4", encoding=encoding_for(ds), compute=False,
                         unlimited_dims=["time"])
+
+
+REGIONS_FILE = "regions.nc"
+
+
+def region_dataset(masks, lat: np.ndarray, lon: np.ndarray, area_rows_m2: np.ndarray, *,
+                   earth: str, region_sources: str = "") -> xr.Dataset:
+    """The run's region masks and cell areas as one CF NetCDF dataset (``regions.nc``).
+
+    The masks are stored as :class:`euphotic.aggregate.RegionMasks` holds them: label layers
+    (``r + 1`` for region ``r``, 0 for none) then bit planes (``bit_regions``), in
+    ``region_planes (plane, lat, lon)``; ``region_window (region, bound)`` keeps each region's
+    row and column range so that unpacking one region reads only its window. ``cell_area``
+    (m2) is the area of one cell in each row of the regular grid. Read it back with
+    :func:`euphotic.results.open_regions` or :func:`euphotic.results.open_region_masks`.
+    """
+    names = list(masks.names)
+    n = len(names)
+    planes = masks.planes
+    if planes is None:
+        planes = np.zeros((0, len(lat), len(lon)), dtype=np.uint16)
+    windows = masks.windows or [(slice(0, len(lat)), slice(0, len(lon)))] * n
+    win = np.array([[w[0].start or 0, w[0].stop if w[0].stop is not None else len(lat),
+                     w[1].start or 0, w[1].stop if w[1].stop is not None else len(lon)]
+                    for w in windows], dtype=np.int32).reshape(n, 4)
+    ds = xr.Dataset(
+        {
+            "region_name": ("region", np.array(names, dtype=object),
+                            {"long_name": "region name, as configured"}),
+            # signed on disk (CF 1.8 has no unsigned types): uint16 planes as int32
+            "region_planes": (("plane", "lat", "lon"), planes.astype(
+                np.int32 if planes.dtype.itemsize <= 2 else np.int64), {
+                "long_name": "region membership: label layers then bit planes",
+                "comment": "In the first n_label_layers planes a cell holds r + 1 for the "
+                           "region r (0-based, in region_name order) it belongs to in that "
+                           "layer, 0 for none. Region bit_regions[j] is bit j % B of plane "
+                           "n_label_layers + j // B (B the bits of the integer type). A cell "
+                           "belongs to a region when its centre is inside.",
+                "n_label_layers": np.int32(masks.n_label_layers),
+                "bit_regions": np.array(masks.bit_regions, dtype=np.int32),
+                "packed_type": str(planes.dtype),
+            }),
+            "region_window": (("region", "bound"), win, {
+                "long_name": "first row, end row, first column, end column of the region's cells "
+                             "(0-based, end exclusive)"}),
+            "cell_area": ("lat", np.asarray(area_rows_m2, dtype=np.float64), {
+                "standard_name": "cell_area", "units": "m2",
+                "long_name": "area of one grid cell in this row (regular grid: the same along "
+                             "the row)",
+                "comment": f"exact cell area on the {earth_description(earth)}"}),
+        },
+        coords={
+            "lat": ("lat", np.asarray(lat, dtype=np.float64),
+                    {"standard_name": "latitude", "units": "degrees_north", "axis": "Y"}),
+            "lon": ("lon", np.asarray(lon, dtype=np.float64),
+                    {"standard_name": "longitude", "units": "degrees_east", "axis": "X"}),
+        },
+        attrs={
+            "Conventions": "CF-1.8",
+            "title": "Regions of a euphotic run: masks and cell areas",
+            "region_sources": region_sources or "none",
+            "earth_model": earth_description(earth),
+            "history": f"{iso_utc()} written by euphotic {__version__}",
+        },
+    )
+    return ds
+
+
+def write_regions(path: Path, ds: xr.Dataset) -> None:
+    """Write :func:`region_dataset` to ``path`` (NetCDF-4, deflated)."""
+    enc = {"region_planes": {"zlib": True, "complevel": 4, "shuffle": True},
+           "lat": {"_FillValue": None}, "lon": {"_FillValue": None},
+           "cell_area": {"_FillValue": None}, "region_window": {"_FillValue": None}}
+    if ds.sizes["plane"] and ds.sizes["lat"] and ds.sizes["lon"]:
+        enc["region_planes"]["chunksizes"] = (1, min(ds.sizes["lat"], 1024),
+                                              min(ds.sizes["lon"], 1024))
+    ds.to_netcdf(path, engine="netcdf4", encoding=enc)
 
 
 # ------------------------------------------------------------------------------------------

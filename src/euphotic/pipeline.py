@@ -56,6 +56,8 @@ class RunResult:
     #: what the run did to the folder besides its outputs (recovery, clean-up)
     notes: list[str] = field(default_factory=list)
     manifest: Path | None = None
+    #: what the steps after the run added (euphotic.steps.Done, in order)
+    steps: list = field(default_factory=list)
 
 
 def prepare(cfg: RunConfig) -> Prepared:
@@ -173,6 +175,7 @@ def run(
     scheduler: str | None = None,
     workers: int | None = None,
     force: bool = False,
+    steps: bool = True,
 ) -> RunResult:
     """Produce monthly maps, the regional totals table and figures for a configuration.
 
@@ -183,24 +186,37 @@ def run(
 
     ``scheduler`` / ``workers`` choose a dask.distributed engine (see :func:`compute_engine`);
     by default the local threaded scheduler runs the graph.
+
+    Then, with ``steps``, the steps after the run that ``cfg.steps`` configures
+    (:func:`euphotic.steps.run_steps`: comparisons, figure set, methods and report), each
+    committed on its own, under the same lock; a failing step raises
+    :class:`euphotic.steps.StepError` with the run committed.
     """
     if not cfg.models:
         raise ConfigError(f"{cfg.path} [run]", "`models` is empty: name at least one model")
     cfg.models = list(dict.fromkeys(cfg.models))  # a model listed twice runs once
     prep = prepare(cfg)
     folder = runfolder.OutputFolder(Path(cfg.output_dir))
-    with folder.locked(command), compute_engine(scheduler, workers) as client:
-        return _run(cfg, prep, folder, progress=progress, command=command, client=client,
-                    force=force)
+    with folder.locked(command):
+        with compute_engine(scheduler, workers) as client:
+            result = _run(cfg, prep, folder, progress=progress, command=command, client=client,
+                          force=force)
+        if steps and cfg.steps:  # still under the lock: no other command adds in between
+            from euphotic.steps import run_steps
+
+            result.steps = run_steps(cfg, folder.path, command=command)
+    return result
 
 
 #: Bumped when a change of the code changes the bytes of maps for the same inputs.
 MAP_FORMAT = 1
 #: Bumped when map figures change.
 FIGURE_FORMAT = 2
+#: Version of the regions.nc layout (in its fingerprint).
+REGIONS_FORMAT = 1
 #: RunConfig fields that do not change what a month's map or totals contain.
 _NOT_IN_FINGERPRINT = {"path", "output_dir", "figures", "months_per_compute", "start", "end",
-                       "models"}
+                       "models", "steps"}
 
 
 def _input_files(prep: Prepared) -> dict[str, list[str]]:
@@ -425,7 +441,8 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
 
         _check_not_empty(cfg, prep, entries)
         result = _finish(cfg, prep, folder, stage, entries, keep, previous, command=command,
-                         input_files=input_files, run_id=run_id, provenance=provenance)
+                         input_files=input_files, run_id=run_id, provenance=provenance,
+                         force=force)
     except KeyboardInterrupt:
         stage.save()  # finished months stay staged for the next run to reuse
         raise
@@ -479,8 +496,31 @@ def _check_not_empty(cfg: RunConfig, prep: Prepared, entries: dict[str, dict]) -
         )
 
 
+def _region_file(cfg, prep, stage, entries, keep, previous, provenance) -> None:
+    """``regions.nc`` into the stage, or kept when the masks and areas it holds are unchanged
+    (a content fingerprint: the planes, windows, names, cell areas and region sources)."""
+    name = outputs.REGIONS_FILE
+    ds = outputs.region_dataset(
+        prep.region_masks, prep.chl["lat"].values, prep.chl["lon"].values, prep.area_rows_m2,
+        earth=cfg.earth, region_sources=provenance.get("region_sources", ""))
+    h = runfolder.hashlib.blake2b(digest_size=16)
+    for v in ("region_planes", "region_window", "cell_area", "lat", "lon"):
+        h.update(np.ascontiguousarray(ds[v].values).tobytes())
+    fp = runfolder.config_fingerprint([h.hexdigest(), list(prep.region_masks.names),
+                                       ds.attrs["region_sources"], REGIONS_FORMAT])
+    old = previous.get("outputs", {}).get(name)
+    out_dir = stage.path.parent
+    if old and old.get("fingerprint") == fp and _intact(out_dir / name, old):
+        entries[name] = old
+        keep.add(name)
+        return
+    with _writing(out_dir, "the region masks"):
+        outputs.write_regions(stage.file(name), ds)
+    entries[name] = {"kind": "regions", "fingerprint": fp, **runfolder.stat_entry(stage.file(name))}
+
+
 def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input_files, run_id,
-            provenance):
+            provenance, force=False):
     """Tables, figures and the manifest into the stage, then the commit."""
     from euphotic import __version__
 
@@ -498,6 +538,7 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
             provenance=provenance, metadata=cfg.metadata)
     entries[totals.name] = {"kind": "table", **runfolder.stat_entry(totals)}
     entries[sidecar.name] = {"kind": "table metadata", "of": totals.name, **runfolder.stat_entry(sidecar)}
+    _region_file(cfg, prep, stage, entries, keep, {} if force else previous, provenance)
 
     figures: list[Path] = []
     prev_outputs = previous.get("outputs", {})

@@ -34,9 +34,17 @@ class Region:
     mask_file: str | None = None
     mask_variable: str | None = None
     mask_values: tuple[float, ...] | None = None
+    #: (west, south, east, north) degrees when the region is a lon/lat box: its mask is then
+    #: index ranges on the axes, with no polygon test (see :func:`box_window`)
+    box: tuple[float, float, float, float] | None = None
 
     def mask(self, lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
         """Boolean (lat, lon) array: True where the cell centre is inside the region."""
+        if self.box is not None:
+            win = box_window(*self.box, lat, lon)
+            out = np.zeros((len(lat), len(lon)), dtype=bool)
+            out[win.rows, win.cols] = win.mask
+            return out
         if self.geometry is not None:
             return polygon_mask(self.geometry, lat, lon, self.name)
         return netcdf_mask(self.mask_file, self.mask_variable, self.mask_values, lat, lon)
@@ -44,6 +52,8 @@ class Region:
     def window(self, lat: np.ndarray, lon: np.ndarray) -> MaskWindow:
         """The region's mask within the grid rows and columns it can reach (same cells as
         :meth:`mask`, without allocating a whole grid for a small polygon)."""
+        if self.box is not None:
+            return box_window(*self.box, lat, lon)
         if self.geometry is not None:
             win = _polygon_window(self.geometry, lat, lon)
             if win is not None:
@@ -80,6 +90,30 @@ def box_geometry(west: float, south: float, east: float, north: float):
     if west > east:  # crosses the antimeridian, as in RFC 7946 bbox
         return MultiPolygon([box(west, south, 180.0, north), box(-180.0, south, east, north)])
     return box(west, south, east, north)
+
+
+def box_window(west: float, south: float, east: float, north: float, lat: np.ndarray,
+               lon: np.ndarray) -> MaskWindow:
+    """Cells of a lon/lat box, from index ranges on the two axes (no polygon test).
+
+    A cell is in the box when its centre satisfies ``south <= lat < north`` and lies in the
+    longitude span from ``west`` (included) eastwards to ``east`` (excluded), whatever the
+    grid's longitude convention (-180..180 or 0..360); ``west > east`` crosses the
+    antimeridian; a span of 360 degrees or more takes every longitude. Half-open edges make
+    boxes that share an edge tile the grid with no cell counted twice; ``north = 90`` includes
+    the northernmost centres.
+    """
+    lat = np.asarray(lat, dtype=np.float64)
+    lon = np.asarray(lon, dtype=np.float64)
+    rows = (lat >= south) & ((lat < north) | (north >= 90.0))
+    span = east - west if east > west else east - west + 360.0
+    cols = np.ones(len(lon), bool) if span >= 360.0 else np.mod(lon - west, 360.0) < span
+    r = np.flatnonzero(rows)
+    c = np.flatnonzero(cols)
+    if r.size == 0 or c.size == 0:
+        return MaskWindow(slice(0, 0), slice(0, 0), np.zeros((0, 0), bool))
+    rs, cs = slice(int(r[0]), int(r[-1]) + 1), slice(int(c[0]), int(c[-1]) + 1)
+    return MaskWindow(rs, cs, rows[rs, None] & cols[None, cs])
 
 
 def polygon_mask(geometry, lat: np.ndarray, lon: np.ndarray, name: str = "region") -> np.ndarray:
@@ -294,7 +328,8 @@ def regions_from_config(items: list[dict], base_dir: Path, source: str) -> list[
             if not name:
                 raise ConfigError(where, "a box region needs a `name`")
             try:
-                regions.append(Region(name, geometry=box_geometry(*map(float, b))))
+                regions.append(Region(name, geometry=box_geometry(*map(float, b)),
+                                      box=tuple(map(float, b))))
             except ValueError as exc:
                 raise ConfigError(where, str(exc)) from None
             west, east = float(b[0]), float(b[2])

@@ -20,6 +20,7 @@ import base64
 import csv
 import html
 import re
+from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
 from string import Template
@@ -34,6 +35,8 @@ from euphotic.outputs import CAUTION
 KIND = "report"
 #: The file written into the run's folder.
 FILE = "report.html"
+#: Its description in the manifest.
+DESCRIPTION = "self-contained HTML review of the run"
 #: Manifest kinds whose PNGs the report embeds, in order of preference: the figure set of
 #: ``euphotic figures`` if present, else the quick-look figures of ``euphotic run``.
 FIGURE_KINDS = ("figure set", "figure")
@@ -190,11 +193,11 @@ def _png_uri(path: Path) -> str:
     return "data:image/png;base64," + base64.b64encode(data).decode("ascii")
 
 
-def _caption(folder: Path, png: str, entry: dict) -> str:
+def _caption(locate: Callable[[str], Path], png: str, entry: dict) -> str:
     """The ``.caption.md`` beside a figure-set PNG as escaped plain text, else the manifest's
     description of the file."""
     stem = png[:-len(".png")]
-    md = folder / f"{stem}.caption.md"
+    md = locate(f"{stem}.caption.md")
     if md.is_file():
         try:
             text = md.read_text().strip()
@@ -204,7 +207,7 @@ def _caption(folder: Path, png: str, entry: dict) -> str:
     return _e(entry.get("description") or png)
 
 
-def _figures(folder: Path, outputs: dict) -> tuple[str, int]:
+def _figures(locate: Callable[[str], Path], outputs: dict) -> tuple[str, int]:
     for kind in FIGURE_KINDS:
         pngs = sorted(n for n, e in outputs.items()
                       if e.get("kind") == kind and n.lower().endswith(".png"))
@@ -215,8 +218,8 @@ def _figures(folder: Path, outputs: dict) -> tuple[str, int]:
                "</code> to draw them).</p>", 0
     parts = []
     for n in pngs:
-        parts.append(f'<figure>\n<img src="{_png_uri(folder / n)}" alt="{_e(n)}">\n'
-                     f"<figcaption><b>{_e(n)}</b>\n{_caption(folder, n, outputs[n])}"
+        parts.append(f'<figure>\n<img src="{_png_uri(locate(n))}" alt="{_e(n)}">\n'
+                     f"<figcaption><b>{_e(n)}</b>\n{_caption(locate, n, outputs[n])}"
                      "</figcaption>\n</figure>")
     return "\n".join(parts), len(pngs)
 
@@ -244,8 +247,16 @@ def _provenance(manifest: dict) -> str:
     return "\n".join(out)
 
 
-def render(folder: str | Path) -> tuple[str, int]:
+def render(folder: str | Path, *, outputs: dict[str, dict] | None = None,
+           locate: Callable[[str], Path] | None = None) -> tuple[str, int]:
     """The report page of the run committed in ``folder`` and the number of images in it.
+
+    Parameters
+    ----------
+    outputs : the manifest's outputs to describe (default: the committed manifest's); a commit
+        that adds to the folder passes what the folder will hold after it
+    locate : where the file of an output is now (default: in ``folder``); a commit passes its
+        stage for the files it adds
 
     Raises
     ------
@@ -258,15 +269,19 @@ def render(folder: str | Path) -> tuple[str, int]:
 
     folder = Path(folder).absolute()
     manifest = results.committed_manifest(folder)
-    outputs = manifest.get("outputs", {})
+    if outputs is None:
+        outputs = manifest.get("outputs", {})
+    if locate is None:
+        def locate(name: str) -> Path:
+            return folder / name
     totals = results.open_totals(folder)
     comp = sorted(n for n, e in outputs.items()
                   if e.get("kind") == COMPARISON_KIND and n.endswith(".csv"))
     comparisons = ""
     if comp:
         comparisons = "<h2>Comparisons</h2>\n" + "\n".join(
-            _csv_table(folder / n, n) for n in comp)
-    figures, n_images = _figures(folder, outputs)
+            _csv_table(locate(n), n) for n in comp)
+    figures, n_images = _figures(locate, outputs)
     m = methods_text(folder)
     paragraph = " ".join(m.text.split())
     methods = (f'<p id="methods">{_e(paragraph)}</p>\n<h3>References</h3>\n'
@@ -292,8 +307,38 @@ def write_report(folder: str | Path, *, command: str = "euphotic report") -> Wri
         Another euphotic process holds the folder.
     """
     folder = Path(folder)
-    page, n_images = render(folder)
+    results.committed_manifest(folder)  # no run, or an interrupted commit: say so, touch nothing
     with runfolder.OutputFolder(folder).adding(command, replace_kinds=(KIND,)) as (stage, added):
+        # built under the folder's lock from what is committed: no other command can add to
+        # the folder between the reading and the commit
+        page, n_images = render(folder)
         stage.file(FILE).write_text(page, encoding="utf-8")
-        added[FILE] = {"kind": KIND, "description": "self-contained HTML review of the run"}
+        added[FILE] = {"kind": KIND, "description": DESCRIPTION}
     return Written(path=folder / FILE, images=n_images)
+
+
+def rebuild(folder: str | Path, stage: runfolder.Stage, outputs: dict[str, dict],
+            added: dict[str, dict]) -> None:
+    """Rebuild ``report.html`` into ``stage`` for a commit that adds other outputs to a folder
+    holding a report, so that the report describes what the folder holds after the commit
+    (called by :meth:`euphotic.runfolder.OutputFolder.adding`, under the folder's lock).
+
+    Parameters
+    ----------
+    outputs : every output the folder will list after the commit (name -> manifest entry)
+    added : the outputs the commit writes (their files are in ``stage``); the report is added
+
+    Raises
+    ------
+    ReportError
+        As :func:`render`, with the file that cannot be put into the report; the commit then
+        fails and the folder is left as it was.
+    """
+    folder = Path(folder).absolute()
+
+    def locate(name: str) -> Path:
+        return stage.file(name) if name in added else folder / name
+
+    page, _ = render(folder, outputs=outputs, locate=locate)
+    stage.file(FILE).write_text(page, encoding="utf-8")
+    added[FILE] = {"kind": KIND, "description": DESCRIPTION}

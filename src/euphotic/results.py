@@ -30,7 +30,7 @@ import xarray as xr
 
 from euphotic import runfolder
 from euphotic.errors import EuphoticError, NoRunError
-from euphotic.outputs import CAUTION, PUBLISHED_NAMES, TOTALS_SPEC
+from euphotic.outputs import CAUTION, PUBLISHED_NAMES, REGIONS_FILE, TOTALS_SPEC
 
 #: Variables of a map file that the maps Dataset carries (the rest, bounds and the CRS
 #: variable, is not decoded at all).
@@ -46,6 +46,19 @@ TOTALS_VARIABLES: dict[str, str] = {
     "total_TgC": "total",
     "total_filled_TgC": "total_filled",
     "flag": "flag",
+}
+
+#: The totals that are masses of carbon: long name and comment. Their ``units`` stay "Tg"
+#: (teragrams), which UDUNITS parses as CF asks; "TgC" of the CSV column names is not a
+#: UDUNITS unit, so "of carbon" is said here instead.
+CARBON_TOTALS: dict[str, dict[str, str]] = {
+    "total_TgC": {
+        "long_name": "total carbon fixed in the month",
+        "comment": "mass of carbon (Tg = 1e9 kg of carbon; the table's column total_TgC)"},
+    "total_filled_TgC": {
+        "long_name": "total carbon fixed in the month (gaps filled)",
+        "comment": "mass of carbon (Tg = 1e9 kg of carbon; the table's column "
+                   "total_filled_TgC)"},
 }
 
 #: How long a reader waits for a run that is committing right now (its renames take
@@ -468,6 +481,7 @@ def open_totals(folder: str | os.PathLike) -> xr.Dataset:
         a = {"long_name": c.title, "description": c.description}
         if c.unit is not None:
             a["units"] = c.unit
+        a.update(CARBON_TOTALS.get(col, {}))
         return a
 
     data_vars = {TOTALS_VARIABLES[c]: (("region", "month", "model"), values[c], attrs(c))
@@ -485,4 +499,83 @@ def open_totals(folder: str | os.PathLike) -> xr.Dataset:
                                                "units": "1"}),
         },
         attrs=_run_attrs(path, manifest, models, cites),
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# regions
+# --------------------------------------------------------------------------------------------
+
+
+def _regions_file(folder: str | os.PathLike) -> Path:
+    path = Path(folder).absolute()
+    manifest = committed_manifest(path)
+    names = [n for n, e in manifest["outputs"].items() if e.get("kind") == "regions"]
+    if not names:
+        raise NoRunError(
+            f"{path}: the run recorded no region masks (runs before euphotic wrote "
+            f"{REGIONS_FILE}); run it again to write them")
+    return _check_output(path, names[0], manifest["outputs"][names[0]])
+
+
+def open_region_masks(folder: str | os.PathLike):
+    """The region masks of the run committed in ``folder`` as the run used them.
+
+    Returns
+    -------
+    euphotic.aggregate.RegionMasks
+        A mapping region name -> boolean (lat, lon) mask (unpacked on access), in the run's
+        order, with ``lat``, ``lon`` (degrees) and ``cell_area_m2`` (m2 of a cell in each
+        row) added as attributes.
+    """
+    from euphotic.aggregate import RegionMasks
+
+    path = _regions_file(folder)
+    with xr.open_dataset(path, engine="netcdf4") as ds:
+        ds = ds.load()
+    names = [str(n) for n in ds["region_name"].values]
+    attrs = ds["region_planes"].attrs
+    planes = ds["region_planes"].values.astype(attrs.get("packed_type", "uint16"))
+    bit_regions = tuple(int(b) for b in np.atleast_1d(attrs.get("bit_regions", [])))
+    win = ds["region_window"].values.reshape(len(names), 4)
+    windows = [(slice(int(a), int(b)), slice(int(c), int(d))) for a, b, c, d in win]
+    masks = RegionMasks(names, planes if planes.shape[0] else None,
+                        n_label_layers=int(attrs.get("n_label_layers", 0)),
+                        bit_regions=bit_regions, windows=windows)
+    masks.lat = ds["lat"].values
+    masks.lon = ds["lon"].values
+    masks.cell_area_m2 = ds["cell_area"].values
+    masks.region_sources = ds.attrs.get("region_sources", "")
+    return masks
+
+
+def open_regions(folder: str | os.PathLike) -> xr.Dataset:
+    """The run's regions as a labelled Dataset, for notebooks and per-cell region work.
+
+    Returns
+    -------
+    xarray.Dataset
+        ``mask (region, lat, lon)``: bool, True where the cell centre is inside the region
+        (dask-backed, one chunk per region, unpacked only when computed); ``cell_area
+        (lat, lon)``: m2 (dask-backed broadcast of the per-row areas). Coordinates ``region``
+        (names, in the run's order), ``lat``, ``lon``. Attributes: ``region_sources`` (how
+        each region was defined).
+    """
+    import dask
+    import dask.array as dsa
+
+    masks = open_region_masks(folder)
+    shape = (len(masks.lat), len(masks.lon))
+    parts = [dsa.from_delayed(dask.delayed(masks.__getitem__)(n), shape=shape, dtype=bool)
+             for n in masks.names]
+    mask = (dsa.stack(parts) if parts else dsa.zeros((0, *shape), dtype=bool))
+    area = dsa.broadcast_to(dsa.from_array(masks.cell_area_m2[:, None]), shape)
+    return xr.Dataset(
+        {
+            "mask": (("region", "lat", "lon"), mask,
+                     {"long_name": "cell centre inside the region"}),
+            "cell_area": (("lat", "lon"), area, {"standard_name": "cell_area", "units": "m2"}),
+        },
+        coords={"region": masks.names, "lat": masks.lat, "lon": masks.lon},
+        attrs={"region_sources": masks.region_sources},
     )

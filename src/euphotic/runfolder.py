@@ -35,6 +35,7 @@ import os
 import re
 import shutil
 import socket
+import threading
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -51,6 +52,14 @@ MANIFEST_NAME = "euphotic_manifest.json"
 #: Written by versions before staging existed: ``.NAME.part-PID`` beside the outputs.
 _LEGACY_PART = re.compile(r"^\..+\.part-(\d+)$")
 _STAGE_RE = re.compile(r"^\.euphotic-stage-(\d{8}T\d{6}Z)-(\d+)$")
+#: Folders whose lock this process holds: real path -> id of the thread holding it. A command
+#: that adds to a folder its own thread already holds (the steps of ``euphotic run`` after its
+#: maps are committed) works under that lock instead of asking for it again.
+_HELD: dict[str, int] = {}
+#: Outputs that describe the whole folder, rebuilt in every commit that adds to a folder
+#: holding one (so they are never stale): manifest kind -> ``module:function`` called as
+#: ``function(folder, stage, outputs, added)`` before the commit (see :meth:`OutputFolder.adding`).
+REBUILT_KINDS: dict[str, str] = {"report": "euphotic.report:rebuild"}
 
 
 class OutputBusyError(EuphoticError):
@@ -237,10 +246,20 @@ class OutputFolder:
 
     @contextlib.contextmanager
     def locked(self, command: str) -> Iterator[OutputFolder]:
-        """Hold the folder for one run; a second run refuses with :class:`OutputBusyError`."""
+        """Hold the folder for one run; a second run refuses with :class:`OutputBusyError`.
+
+        Re-entrant within one thread: when this thread already holds the folder (a command
+        adding to the folder from inside ``euphotic run``), the lock is kept as it is and
+        released by its first holder. Another thread or process still refuses.
+        """
+        key = os.path.realpath(self.path)
+        if _HELD.get(key) == threading.get_ident():
+            yield self
+            return
         created = not self.path.exists()
         self.path.mkdir(parents=True, exist_ok=True)
         self.lock.acquire(command)
+        _HELD[key] = threading.get_ident()
         try:
             if self.lock.took_over:
                 o = self.lock.took_over
@@ -250,6 +269,7 @@ class OutputFolder:
                 )
             yield self
         finally:
+            _HELD.pop(key, None)
             if created and [p.name for p in self.path.iterdir()] == [LOCK_NAME]:
                 # a first run into a new folder that failed: leave no folder behind
                 self.lock.path.unlink()
@@ -380,7 +400,10 @@ class OutputFolder:
         caller writes into the stage (each entry with a ``kind``). On success the new files are
         committed together with an updated manifest that keeps every earlier output, except
         those of a kind in ``replace_kinds`` that the caller did not write again (a new set of
-        comparison tables replaces the old set). On any failure nothing changes.
+        comparison tables replaces the old set). An output that describes the whole folder
+        (:data:`REBUILT_KINDS`: the run report) and that the caller did not write is rebuilt
+        into the same commit from what the folder will hold after it. On any failure nothing
+        changes.
 
         Raises
         ------
@@ -401,6 +424,7 @@ class OutputFolder:
                 yield stage, added
                 outputs = {n: e for n, e in previous["outputs"].items()
                            if e.get("kind") not in replace_kinds or n in added}
+                self._rebuild(stage, {**outputs, **added}, added)
                 for name in added:
                     added[name] = {**added[name], **stat_entry(stage.file(name))}
                 outputs.update(added)
@@ -411,6 +435,17 @@ class OutputFolder:
             except BaseException:
                 self.abort(stage)
                 raise
+
+    def _rebuild(self, stage: Stage, outputs: dict[str, dict], added: dict[str, dict]) -> None:
+        """Rebuild into ``stage`` every output of a :data:`REBUILT_KINDS` kind that the folder
+        will hold after this commit and that the caller did not write itself."""
+        import importlib
+
+        for kind, target in REBUILT_KINDS.items():
+            held = [n for n, e in outputs.items() if e.get("kind") == kind]
+            if held and not any(n in added for n in held):
+                module, func = target.split(":")
+                getattr(importlib.import_module(module), func)(self.path, stage, outputs, added)
 
     def abort(self, stage: Stage) -> bool:
         """Remove a stage after a failure: nothing of the run is put in place. A stage whose
