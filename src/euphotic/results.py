@@ -271,6 +271,22 @@ def _open_map(path: Path, chunks) -> xr.Dataset:
     return ds
 
 
+def _values(ds: xr.Dataset, v: str):
+    """Lazy values of a map variable: read by :mod:`euphotic.chunkread` (whole stored chunks
+    decompressed outside the HDF5 lock, so threads read in parallel; identical values, then
+    CF-decoded as xarray does) where the file allows it and the blocks are the stored chunks;
+    otherwise the netCDF library's reads of the opened file."""
+    from euphotic import chunkread
+    from euphotic.readers import _decode_raw
+
+    src = ds.encoding.get("source")
+    if src and Path(src).is_file() and chunkread.enabled():
+        raw = chunkread.dask_array(src, v)
+        if raw is not None and raw.shape == ds[v].shape and raw.chunks == ds[v].data.chunks:
+            return _decode_raw(raw, ds[v].dims, v, ds[v].encoding)
+    return ds[v].data
+
+
 def _manifest_id(folder: Path) -> tuple | None:
     """Identity of the manifest file: a commit replaces it (new inode and time)."""
     try:
@@ -407,7 +423,7 @@ def open_maps(
             for mo in month_list:
                 ds = files.get((m, mo))
                 if ds is not None:
-                    blocks.append(ds[v].data)
+                    blocks.append(_values(ds, v))
                 else:  # no map of this model for this month: NaN, lazily, in the same chunks
                     blocks.append(da.full(template.shape, np.nan, dtype=template.dtype,
                                           chunks=template.data.chunks))
