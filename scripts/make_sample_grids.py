@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import argparse
 import shutil
+import sys
 from pathlib import Path
 
 import numpy as np
@@ -165,7 +166,7 @@ def main(out: Path) -> None:
         )
         cds.to_netcdf(
             out / "chl" / f"maren_chl_{str(day).replace('-', '')}.nc",
-            encoding={"chlor": {"zlib": True, "complevel": 6, "_FillValue": np.float32(-999.0)}},
+            encoding={"chlor": {"zlib": True, "complevel": 4, "_FillValue": np.float32(-999.0)}},
         )
 
         cloud_factor = 0.55 + 0.4 * (smooth_noise(rng, (ny, nx), 20) * 0.5 + 0.5).clip(0, 1)
@@ -313,3 +314,10 @@ if __name__ == "__main__":
     args = ap.parse_args()
     main(args.out)
     decade(args.out)
+    # the demo stations are drawn from the demo's own daily model values (configs/demo.toml,
+    # which reads sample_grids/): written again here because main() clears the folder
+    if args.out.resolve() == (Path(__file__).resolve().parents[1] / "sample_grids"):
+        sys.path.insert(0, str(Path(__file__).resolve().parent))
+        from make_sample_stations import main as make_stations
+
+        print(f"wrote {make_stations(args.out / 'stations')}")
