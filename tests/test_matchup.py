@@ -281,3 +281,20 @@ def test_extraction_benchmark_runs_tiny(tmp_path):
     assert "reference: every chunk read once" in res.stdout
     for layout in ("uniform", "cruises"):
         assert f"{layout}: 40 stations:" in res.stdout
+
+
+def test_the_report_shows_the_matchups(demo):
+    """The April demo's [matchup] step leaves its outputs in the run; the report embeds both
+    match-up figures (byte for byte), their captions and the summary sentences."""
+    import base64
+    import re
+
+    res = CliRunner().invoke(main, ["report", str(demo)])
+    assert res.exit_code == 0, res.output
+    page = (demo / "report.html").read_text()
+    assert "<h2>Station match-ups</h2>" in page
+    assert "<li>Over all stations the VGPM estimate is within a factor of 2 of carbon-14" in page
+    for png in ("matchup_scatter.png", "matchup_target.png"):
+        m = re.search(rf'<img src="data:image/png;base64,([^"]+)" alt="{png}">', page)
+        assert m and base64.b64decode(m.group(1)) == (demo / png).read_bytes()
+    assert "Target diagram (Jolliff et al. 2009)" in page

@@ -42,6 +42,8 @@ DESCRIPTION = "self-contained HTML review of the run"
 FIGURE_KINDS = ("figure set", "figure")
 #: Manifest kind of the tables written by ``euphotic compare``.
 COMPARISON_KIND = "comparison"
+#: Manifest kind of the station match-ups written by ``euphotic matchup`` (or its step).
+MATCHUP_KIND = "matchup"
 #: The first eight bytes of every PNG file (PNG specification, section 5.2).
 PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
 _BOLD = re.compile(r"\*\*(.+?)\*\*")
@@ -79,6 +81,7 @@ _PAGE = Template("""<!DOCTYPE html>
 <h2>Regional totals</h2>
 $totals
 $comparisons
+$matchups
 <h2>Figures</h2>
 $figures
 <h2>Methods</h2>
@@ -224,6 +227,44 @@ def _figures(locate: Callable[[str], Path], outputs: dict) -> tuple[str, int]:
     return "\n".join(parts), len(pngs)
 
 
+def _matchups(locate: Callable[[str], Path], outputs: dict) -> tuple[str, int]:
+    """The station match-ups: the summary sentences, the figures with their captions and the
+    statistics table (empty when the run has none)."""
+    names = {n for n, e in outputs.items() if e.get("kind") == MATCHUP_KIND}
+    if not names:
+        return "", 0
+    summary = ""
+    if "matchup_summary.md" in names:
+        try:
+            summary = locate("matchup_summary.md").read_text()
+        except (OSError, UnicodeDecodeError) as exc:
+            raise ReportError(f"{locate('matchup_summary.md')}: cannot read the match-up "
+                              f"summary ({exc})") from None
+    lines = summary.splitlines()
+    words = []
+    if "## In words" in lines:
+        for ln in lines[lines.index("## In words") + 1:]:
+            if ln.startswith("## "):
+                break
+            if ln.startswith("- "):
+                words.append(ln[2:])
+    caps = {ln.split(": ", 1)[0]: ln.split(": ", 1)[1] for ln in lines
+            if ln.startswith("matchup_") and ": " in ln}
+    parts = ["<h2>Station match-ups</h2>"]
+    if words:
+        parts.append("<ul>" + "".join(f"<li>{_e(w)}</li>" for w in words) + "</ul>")
+    n_images = 0
+    for n in sorted(x for x in names if x.lower().endswith(".png")):
+        stem = n.rsplit(".", 1)[0]
+        cap = caps.get(stem) or outputs[n].get("description") or n
+        parts.append(f'<figure>\n<img src="{_png_uri(locate(n))}" alt="{_e(n)}">\n'
+                     f"<figcaption><b>{_e(n)}</b>\n{_e(cap)}</figcaption>\n</figure>")
+        n_images += 1
+    if "matchup_statistics.csv" in names:
+        parts.append(_csv_table(locate("matchup_statistics.csv"), "matchup_statistics.csv"))
+    return "\n".join(parts), n_images
+
+
 def _coverage_items(manifest: dict) -> list[tuple[str, str]]:
     """The run's coverage rule, and the one its comparisons used where that differs."""
     from euphotic.compare_outputs import rule_words
@@ -298,6 +339,8 @@ def render(folder: str | Path, *, outputs: dict[str, dict] | None = None,
         comparisons = "<h2>Comparisons</h2>\n" + "\n".join(
             _csv_table(locate(n), n) for n in comp)
     figures, n_images = _figures(locate, outputs)
+    matchups, n_match = _matchups(locate, outputs)
+    n_images += n_match
     m = methods_text(folder)
     paragraph = " ".join(m.text.split())
     methods = (f'<p id="methods">{_e(paragraph)}</p>\n<h3>References</h3>\n'
@@ -305,7 +348,7 @@ def render(folder: str | Path, *, outputs: dict[str, dict] | None = None,
     page = _PAGE.substitute(
         css=_CSS, run_id=_e(manifest.get("run_id", "")), created=_e(manifest.get("created", "")),
         version=_e(manifest.get("version", "")), caution=_e(manifest.get("caution") or CAUTION),
-        totals=totals_table(totals), comparisons=comparisons, figures=figures, methods=methods,
+        totals=totals_table(totals), comparisons=comparisons, matchups=matchups, figures=figures, methods=methods,
         provenance=_provenance(manifest), tool_version=_e(__version__),
         now=_e(runfolder.now_iso()))
     return page, n_images
