@@ -122,3 +122,12 @@ def test_compiled_path_stays_lazy(no_compute):
         an = compare.anomalies(maps, clim)
         tm = compare.trend_map(maps, annual=True)
     assert all(v.chunks is not None for ds in (clim, an, tm) for v in ds.data_vars.values())
+
+
+def test_compiled_anomalies_of_lazy_maps_against_an_in_memory_climatology():
+    maps = _gappy_maps()
+    eager = maps.compute()
+    clim = compare.climatology(eager)  # numpy-backed, from the groupby path
+    lazy = compare.anomalies(maps, clim, relative=True)
+    assert lazy["anomaly"].chunks is not None
+    xr.testing.assert_allclose(lazy.compute(), compare.anomalies(eager, clim, relative=True), rtol=1e-12)
