@@ -212,7 +212,10 @@ PASS = textwrap.dedent('''
     import netCDF4
     import numpy as np
     from euphotic import compare, results
+    import numbagg
+    import xarray as xr
     folder, out, rows, cols = sys.argv[1], sys.argv[2], int(sys.argv[3]), int(sys.argv[4])
+    brows, bcols = int(sys.argv[5]), int(sys.argv[6])
     times = {"imports": time.perf_counter() - t0}
     t = time.perf_counter()
     maps = results.open_maps(folder)
@@ -237,12 +240,21 @@ PASS = textwrap.dedent('''
         for i in range(0, ny, rows):
             for j in range(0, nx, cols):
                 w = maps.isel(lat=slice(i, i + rows), lon=slice(j, j + cols))
+                if brows:  # time-contiguous blocks once, shared by the three computations
+                    tc = {k: v.variable for k, v in w.coords.items() if k not in w.dims}
+                    w = w.chunk({"time": -1, "lat": brows, "lon": bcols}).assign_coords(tc)
                 clim = compare.climatology(w)
                 anom = compare.anomalies(w, clim)["anomaly"]
                 tmap = compare.trend_map(w, annual=True)
+                # population standard deviation over time per cell; on time-contiguous blocks
+                # numbagg's one-pass kernel (dask's std makes several passes over float64)
+                sd = (xr.apply_ufunc(numbagg.nanstd, anom, input_core_dims=[["time"]],
+                                     kwargs={"axis": -1, "ddof": 0}, dask="parallelized",
+                                     output_dtypes=[np.float64])
+                      if brows else anom.std("time"))
                 # the statistics as DataArrays: dask.compute of the trend Dataset itself
                 # fails with "Missing dependency" (dask 2026.8 / xarray 2026.9; .compute() works)
-                c, sd, s, *tm = dask.compute(clim["climatology"], anom.std("time"),
+                c, sd, s, *tm = dask.compute(clim["climatology"], sd,
                                              anom.sum(("lat", "lon")), *[tmap[k] for k in stats])
                 tm = dict(zip(stats, tm, strict=True))
                 sl = (slice(i, i + rows), slice(j, j + cols))
@@ -273,12 +285,16 @@ def main() -> None:
                     help="where the synthetic run is written once and reused")
     ap.add_argument("--repeats", type=int, default=1, help="passes of (a) and (b); best kept")
     ap.add_argument("--skip", default="", help="comma-separated steps to skip: b2, c")
-    ap.add_argument("--window", default="270x1080",
-                    help="cells per spatial window of the pass, ROWSxCOLS (default 270x1080: half a "
+    ap.add_argument("--window", default="540x1080",
+                    help="cells per spatial window of the pass, ROWSxCOLS (default 540x1080: one "
                          "stored chunk of the maps, all months)")
+    ap.add_argument("--block", default="180x180",
+                    help="each window rechunked once to time-contiguous blocks of ROWSxCOLS cells "
+                         "(default 180x180, within compare.TREND_BLOCK_BYTES so trend_map keeps them; 0x0: keep the maps' one-month chunks)")
     a = ap.parse_args()
     n = cells_per_degree(a.res)
     rows, cols = (int(x) for x in a.window.lower().split("x"))
+    brows, bcols = (int(x) for x in a.block.lower().split("x"))
     skip = {s.strip() for s in a.skip.split(",") if s.strip()}
     a.workdir.mkdir(parents=True, exist_ok=True)
     print(f"{a.years} years of monthly maps at 1/{n} degree ({180 * n} x {360 * n})", flush=True)
@@ -292,7 +308,7 @@ def main() -> None:
         floors.append(read_floor(files))
         warm(files)
         wall, peak, out = run_measured([py, "-c", PASS, str(folder), str(a.workdir / "pass_out.nc"),
-                                        str(rows), str(cols)])
+                                        str(rows), str(cols), str(brows), str(bcols)])
         passes.append((wall, peak, parse_times(out)))
     floor = min(floors)
     wall, peak, times = min(passes, key=lambda p: p[0])

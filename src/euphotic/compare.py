@@ -38,7 +38,7 @@ from typing import Any, Literal
 import numpy as np
 import xarray as xr
 
-from euphotic import trendstats
+from euphotic import monthstats, trendstats
 from euphotic.constants import G_PER_TG
 from euphotic.errors import EuphoticError
 
@@ -147,9 +147,13 @@ def _select(
     variable: str | None,
     min_coverage: float | None,
     low_coverage: LowCoverage | None = None,
+    *,
+    float64: bool = True,
 ) -> tuple[xr.DataArray, dict[str, Any], dict[str, xr.DataArray]]:
     """The variable to work on (masked by the coverage rule), the attrs to carry, and any lazy
-    count."""
+    count. ``float64=False`` leaves a numeric variable in its own dtype (for the compiled
+    kernels, which accumulate in float64)."""
+    as_float = _as_float64 if float64 else _numeric
     _check_fraction("min_coverage", min_coverage)
     tdim = _time_dim(x)
     if "month" not in x.coords or x["month"].dims != (tdim,):
@@ -165,13 +169,13 @@ def _select(
             raise CompareInputError(
                 f"{what}: needs the 'coverage' variable; pass the Dataset, not the DataArray {x.name!r}"
             )
-        return _as_float64(x), attrs, {}
+        return as_float(x), attrs, {}
     name = variable or _DEFAULT_VARIABLE[_kind(x)]
     if name not in x.data_vars:
         raise CompareInputError(
             f"variable {name!r}: not in the dataset (has {sorted(map(str, x.data_vars))})"
         )
-    da = _as_float64(x[name])
+    da = as_float(x[name])
     extra: dict[str, xr.DataArray] = {}
     threshold, how = coverage_rule(x, min_coverage=min_coverage, low_coverage=low_coverage)
     for key in ("min_coverage", "low_coverage", "n_dropped_low_coverage", "n_flagged_low_coverage"):
@@ -196,12 +200,16 @@ def _select(
     return da, attrs, extra
 
 
-def _as_float64(da: xr.DataArray) -> xr.DataArray:
-    """Float64 for the arithmetic (float32 maps lose digits in differences of means), lazily."""
-    if da.dtype == np.float64:
-        return da
+def _numeric(da: xr.DataArray) -> xr.DataArray:
     if not np.issubdtype(da.dtype, np.number):
         raise CompareInputError(f"variable {da.name!r}: not numeric (dtype {da.dtype})")
+    return da
+
+
+def _as_float64(da: xr.DataArray) -> xr.DataArray:
+    """Float64 for the arithmetic (float32 maps lose digits in differences of means), lazily."""
+    if _numeric(da).dtype == np.float64:
+        return da
     out = da.astype(np.float64)
     out.attrs = dict(da.attrs)
     return out
@@ -268,6 +276,49 @@ def _period_label(years: Years) -> str:
     if isinstance(chosen, tuple):
         return str(chosen[0]) if chosen[0] == chosen[1] else f"{chosen[0]}-{chosen[1]}"
     return "all" if chosen is None else ",".join(map(str, chosen))
+
+
+# --------------------------------------------------------------------------------------------
+# compiled path for dask-backed maps (climatology and anomalies in one pass over each block)
+
+_CALENDAR_MONTHS = np.arange(1, MONTHS_PER_YEAR + 1)
+
+
+def _compiled_path(da: xr.DataArray) -> bool:
+    """Dask-backed maps of floats go through the block kernels of :mod:`euphotic.monthstats`
+    (same values as the groupby path to float64 rounding; no float64 copy of the stack)."""
+    return _is_lazy(da) and "time" in da.dims and da.dtype in (np.float32, np.float64)
+
+
+def _calendar_means(da: xr.DataArray) -> tuple[xr.DataArray, xr.DataArray]:
+    """Mean and count by calendar month of lazy maps, a time-contiguous block at a time."""
+    series = _time_contiguous(_drop_time_coords(da), "time")
+    group = _calendar_of(da).values.astype(np.int64) - 1
+    mean, n = xr.apply_ufunc(
+        monthstats.group_mean, series, kwargs={"group": group, "n_groups": MONTHS_PER_YEAR},
+        input_core_dims=[["time"]], output_core_dims=[["calendar_month"], ["calendar_month"]],
+        dask="parallelized", output_dtypes=[np.float64, np.int64],
+        dask_gufunc_kwargs={"output_sizes": {"calendar_month": MONTHS_PER_YEAR}},
+    )
+    order = ["calendar_month" if d == "time" else d for d in da.dims]
+    mean, n = (v.assign_coords(calendar_month=_CALENDAR_MONTHS).transpose(*order) for v in (mean, n))
+    return mean.rename(da.name), n.rename(da.name)
+
+
+def _departures(da: xr.DataArray, c: xr.DataArray) -> xr.DataArray:
+    """``da`` minus ``c`` of its calendar month (float64), a time-contiguous block at a time;
+    indexes must match exactly (a ValueError otherwise)."""
+    tcoords = [k for k, v in da.coords.items() if k not in da.dims and "time" in v.dims]
+    series = _time_contiguous(da.drop_vars(tcoords), "time")  # (chunk() would chunk them too)
+    group = _calendar_of(da).values.astype(np.int64) - 1
+    c = c.chunk({"calendar_month": -1}) if _is_lazy(c) else c
+    anom = xr.apply_ufunc(
+        monthstats.departures, series, c, kwargs={"group": group},
+        input_core_dims=[["time"], ["calendar_month"]], output_core_dims=[["time"]],
+        dask="parallelized", output_dtypes=[np.float64], join="exact",
+    )
+    anom = anom.assign_coords({k: da.coords[k] for k in tcoords})
+    return anom.transpose(*[d for d in da.dims if d in anom.dims], ...)
 
 
 # --------------------------------------------------------------------------------------------
@@ -444,16 +495,20 @@ def climatology(
         dimension ``calendar_month`` (1-12). A calendar month without any value in the
         baseline is NaN, not 0. Attrs ``baseline_first``, ``baseline_last``.
     """
-    da, attrs, extra = _select(x, variable, min_coverage, low_coverage)
+    da, attrs, extra = _select(x, variable, min_coverage, low_coverage, float64=False)
     if baseline is None:
         yr = _years_of(da).values
         baseline = (int(yr.min()), int(yr.max()))
     elif not (isinstance(baseline, tuple) and len(baseline) == 2):
         raise CompareInputError(f"baseline: expected (first_year, last_year), got {baseline!r}")
     da = _pick_years(da, baseline, "baseline")
-    clim = _by_calendar_month(da.groupby(_calendar_of(da)).mean(skipna=True))
+    if _compiled_path(da):
+        clim, n = _calendar_means(da)
+    else:
+        da = _as_float64(da)
+        clim = _by_calendar_month(da.groupby(_calendar_of(da)).mean(skipna=True))
+        n = _by_calendar_month(da.notnull().groupby(_calendar_of(da)).sum()).fillna(0).astype(np.int64)
     clim.attrs = {"units": _units(da), "long_name": f"mean of {da.name} by calendar month over the baseline"}
-    n = _by_calendar_month(da.notnull().groupby(_calendar_of(da)).sum()).fillna(0).astype(np.int64)
     n.attrs = {"units": "1", "long_name": "baseline years with a value"}
     attrs.update(
         source_variable=str(da.name), baseline_first=int(baseline[0]), baseline_last=int(baseline[1])
@@ -462,7 +517,11 @@ def climatology(
     below = _below_rule(x, attrs, str(da.name))
     if below is not None:
         below = _pick_years(below, baseline, "baseline")
-        n_low = _by_calendar_month(below.groupby(_calendar_of(below)).sum()).fillna(0).astype(np.int64)
+        if _is_lazy(below) and "time" in below.dims:  # the count as a mean of 0/1 times n
+            share, months = _calendar_means(below.astype(np.float32))
+            n_low = (share * months).where(months > 0, 0).round().astype(np.int64)
+        else:
+            n_low = _by_calendar_month(below.groupby(_calendar_of(below)).sum()).fillna(0).astype(np.int64)
         n_low.attrs = {"units": "1", "long_name": "baseline years below the coverage rule "
                        "(dropped with 'drop', kept with 'flag')"}
         data["n_low_coverage"] = _drop_time_coords(n_low)
@@ -504,7 +563,7 @@ def anomalies(
     -----
     anomaly = x - clim[calendar month]; anomaly_percent = 100 * anomaly / clim[calendar month].
     """
-    da, attrs, extra = _select(x, variable, min_coverage, low_coverage)
+    da, attrs, extra = _select(x, variable, min_coverage, low_coverage, float64=False)
     c = clim["climatology"] if isinstance(clim, xr.Dataset) else clim
     if "calendar_month" not in c.dims:
         raise CompareInputError("clim: no 'calendar_month' dimension (pass the output of climatology())")
@@ -514,10 +573,13 @@ def anomalies(
         )
     if _units(c) != _units(da):
         raise CompareInputError(f"clim: units {_units(c)!r} differ from {da.name!r} units {_units(da)!r}")
+    compiled = _compiled_path(da) and np.array_equal(c["calendar_month"].values, _CALENDAR_MONTHS)
+    if not compiled:
+        da = _as_float64(da)
     per_month = c.sel(calendar_month=_calendar_of(da)).drop_vars("calendar_month")
     try:
         with xr.set_options(arithmetic_join="exact"):
-            anom = da - per_month
+            anom = _departures(da, c) if compiled else da - per_month
             pct = 100.0 * anom / per_month.where(per_month != 0) if relative else None
     except ValueError as exc:
         raise CompareInputError(
@@ -831,10 +893,24 @@ def _annual_values(da: xr.DataArray) -> xr.DataArray:
     """Yearly values: sums of monthly amounts (Tg -> Tg yr-1) or means of rates; years with
     fewer than 12 months are NaN."""
     years = _years_of(da)
-    g = da.groupby(years)
     extensive = _units(da) == "Tg"
-    val = g.sum(skipna=True, min_count=1) if extensive else g.mean(skipna=True)
-    n = da.notnull().groupby(years).sum()
+    if _compiled_path(da):  # one pass over each time-contiguous block (euphotic.monthstats)
+        labels, group = np.unique(years.values, return_inverse=True)
+        series = _time_contiguous(_drop_time_coords(da), "time")
+        mean, n = xr.apply_ufunc(
+            monthstats.group_mean, series, kwargs={"group": group, "n_groups": labels.size},
+            input_core_dims=[["time"]], output_core_dims=[["year"], ["year"]],
+            dask="parallelized", output_dtypes=[np.float64, np.int64],
+            dask_gufunc_kwargs={"output_sizes": {"year": labels.size}},
+        )
+        val = (mean * n).where(n > 0) if extensive else mean
+        val = val.assign_coords(year=labels)
+        n = n.assign_coords(year=labels)
+    else:
+        da = _as_float64(da)
+        g = da.groupby(years)
+        val = g.sum(skipna=True, min_count=1) if extensive else g.mean(skipna=True)
+        n = da.notnull().groupby(years).sum()
     val = val.where(n >= MONTHS_PER_YEAR)
     val.attrs = {"units": "Tg yr-1" if extensive else _units(da)}
     return val.rename(da.name)
@@ -853,7 +929,7 @@ def _trend(
 ) -> xr.Dataset:
     if not 0.0 < float(alpha) < 1.0:
         raise CompareInputError(f"alpha: must be between 0 and 1 (exclusive), got {alpha!r}")
-    da, attrs, extra = _select(x, variable, min_coverage, low_coverage)
+    da, attrs, extra = _select(x, variable, min_coverage, low_coverage, float64=False)
     record_years = _years_of(da).values
     y0 = int(record_years.min())
     if annual:
@@ -864,6 +940,7 @@ def _trend(
         basis = "annual"
     else:
         sdim = _time_dim(da)
+        da = _as_float64(da)
         series = da
         if deseasonalise:
             clim = climatology(da)["climatology"]
