@@ -472,18 +472,230 @@ def _regions_text(layer: RegionLayer, *, legend: bool = False) -> str:
 # the figures
 
 
-def _period_maps(maps: xr.Dataset, span: tuple[int, int]) -> xr.Dataset:
-    years = maps["month"].dt.year
-    sel = maps.isel(time=np.flatnonzero(((years >= span[0]) & (years <= span[1])).values))
+#: At most this many grid cells are drawn per pixel of the PNG across a map panel: the
+#: period means are reduced to it by area-weighted block means before they are drawn (more
+#: cells than pixels cannot show; the brief's "about 2 cells per output pixel").
+MAX_CELLS_PER_PIXEL = 2.0
+
+PeriodMeans = dict  # (first_year, last_year) -> Dataset, see :func:`period_means`
+
+
+def _reduce_factor(ny: int, nx: int, *, panel_width_in: float) -> int:
+    """Cells per side of a square block so that a panel ``panel_width_in`` inches wide (and
+    at most :data:`MAX_PANEL_HEIGHT_MM` tall) gets at most :data:`MAX_CELLS_PER_PIXEL` cells
+    per PNG pixel (:data:`DPI`) in either direction."""
+    w_px = max(panel_width_in, 0.1) * DPI
+    h_px = MAX_PANEL_HEIGHT_MM / MM_PER_INCH * DPI
+    return max(1, math.ceil(max(nx / (MAX_CELLS_PER_PIXEL * w_px),
+                                ny / (MAX_CELLS_PER_PIXEL * h_px))))
+
+
+def _widest_panel_in(width: Width) -> float:
+    """Width (inches) of the widest map panel of any figure at ``width`` (one panel)."""
+    return WIDTHS_MM[width] / MM_PER_INCH - 0.6
+
+
+def _panel_width_in(ncols: int, width: Width) -> float:
+    return (WIDTHS_MM[width] / MM_PER_INCH - 0.6) / ncols
+
+
+def block_mean(values: np.ndarray, weights: np.ndarray, factor: int
+               ) -> tuple[np.ndarray, np.ndarray]:
+    """Weighted mean of ``values`` over square blocks of ``factor`` x ``factor`` cells of
+    the last two axes, NaN cells left out.
+
+    Parameters
+    ----------
+    values : array (..., lat, lon)
+        Any quantity (NaN: no value).
+    weights : array broadcastable to ``values``
+        Weight of each cell (cell area, m2, or a sum of areas from an earlier reduction).
+    factor : int
+        Cells per block side; the last block of a side holds the cells left over.
+
+    Returns
+    -------
+    (mean, weight) : arrays (..., ceil(lat / factor), ceil(lon / factor))
+        ``sum(w v) / sum(w)`` over the block's cells with a value (NaN where none has one)
+        and ``sum(w)`` over those cells (same units as ``weights``), so that block means of
+        block means stay exact.
+    """
+    v = np.asarray(values, dtype=np.float64)
+    w = np.broadcast_to(np.asarray(weights, dtype=np.float64), v.shape)
+    ok = np.isfinite(v)
+    w = np.where(ok, w, 0.0)
+    vw = np.where(ok, v, 0.0) * w
+    ny, nx = v.shape[-2:]
+    py, px = -ny % factor, -nx % factor
+    pad = [(0, 0)] * (v.ndim - 2) + [(0, py), (0, px)]
+    shape = (*v.shape[:-2], (ny + py) // factor, factor, (nx + px) // factor, factor)
+    s = np.pad(vw, pad).reshape(shape).sum(axis=(-3, -1))
+    sw = np.pad(w, pad).reshape(shape).sum(axis=(-3, -1))
     with np.errstate(all="ignore"):
-        mean = sel["npp"].mean("time", skipna=True)
-        cov = sel["coverage"].mean("time", skipna=True)
-    return xr.Dataset({"npp": mean, "coverage": cov}).load()
+        mean = np.where(sw > 0, s / sw, np.nan)
+    return mean, sw
+
+
+def _block_axis(c: np.ndarray, factor: int) -> np.ndarray:
+    """Centres of the blocks of ``factor`` cells along an axis of centres ``c`` (midpoints
+    of the blocks' outer cell edges)."""
+    if factor == 1:
+        return np.asarray(c)
+    e = _edges(c)
+    be = np.concatenate([e[::factor], [e[-1]]]) if (len(c) % factor) else e[::factor]
+    return (be[1:] + be[:-1]) / 2
+
+
+def _reduce_dataset(ds: xr.Dataset, factor: int) -> xr.Dataset:
+    """Block means (:func:`block_mean`) of ``npp`` and ``coverage`` of a reduced period mean
+    (numpy-backed, with the weights ``npp_weight`` / ``coverage_weight``)."""
+    if factor == 1:
+        return ds
+    lat = _block_axis(ds["lat"].values, factor)
+    lon = _block_axis(ds["lon"].values, factor)
+    out = {}
+    for v in ("npp", "coverage"):
+        m, w = block_mean(ds[v].values, ds[f"{v}_weight"].values, factor)
+        out[v] = (ds[v].dims, m)
+        out[f"{v}_weight"] = (ds[v].dims, w)
+    return xr.Dataset(out, coords={"model": ds["model"].values, "lat": lat, "lon": lon},
+                      attrs={**ds.attrs, "block": ds.attrs.get("block", 1) * factor})
+
+
+def period_means(maps: xr.Dataset, spans, *, width: Width = "two-column",
+                 min_coverage: float | None = None) -> PeriodMeans:
+    """Mean rate and coverage of every span in ``spans``, per model, in one computation.
+
+    Parameters
+    ----------
+    maps : the Dataset of :func:`euphotic.results.open_maps` (npp in mg m-2 d-1 of carbon,
+        coverage 0-1)
+    spans : iterable of (first_year, last_year), both included
+    width : keyword-only
+        Print width: the means are reduced (area-weighted block means, :func:`block_mean`)
+        to at most :data:`MAX_CELLS_PER_PIXEL` cells per PNG pixel of the widest map panel.
+    min_coverage : float, keyword-only
+        Also count, per model at full resolution, the cells with a mean rate whose mean
+        coverage is below it (attr ``n_low`` of each Dataset).
+
+    Returns
+    -------
+    dict
+        span -> numpy-backed Dataset (model, lat, lon) with ``npp`` (mg m-2 d-1), ``coverage``
+        (1) and their block weights ``npp_weight`` / ``coverage_weight`` (m2 of cells with a
+        value), attr ``block`` (cells per block side).
+
+    Notes
+    -----
+    A cell's mean is the mean over the span's months with a value (as
+    :func:`euphotic.compare.difference`); a block's is the cell-area-weighted mean of its
+    cells with a value (NaN if none: land where the block is all land). The stack of months
+    is never held in memory: all spans are reduced in one ``dask.compute``.
+    """
+    import dask
+
+    from euphotic.geo import cell_area
+
+    spans = list(dict.fromkeys(tuple(s) for s in spans))
+    lat, lon = maps["lat"].values, maps["lon"].values
+    f = _reduce_factor(len(lat), len(lon), panel_width_in=_widest_panel_in(width))
+    years = maps["month"].dt.year.values
+    area = xr.DataArray(np.asarray(cell_area(lat, lon)), dims=("lat", "lon"),
+                        coords={"lat": maps["lat"], "lon": maps["lon"]})
+    todo = {}
+    for span in spans:
+        sel = maps.isel(time=np.flatnonzero((years >= span[0]) & (years <= span[1])))
+        with np.errstate(all="ignore"):
+            for v in ("npp", "coverage"):
+                m = sel[v].mean("time", skipna=True).transpose("model", "lat", "lon")
+                if f == 1:
+                    todo[(span, v)] = m
+                    continue
+                m = m.chunk({"lat": _multiple(m.chunks, 1, f, len(lat)),
+                             "lon": _multiple(m.chunks, 2, f, len(lon))})
+                w = area.where(m.notnull(), 0.0)
+                kw = {"lat": f, "lon": f, "boundary": "pad"}
+                sw = w.coarsen(**kw).sum()
+                todo[(span, v)] = ((m.fillna(0.0) * w).coarsen(**kw).sum() / sw.where(sw > 0))
+                todo[(span, f"{v}_weight")] = sw
+            if min_coverage is not None:
+                m_npp = sel["npp"].mean("time", skipna=True)
+                m_cov = sel["coverage"].mean("time", skipna=True)
+                todo[(span, "n_low")] = (m_npp.notnull() & (m_cov < min_coverage)).sum(
+                    ("lat", "lon"))
+    with np.errstate(all="ignore"):
+        done = dict(zip(todo, dask.compute(*todo.values()), strict=True))
+    out: PeriodMeans = {}
+    blat, blon = _block_axis(lat, f), _block_axis(lon, f)
+    models = maps["model"].values
+    for span in spans:
+        data = {}
+        for v in ("npp", "coverage"):
+            val = np.asarray(done[(span, v)].values)
+            wt = (np.asarray(done[(span, f"{v}_weight")].values) if f > 1
+                  else np.where(np.isfinite(val), np.asarray(area.values), 0.0))
+            data[v] = (("model", "lat", "lon"), val)
+            data[f"{v}_weight"] = (("model", "lat", "lon"), wt)
+        attrs = {"block": f}
+        if (span, "n_low") in done:
+            attrs["n_low"] = {str(m): int(n) for m, n in zip(
+                done[(span, "n_low")]["model"].values, done[(span, "n_low")].values,
+                strict=True)}
+        out[span] = xr.Dataset(data, coords={"model": models, "lat": blat, "lon": blon},
+                               attrs=attrs)
+    return out
+
+
+def _multiple(chunks, axis: int, f: int, n: int) -> int:
+    """A chunk length along ``axis`` near the current one and a multiple of ``f``."""
+    size = chunks[axis][0] if chunks and chunks[axis] else n
+    return min(max(f, size // f * f), max(f, math.ceil(n / f) * f))
+
+
+def _period_maps(maps: xr.Dataset, span: tuple[int, int], *, means: PeriodMeans | None = None,
+                 ncols: int = 1, width: Width = "two-column") -> xr.Dataset:
+    """The period means of ``span`` (from ``means``, or computed), reduced further for a
+    panel of a grid of ``ncols`` columns at ``width``."""
+    span = tuple(span)
+    ds = (means or {}).get(span)
+    if ds is None:
+        ds = period_means(maps, [span], width=width)[span]
+    block = ds.attrs.get("block", 1)
+    full = (ds.sizes["lat"] * block, ds.sizes["lon"] * block)
+    f = _reduce_factor(*full, panel_width_in=_panel_width_in(ncols, width))
+    return _reduce_dataset(ds, max(1, f // block))
+
+
+def _n_low(maps: xr.Dataset, span, means: PeriodMeans | None, min_coverage: float,
+           shown: xr.Dataset) -> dict[str, int]:
+    """Cells of ``span`` with a mean rate below ``min_coverage`` per model, counted at full
+    resolution where :func:`period_means` counted them, else on ``shown``."""
+    ds = (means or {}).get(tuple(span))
+    if ds is not None and "n_low" in ds.attrs:
+        return ds.attrs["n_low"]
+    if shown.attrs.get("block", 1) > 1:
+        sel = maps.isel(time=np.flatnonzero(((maps["month"].dt.year >= span[0])
+                                             & (maps["month"].dt.year <= span[1])).values))
+        with np.errstate(all="ignore"):
+            n = (sel["npp"].mean("time").notnull()
+                 & (sel["coverage"].mean("time") < min_coverage)).sum(("lat", "lon")).compute()
+        return {str(m): int(k) for m, k in zip(n["model"].values, n.values, strict=True)}
+    return {m: int((np.isfinite(shown["npp"].sel(model=m).values)
+                    & (shown["coverage"].sel(model=m).values < min_coverage)).sum())
+            for m in (str(x) for x in shown["model"].values)}
+
+
+def _change(per: xr.Dataset, base: xr.Dataset, relative: bool) -> xr.DataArray:
+    """Period minus baseline mean rate (mg m-2 d-1), or in percent of the baseline (NaN
+    where it is 0), as :func:`euphotic.compare.difference` forms them."""
+    with np.errstate(all="ignore"):
+        diff = per["npp"] - base["npp"]
+        return 100.0 * diff / base["npp"].where(base["npp"] != 0) if relative else diff
 
 
 def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Projection = "equal-area",
                min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
-               regions=None) -> Drawn:
+               regions=None, means: PeriodMeans | None = None) -> Drawn:
     """Mean rate over ``period`` for every model, one shared logarithmic colour scale.
 
     Parameters
@@ -497,6 +709,9 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
     regions : mapping, keyword-only
         Region name -> boolean (lat, lon) mask (:func:`euphotic.results.open_region_masks`),
         outlined on every panel and named on the first; None: no outlines.
+    means : dict, keyword-only
+        Period means already computed by :func:`period_means` (the figure set computes all
+        of them at once); by default computed here.
 
     Returns
     -------
@@ -510,14 +725,18 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
     Each panel is the mean over the period's months of the monthly mean daily rate (months
     without a value skipped); a cell's coverage is the mean of its monthly coverages. Colour
     limits are the :data:`CLIP_PERCENTILES` of all panels' positive values together.
+    Grids finer than :data:`MAX_CELLS_PER_PIXEL` cells per PNG pixel of a panel are drawn as
+    area-weighted block means (:func:`block_mean`; the counts of the caption are of cells).
     """
     import matplotlib.pyplot as plt
     from matplotlib.colors import LogNorm
     from matplotlib.ticker import FixedLocator, NullLocator
 
-    mean = _period_maps(maps, period)
+    ncols = _grid_layout(maps.sizes["model"], width)[1]
+    mean = _period_maps(maps, period, means=means, ncols=ncols, width=width)
     lat, lon = mean["lat"].values, mean["lon"].values
-    layer = region_layer(regions, lat, lon)
+    rlat, rlon = maps["lat"].values, maps["lon"].values
+    layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
     models = [str(m) for m in mean["model"].values]
     vals = mean["npp"].values
@@ -550,7 +769,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
                                  transform=ccrs.PlateCarree(), rasterized=True)
             meshes.append(mesh)
             marks.append(_mark(ax, lat, lon, np.isfinite(v) & (c < min_coverage), "...."))
-            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
+            o, t = _draw_regions(ax, layer, rlat, rlon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
             ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
@@ -564,8 +783,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
         if narrow:
             labels += _region_legend(fig, layer, ncols=2)
         fig.suptitle(f"Mean net primary production, {_span_text(period)}")
-    n_low = {m: int((np.isfinite(mean['npp'].sel(model=m).values)
-                     & (mean['coverage'].sel(model=m).values < min_coverage)).sum()) for m in models}
+    n_low = _n_low(maps, period, means, min_coverage, mean)
     caption = (
         f"Mean daily net primary production (mg C m-2 d-1) over {_span_text(period)} "
         f"(mean of the monthly mean rates), {', '.join(names[m] for m in models)}. "
@@ -593,7 +811,8 @@ def _projection_text(projection: Projection) -> str:
 def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
                    projection: Projection = "equal-area", relative: bool = True,
                    min_coverage: float = DEFAULT_MIN_COVERAGE,
-                   width: Width = "two-column", regions=None) -> Drawn:
+                   width: Width = "two-column", regions=None,
+                   means: PeriodMeans | None = None) -> Drawn:
     """Mean rate over ``period`` against ``baseline``, per model (from
     :func:`euphotic.compare.difference`), diverging colours centred on zero.
 
@@ -601,7 +820,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     ----------
     relative : keyword-only
         Percent of the baseline (default) or absolute difference (mg C m-2 d-1).
-    regions : keyword-only
+    regions, means : keyword-only
         As for :func:`map_panels`.
 
     Returns
@@ -619,13 +838,13 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     import matplotlib.pyplot as plt
     from matplotlib.colors import Normalize
 
-    diff = compare.difference(maps, baseline, period).load()
-    var = "percent" if relative else "difference"
-    d = diff[var]
-    base_cov = _period_maps(maps, baseline)["coverage"]
-    per_cov = _period_maps(maps, period)["coverage"]
+    kw = {"means": means, "ncols": _grid_layout(maps.sizes["model"], width)[1], "width": width}
+    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
+    d = _change(per, base, relative)
+    base_cov, per_cov = base["coverage"], per["coverage"]
     lat, lon = d["lat"].values, d["lon"].values
-    layer = region_layer(regions, lat, lon)
+    rlat, rlon = maps["lat"].values, maps["lon"].values
+    layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
     models = [str(m) for m in d["model"].values]
     vals = d.values
@@ -656,7 +875,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
             low = np.isfinite(v) & ((c < min_coverage)
                                     | (base_cov.sel(model=m).values < min_coverage))
             _mark(ax, lat, lon, low, "....")
-            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
+            o, t = _draw_regions(ax, layer, rlat, rlon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
             ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
@@ -744,7 +963,8 @@ def ratio_limits(ratios: np.ndarray) -> tuple[float, list[float]]:
 
 def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
               projection: Projection = "equal-area", min_coverage: float = DEFAULT_MIN_COVERAGE,
-              width: Width = "two-column", regions=None) -> Drawn:
+              width: Width = "two-column", regions=None,
+              means: PeriodMeans | None = None) -> Drawn:
     """Ratio of mean rates: ``period`` / ``baseline`` per model and, where several models
     ran, each further model / the first over ``period``; diverging colours centred on one on
     a logarithmic scale with symmetric limits (1/f to f, :func:`ratio_limits`).
@@ -753,7 +973,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
     ----------
     maps : the Dataset of :func:`euphotic.results.open_maps` (npp in mg m-2 d-1 of carbon)
     period, baseline : (first_year, last_year), both included
-    projection, min_coverage, width, regions : keyword-only
+    projection, min_coverage, width, regions, means : keyword-only
         As for :func:`map_panels`.
 
     Returns
@@ -774,9 +994,12 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
     from matplotlib.colors import LogNorm
     from matplotlib.ticker import FixedLocator, NullLocator
 
-    per, base = _period_maps(maps, period), _period_maps(maps, baseline)
+    n_panels = 2 * maps.sizes["model"] - 1
+    kw = {"means": means, "ncols": _grid_layout(n_panels, width)[1], "width": width}
+    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
     lat, lon = per["lat"].values, per["lon"].values
-    layer = region_layer(regions, lat, lon)
+    rlat, rlon = maps["lat"].values, maps["lon"].values
+    layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
     models = [str(m) for m in per["model"].values]
     P, B = _span_text(period), _span_text(baseline)
@@ -824,7 +1047,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
                                  transform=ccrs.PlateCarree(), rasterized=True)
             meshes.append(mesh)
             _mark(ax, lat, lon, low, "....")
-            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
+            o, t = _draw_regions(ax, layer, rlat, rlon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
             ax.set_title(title, fontsize=FONT_PT + 1)
@@ -861,7 +1084,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
 def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
                       projection: Projection = "equal-area", relative: bool = True,
                       min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
-                      regions=None) -> Drawn:
+                      regions=None, means: PeriodMeans | None = None) -> Drawn:
     """Baseline | period | change, one row per model: the two means on one shared
     logarithmic scale, the change (:func:`euphotic.compare.difference`) on a diverging scale
     centred on zero with symmetric limits.
@@ -870,7 +1093,7 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
     ----------
     maps : the Dataset of :func:`euphotic.results.open_maps` (npp in mg m-2 d-1 of carbon)
     period, baseline : (first_year, last_year), both included
-    projection, relative, min_coverage, width, regions : keyword-only
+    projection, relative, min_coverage, width, regions, means : keyword-only
         As for :func:`difference_map` and :func:`map_panels`.
 
     Returns
@@ -884,11 +1107,12 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
     import matplotlib.pyplot as plt
     from matplotlib.ticker import FixedLocator, MaxNLocator, NullLocator
 
-    per, base = _period_maps(maps, period), _period_maps(maps, baseline)
-    change = compare.difference(maps, baseline, period).load()["percent" if relative
-                                                                else "difference"]
+    kw = {"means": means, "ncols": 3, "width": width}
+    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
+    change = _change(per, base, relative)
     lat, lon = per["lat"].values, per["lon"].values
-    layer = region_layer(regions, lat, lon)
+    rlat, rlon = maps["lat"].values, maps["lon"].values
+    layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
     models = [str(m) for m in per["model"].values]
     P, B = _span_text(period), _span_text(baseline)
@@ -947,7 +1171,8 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
             axs[2].set_title(f"change, {P} against {B}" if width == "two-column"
                              else "change", fontsize=FONT_PT + 1)
             for j, ax in enumerate(axs):
-                o, t = _draw_regions(ax, layer, lat, lon, names=in_map and i == 0 and j == 0)
+                o, t = _draw_regions(ax, layer, rlat, rlon,
+                                     names=in_map and i == 0 and j == 0)
                 outlines.append(o)
                 labels += t
         cax = subs[n].subplots(1, 2, gridspec_kw={"width_ratios": [2, 1]})
@@ -1563,15 +1788,19 @@ def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | 
         _check_years(baseline, years, "--baseline", where)
     shown = period or whole
     notes: list[str] = []
-    drawn = [map_panels(maps, period=shown, projection=projection, min_coverage=min_coverage,
-                        width=width, regions=regions)]
     compared = period or (years[-1], years[-1])
     base = baseline or ((years[0], compared[0] - 1) if compared[0] > years[0] else None)
+    # every period mean the maps need, reduced to the drawn resolution, in one computation
+    means = period_means(maps, [shown] + ([compared, base] if base else []), width=width,
+                         min_coverage=min_coverage)
+    drawn = [map_panels(maps, period=shown, projection=projection, min_coverage=min_coverage,
+                        width=width, regions=regions, means=means)]
     if base is None:
         notes.append("no difference map: the run has a single year (give --baseline)")
     else:
         kw = {"period": compared, "baseline": base, "projection": projection,
-              "min_coverage": min_coverage, "width": width, "regions": regions}
+              "min_coverage": min_coverage, "width": width, "regions": regions,
+              "means": means}
         drawn.append(difference_map(maps, relative=relative, **kw))
         drawn.append(comparison_panels(maps, relative=relative, **kw))
         drawn.append(ratio_map(maps, **kw))
