@@ -613,7 +613,7 @@ def period_means(maps: xr.Dataset, spans, *, width: Width = "two-column",
                     continue
                 m = m.chunk({"lat": _multiple(m.chunks, 1, f, len(lat)),
                              "lon": _multiple(m.chunks, 2, f, len(lon))})
-                w = area.where(m.notnull(), 0.0)
+                w = area.where(m.notnull(), 0.0).transpose("model", "lat", "lon")
                 kw = {"lat": f, "lon": f, "boundary": "pad"}
                 sw = w.coarsen(**kw).sum()
                 todo[(span, v)] = ((m.fillna(0.0) * w).coarsen(**kw).sum() / sw.where(sw > 0))
