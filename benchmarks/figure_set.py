@@ -46,17 +46,35 @@ except EuphoticError:  # a run from before region masks were recorded: the bench
     regions = {n: (la >= s) & (la <= nn) & (lo >= w) & (lo <= e) for n, (w, s, e, nn) in REGIONS}
 times["open"] = time.perf_counter() - t0
 t = time.perf_counter()
-drawn, notes = figureset.draw_all(maps, totals, width=width, regions=regions, folder=folder,
-                                  min_coverage=float(maps.attrs.get("min_coverage", 0.5)))
-times["compute_and_draw"] = time.perf_counter() - t
-t = time.perf_counter()
-shapes = {}
-for d in drawn:
+_means = figureset.period_means
+def _timed_means(*args, **kw):
+    t1 = time.perf_counter()
+    try:
+        return _means(*args, **kw)
+    finally:
+        times["period_means (one dask.compute)"] = time.perf_counter() - t1
+        import resource
+        times["peak RSS after the means, GiB"] = (
+            resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 2**20)
+figureset.period_means = _timed_means
+shapes, draw_s, save_s = {}, 0.0, 0.0
+figures = figureset.iter_figures(maps, totals, width=width, regions=regions, folder=folder,
+                                 min_coverage=float(maps.attrs.get("min_coverage", 0.5)))
+while True:  # as write_figure_set: each figure saved and closed before the next is drawn
+    t1 = time.perf_counter()
+    d = next(figures, None)
+    draw_s += time.perf_counter() - t1
+    if d is None:
+        break
     meshes = d.artists.get("meshes") or d.artists.get("means") or []
     if meshes:
         shapes[d.name] = list(meshes[0].get_array().shape)
+    t1 = time.perf_counter()
     figureset.save(d, out)
-times["save"] = time.perf_counter() - t
+    save_s += time.perf_counter() - t1
+    d = None
+times["draw (with the means)"] = draw_s
+times["save"] = save_s
 print("TIMES " + json.dumps(times))
 print("SHAPES " + json.dumps(shapes))
 """

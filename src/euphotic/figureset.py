@@ -20,6 +20,7 @@ from __future__ import annotations
 import math
 import textwrap
 import warnings
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
@@ -273,10 +274,10 @@ def _draw_base(ax, lat, lon, land: np.ndarray, no_data: np.ndarray, *, hatch_no_
     pc = ccrs.PlateCarree()
     xe, ye = _edges(lon), _edges(lat)
     ax.set_extent([xe[0], xe[-1], ye[0], ye[-1]], crs=pc)
-    ax.pcolormesh(xe, ye, np.where(no_data, 1.0, np.nan), cmap=ListedColormap([NO_DATA_COLOUR]),
-                  vmin=0, vmax=2, transform=pc, rasterized=True)
-    ax.pcolormesh(xe, ye, np.where(land, 1.0, np.nan), cmap=ListedColormap([LAND_COLOUR]),
-                  vmin=0, vmax=2, transform=pc, rasterized=True)
+    # one mesh for both (0: land, 1: ocean without data): each mesh of a large grid costs
+    ax.pcolormesh(xe, ye, np.where(land, 0.0, np.where(no_data, 1.0, np.nan)),
+                  cmap=ListedColormap([LAND_COLOUR, NO_DATA_COLOUR]), vmin=-0.5, vmax=1.5,
+                  transform=pc, rasterized=True)
     if hatch_no_data and no_data.any():
         _mark(ax, lat, lon, no_data, "////")
     gl = ax.gridlines(crs=pc, draw_labels=True, linewidth=0.3, color="#555555", alpha=0.6,
@@ -1761,7 +1762,23 @@ def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | 
              min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
              relative: bool = True, folder: Path | None = None,
              regions=None) -> tuple[list[Drawn], list[str]]:
-    """Every figure of the set (not saved), and notes on figures left out.
+    """Every figure of the set (not saved), and notes on figures left out; the options as
+    :func:`iter_figures`, which draws them one at a time."""
+    notes: list[str] = []
+    drawn = list(iter_figures(maps, totals, period=period, baseline=baseline,
+                              projection=projection, min_coverage=min_coverage, width=width,
+                              relative=relative, folder=folder, regions=regions, notes=notes))
+    return drawn, notes
+
+
+def iter_figures(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | None = None,
+                 baseline: tuple[int, int] | None = None, projection: Projection = "equal-area",
+                 min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
+                 relative: bool = True, folder: Path | None = None, regions=None,
+                 notes: list[str] | None = None) -> Iterator[Drawn]:
+    """Every figure of the set (not saved), drawn when asked for, so that a caller saving
+    and closing each before the next holds one figure at a time (a map of a large grid holds
+    hundreds of MB); notes on figures left out are appended to ``notes``.
 
     ``period`` defaults to the whole run. The difference, baseline | period | change and
     ratio maps set ``period`` (or, by default, the run's last year) against ``baseline`` (by
@@ -1787,32 +1804,31 @@ def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | 
     if baseline is not None:
         _check_years(baseline, years, "--baseline", where)
     shown = period or whole
-    notes: list[str] = []
+    notes = [] if notes is None else notes
     compared = period or (years[-1], years[-1])
     base = baseline or ((years[0], compared[0] - 1) if compared[0] > years[0] else None)
     # every period mean the maps need, reduced to the drawn resolution, in one computation
     means = period_means(maps, [shown] + ([compared, base] if base else []), width=width,
                          min_coverage=min_coverage)
-    drawn = [map_panels(maps, period=shown, projection=projection, min_coverage=min_coverage,
-                        width=width, regions=regions, means=means)]
+    yield map_panels(maps, period=shown, projection=projection, min_coverage=min_coverage,
+                     width=width, regions=regions, means=means)
     if base is None:
         notes.append("no difference map: the run has a single year (give --baseline)")
     else:
         kw = {"period": compared, "baseline": base, "projection": projection,
               "min_coverage": min_coverage, "width": width, "regions": regions,
               "means": means}
-        drawn.append(difference_map(maps, relative=relative, **kw))
-        drawn.append(comparison_panels(maps, relative=relative, **kw))
-        drawn.append(ratio_map(maps, **kw))
+        yield difference_map(maps, relative=relative, **kw)
+        yield comparison_panels(maps, relative=relative, **kw)
+        yield ratio_map(maps, **kw)
     if totals.sizes.get("region", 0) == 0:
         notes.append("no regional figures: the run has no regions")
     else:
-        drawn.append(annual_series(totals, baseline=base or whole, width=width))
-        drawn.append(seasonal_figure(totals, period=shown, width=width))
-        drawn.append(totals_chart(totals, period=period, min_coverage=min_coverage, width=width))
-        drawn.append(monthly_series(totals, baseline=base or whole, period=period,
-                                    min_coverage=min_coverage, width=width))
-    return drawn, notes
+        yield annual_series(totals, baseline=base or whole, width=width)
+        yield seasonal_figure(totals, period=shown, width=width)
+        yield totals_chart(totals, period=period, min_coverage=min_coverage, width=width)
+        yield monthly_series(totals, baseline=base or whole, period=period,
+                             min_coverage=min_coverage, width=width)
 
 
 def write_figure_set(folder: str | Path, *, period: str | None = None,
@@ -1840,14 +1856,17 @@ def write_figure_set(folder: str | Path, *, period: str | None = None,
     except NoRunError as exc:  # a run from before region masks were recorded
         regions, region_note = None, [f"no region outlines on the maps: {exc}"]
     inputs = input_lines(folder)
-    drawn, notes = draw_all(maps, totals, period=span, baseline=base, projection=projection,
-                            min_coverage=min_coverage, width=width, relative=relative,
-                            folder=folder, regions=regions)
-    out = FigureSet(notes=notes + region_note)
+    notes: list[str] = []
+    figures = iter_figures(maps, totals, period=span, baseline=base, projection=projection,
+                           min_coverage=min_coverage, width=width, relative=relative,
+                           folder=folder, regions=regions, notes=notes)
+    d: Drawn | None = next(figures)  # bad options fail here, before the folder is touched
+    out = FigureSet(notes=notes)
     try:
         with runfolder.OutputFolder(folder).adding(command, replace_kinds=(KIND,)) as (stage,
                                                                                       added):
-            for d in drawn:
+            # each figure saved and closed before the next is drawn (one in memory at a time)
+            while d is not None:
                 for p in save(d, stage.path):
                     added[p.name] = {"kind": KIND, "description": d.caption_title}
                     out.files.append(folder / p.name)
@@ -1858,9 +1877,17 @@ def write_figure_set(folder: str | Path, *, period: str | None = None,
                     stage.file(name).write_text(text)
                     added[name] = {"kind": KIND, "description": f"caption of {d.name}"}
                     out.files.append(folder / name)
+                _close(d)
+                d = None  # let the figure go before the next one is drawn
+                d = next(figures, None)
     finally:
-        import matplotlib.pyplot as plt
-
-        for d in drawn:
-            plt.close(d.figure)
+        if d is not None:
+            _close(d)
+    out.notes += region_note
     return out
+
+
+def _close(d: Drawn) -> None:
+    import matplotlib.pyplot as plt
+
+    plt.close(d.figure)
