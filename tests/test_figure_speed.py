@@ -89,27 +89,31 @@ def test_a_large_grid_is_drawn_as_block_means():
 
     maps, base, later, cov = _wide_maps()
     # two-column figure, one panel: (180 / 25.4 - 0.6) in x 300 dpi = 1946 px across; 4800
-    # cells need blocks of ceil(4800 / (2 x 1946)) = 2 cells (hand-worked)
-    assert figureset._reduce_factor(60, 4800, panel_width_in=180 / 25.4 - 0.6) == 2
+    # cells at most 1 a pixel need blocks of ceil(4800 / 1946) = 3 cells (hand-worked)
+    assert figureset.MAX_CELLS_PER_PIXEL == 1.0
+    assert figureset._reduce_factor(60, 4800, panel_width_in=180 / 25.4 - 0.6) == 3
     d = figureset.map_panels(maps, period=(2020, 2021), min_coverage=0.5)
     mesh = d.artists["meshes"][0]
-    drawn = np.ma.filled(mesh.get_array(), np.nan).reshape(30, 2400)
+    drawn = np.ma.filled(mesh.get_array(), np.nan).reshape(20, 1600)
     w = cell_area(maps["lat"].values, maps["lon"].values)
-    want, _ = _loop_block_mean((base + later) / 2, w, 2)  # mean over 24 months (12 each)
+    want, _ = _loop_block_mean((base + later) / 2, w, 3)  # mean over 24 months (12 each)
     np.testing.assert_allclose(drawn, want, rtol=1e-6)  # float32 sums over 24 months
-    assert np.isnan(drawn[:, :50]).all()  # all-land blocks stay land
-    assert np.isfinite(drawn[:, 100]).all()  # the half-land block: its ocean cell's value
-    np.testing.assert_allclose(drawn[:, 100], (base[::2, 200] + later[::2, 200]) / 2,
-                               rtol=1e-6)
+    assert np.isnan(drawn[:, :33]).all()  # all-land blocks (columns 0-98) stay land
+    # the block of columns 201-203, 201 land: the mean of its two ocean columns (one value
+    # down each column, so the areas of the rows weigh both alike)
+    assert np.isfinite(drawn[:, 67]).all()
+    np.testing.assert_allclose(drawn[:, 67], (base[::3, 202:204] + later[::3, 202:204]).mean(1)
+                               / 2, rtol=1e-6)
     # the caption's count of low-coverage cells is of the run's cells, not of blocks
     assert "Model vgpm: 6000 cells" in d.caption  # 60 rows x 100 columns (hand count)
     plt.close(d.figure)
-    # the three panels of baseline | period | change: (180 / 25.4 - 0.9) / 3 in wide panels,
-    # at most (180 / 25.4 - 0.6) / 3 x 300 = 649 px, so blocks of ceil(4800 / 1298) = 4
+    # the three panels of baseline | period | change: at most (180 / 25.4 - 0.6) / 3 x 300 =
+    # 649 px across, so blocks of at least ceil(4800 / 649) = 8 cells, made of the means'
+    # blocks of 3: 3 x 3 = 9 cells, ceil(60 / 9) x ceil(4800 / 9) = 7 x 534 blocks
     c = figureset.comparison_panels(maps, period=(2021, 2021), baseline=(2020, 2020))
-    assert c.artists["means"][0].get_array().size == 15 * 1200
-    change = np.ma.filled(c.artists["changes"][0].get_array(), np.nan).reshape(15, 1200)
-    np.testing.assert_allclose(change[:, 30:], 20.0, rtol=1e-5)  # later = 1.2 x base
+    assert c.artists["means"][0].get_array().size == 7 * 534
+    change = np.ma.filled(c.artists["changes"][0].get_array(), np.nan).reshape(7, 534)
+    np.testing.assert_allclose(change[:, 12:], 20.0, rtol=1e-5)  # later = 1.2 x base
     plt.close(c.figure)
 
 

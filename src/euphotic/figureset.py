@@ -475,8 +475,9 @@ def _regions_text(layer: RegionLayer, *, legend: bool = False) -> str:
 
 #: At most this many grid cells are drawn per pixel of the PNG across a map panel: the
 #: period means are reduced to it by area-weighted block means before they are drawn (more
-#: cells than pixels cannot show; the brief's "about 2 cells per output pixel").
-MAX_CELLS_PER_PIXEL = 2.0
+#: cells than pixels cannot show; this tool's choice: at 2 a global 1/12-degree map took
+#: about a minute and 1.2 GiB to draw and save, measured in benchmarks/figure_set.py).
+MAX_CELLS_PER_PIXEL = 1.0
 
 PeriodMeans = dict  # (first_year, last_year) -> Dataset, see :func:`period_means`
 
@@ -591,9 +592,10 @@ def period_means(maps: xr.Dataset, spans, *, width: Width = "two-column",
     A cell's mean is the mean over the span's months with a value (as
     :func:`euphotic.compare.difference`); a block's is the cell-area-weighted mean of its
     cells with a value (NaN if none: land where the block is all land). The stack of months
-    is never held in memory: all spans are reduced in one ``dask.compute``.
+    is never held in memory: each month is read once, summed into disjoint groups of years
+    that the spans add up, and all spans are reduced together, one ``dask.compute`` per
+    band of about :data:`BAND_CELLS` cells (one for a grid below that).
     """
-    import dask
 
     from euphotic.geo import cell_area
 
@@ -603,48 +605,92 @@ def period_means(maps: xr.Dataset, spans, *, width: Width = "two-column",
     years = maps["month"].dt.year.values
     area = xr.DataArray(np.asarray(cell_area(lat, lon)), dims=("lat", "lon"),
                         coords={"lat": maps["lat"], "lon": maps["lon"]})
-    todo = {}
-    for span in spans:
-        sel = maps.isel(time=np.flatnonzero((years >= span[0]) & (years <= span[1])))
-        with np.errstate(all="ignore"):
-            for v in ("npp", "coverage"):
-                m = sel[v].mean("time", skipna=True).transpose("model", "lat", "lon")
-                if f == 1:
-                    todo[(span, v)] = m
-                    continue
-                m = m.chunk({"lat": _multiple(m.chunks, 1, f, len(lat)),
-                             "lon": _multiple(m.chunks, 2, f, len(lon))})
-                w = area.where(m.notnull(), 0.0).transpose("model", "lat", "lon")
-                kw = {"lat": f, "lon": f, "boundary": "pad"}
-                sw = w.coarsen(**kw).sum()
-                todo[(span, v)] = ((m.fillna(0.0) * w).coarsen(**kw).sum() / sw.where(sw > 0))
-                todo[(span, f"{v}_weight")] = sw
-            if min_coverage is not None:
-                m_npp = sel["npp"].mean("time", skipna=True)
-                m_cov = sel["coverage"].mean("time", skipna=True)
-                todo[(span, "n_low")] = (m_npp.notnull() & (m_cov < min_coverage)).sum(
-                    ("lat", "lon"))
-    with np.errstate(all="ignore"):
-        done = dict(zip(todo, dask.compute(*todo.values()), strict=True))
+    # disjoint groups of years: each month is summed once, whatever the spans' overlaps
+    cuts = sorted({y for a, b in spans for y in (a, b + 1)})
+    groups = [(a, b - 1) for a, b in zip(cuts[:-1], cuts[1:], strict=False)
+              if any(s[0] <= a and b - 1 <= s[1] for s in spans)]
+    rows = _band_rows(maps, f)
+    parts: dict = {}
+    for r0 in range(0, len(lat), rows):
+        band = maps.isel(lat=slice(r0, r0 + rows))
+        for key, val in _band_means(band, area.isel(lat=slice(r0, r0 + rows)), spans, groups,
+                                    years, f, min_coverage).items():
+            parts.setdefault(key, []).append(val)
     out: PeriodMeans = {}
     blat, blon = _block_axis(lat, f), _block_axis(lon, f)
     models = maps["model"].values
     for span in spans:
         data = {}
         for v in ("npp", "coverage"):
-            val = np.asarray(done[(span, v)].values)
-            wt = (np.asarray(done[(span, f"{v}_weight")].values) if f > 1
-                  else np.where(np.isfinite(val), np.asarray(area.values), 0.0))
+            val = np.concatenate(parts[(span, v)], axis=1)
+            wt = np.concatenate(parts[(span, f"{v}_weight")], axis=1)
             data[v] = (("model", "lat", "lon"), val)
             data[f"{v}_weight"] = (("model", "lat", "lon"), wt)
         attrs = {"block": f}
-        if (span, "n_low") in done:
-            attrs["n_low"] = {str(m): int(n) for m, n in zip(
-                done[(span, "n_low")]["model"].values, done[(span, "n_low")].values,
-                strict=True)}
+        if (span, "n_low") in parts:
+            n = np.sum(parts[(span, "n_low")], axis=0)
+            attrs["n_low"] = {str(m): int(k) for m, k in zip(models, n, strict=True)}
         out[span] = xr.Dataset(data, coords={"model": models, "lat": blat, "lon": blon},
                                attrs=attrs)
     return out
+
+
+#: Cells of a band of rows reduced in one ``dask.compute`` (this tool's choice: about 2.3
+#: million cells, a quarter of a global 1/12-degree grid, keeps the computation's peak near
+#: 0.5 GiB; measured in benchmarks/figure_set.py).
+BAND_CELLS = 2_400_000
+
+
+def _band_rows(maps: xr.Dataset, f: int) -> int:
+    """Rows of a band: a multiple of the stored chunks' rows and of the block ``f``, about
+    :data:`BAND_CELLS` cells."""
+    data = maps["npp"].data
+    chunk = (data.chunks[maps["npp"].dims.index("lat")][0] if hasattr(data, "chunks")
+             else maps.sizes["lat"])
+    step = math.lcm(max(1, int(chunk)), f)
+    return max(step, BAND_CELLS // max(1, maps.sizes["lon"]) // step * step)
+
+
+def _band_means(band: xr.Dataset, area: xr.DataArray, spans, groups, years, f: int,
+                min_coverage: float | None) -> dict:
+    """Block-reduced means of one band of rows (numpy arrays), all spans in one
+    ``dask.compute``: sum and count of each group of years, added up per span."""
+    import dask
+
+    todo = {}
+    with np.errstate(all="ignore"):
+        sums = {}
+        for g in groups:
+            sel = band.isel(time=np.flatnonzero((years >= g[0]) & (years <= g[1])))
+            for v in ("npp", "coverage"):
+                x = sel[v].transpose("model", "time", "lat", "lon")
+                sums[(g, v)] = (x.sum("time", skipna=True, dtype=np.float64),
+                                x.count("time"))
+        for span in spans:
+            inside = [g for g in groups if span[0] <= g[0] and g[1] <= span[1]]
+            means = {}
+            for v in ("npp", "coverage"):
+                total = sum(sums[(g, v)][0] for g in inside)
+                count = sum(sums[(g, v)][1] for g in inside)
+                m = total / count.where(count > 0)
+                means[v] = m
+                if f == 1:
+                    todo[(span, v)] = m
+                    todo[(span, f"{v}_weight")] = area.where(m.notnull(), 0.0).transpose(
+                        "model", "lat", "lon")
+                    continue
+                m = m.chunk({"lat": _multiple(m.chunks, 1, f, m.sizes["lat"]),
+                             "lon": _multiple(m.chunks, 2, f, m.sizes["lon"])})
+                w = area.where(m.notnull(), 0.0).transpose("model", "lat", "lon")
+                kw = {"lat": f, "lon": f, "boundary": "pad"}
+                sw = w.coarsen(**kw).sum()
+                todo[(span, v)] = (m.fillna(0.0) * w).coarsen(**kw).sum() / sw.where(sw > 0)
+                todo[(span, f"{v}_weight")] = sw
+            if min_coverage is not None:
+                todo[(span, "n_low")] = (means["npp"].notnull()
+                                         & (means["coverage"] < min_coverage)).sum(("lat", "lon"))
+        done = dask.compute(*todo.values())
+    return {k: np.asarray(getattr(d, "values", d)) for k, d in zip(todo, done, strict=True)}
 
 
 def _multiple(chunks, axis: int, f: int, n: int) -> int:
@@ -664,7 +710,7 @@ def _period_maps(maps: xr.Dataset, span: tuple[int, int], *, means: PeriodMeans 
     block = ds.attrs.get("block", 1)
     full = (ds.sizes["lat"] * block, ds.sizes["lon"] * block)
     f = _reduce_factor(*full, panel_width_in=_panel_width_in(ncols, width))
-    return _reduce_dataset(ds, max(1, f // block))
+    return _reduce_dataset(ds, max(1, math.ceil(f / block)))  # blocks of blocks: >= f
 
 
 def _n_low(maps: xr.Dataset, span, means: PeriodMeans | None, min_coverage: float,
