@@ -1791,7 +1791,6 @@ def caption_texts(drawn: Drawn, ds: xr.Dataset, *, min_coverage: float, folder: 
 
 def save(drawn: Drawn, folder: Path) -> list[Path]:
     """Write ``NAME.png`` (at :data:`DPI`) and ``NAME.pdf``; the Figure is then closed."""
-    import matplotlib.pyplot as plt
 
     out = []
     for ext in ("png", "pdf"):
@@ -1799,7 +1798,7 @@ def save(drawn: Drawn, folder: Path) -> list[Path]:
         drawn.figure.savefig(p, dpi=DPI, metadata={"Software": f"euphotic {__version__}"}
                              if ext == "png" else {"Creator": f"euphotic {__version__}"})
         out.append(p)
-    plt.close(drawn.figure)
+    _close(drawn)
     return out
 
 
@@ -1934,6 +1933,12 @@ def write_figure_set(folder: str | Path, *, period: str | None = None,
 
 
 def _close(d: Drawn) -> None:
+    """Close the figure and collect it now: a figure's artists form reference cycles, and a
+    map of a large grid left to the next automatic collection kept about 0.4 GiB more at
+    the set's peak (measured with benchmarks/figure_set.py)."""
+    import gc
+
     import matplotlib.pyplot as plt
 
     plt.close(d.figure)
+    gc.collect()
