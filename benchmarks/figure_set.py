@@ -10,6 +10,7 @@ wall time and the peak RSS of that process, with the time of each step.
 Usage:
     python benchmarks/figure_set.py                              # the cached 20-year run
     python benchmarks/figure_set.py --folder RUN --width one-column
+    python benchmarks/figure_set.py --projection latlon   # a global run: see RESULTS.md
 """
 
 from __future__ import annotations
@@ -34,7 +35,7 @@ t0 = time.perf_counter()
 from euphotic import figureset, results
 from euphotic.errors import EuphoticError
 sys.path.insert(0, sys.argv[4])
-folder, width, out = Path(sys.argv[1]), sys.argv[2], Path(sys.argv[3])
+folder, width, out, projection = Path(sys.argv[1]), sys.argv[2], Path(sys.argv[3]), sys.argv[5]
 times = {}
 maps, totals = results.open_maps(folder), results.open_totals(folder)
 try:
@@ -59,6 +60,7 @@ def _timed_means(*args, **kw):
 figureset.period_means = _timed_means
 shapes, draw_s, save_s = {}, 0.0, 0.0
 figures = figureset.iter_figures(maps, totals, width=width, regions=regions, folder=folder,
+                                 projection=projection,
                                  min_coverage=float(maps.attrs.get("min_coverage", 0.5)))
 while True:  # as write_figure_set: each figure saved and closed before the next is drawn
     t1 = time.perf_counter()
@@ -84,18 +86,19 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--folder", type=Path, default=DEFAULT_FOLDER)
     ap.add_argument("--width", default="two-column", choices=("one-column", "two-column"))
+    ap.add_argument("--projection", default="equal-area", choices=("equal-area", "latlon"))
     a = ap.parse_args()
     files = map_files(a.folder)
     warm(files)
     with tempfile.TemporaryDirectory(prefix="euphotic_figbench_") as out:
         wall, peak, text = run_measured([sys.executable, "-c", CHILD, str(a.folder), a.width,
-                                         out, str(HERE)])
+                                         out, str(HERE), a.projection])
         n_files = len(list(Path(out).iterdir()))
     times = json.loads(next(x for x in text.splitlines() if x.startswith("TIMES "))[6:])
     shapes = json.loads(next(x for x in text.splitlines() if x.startswith("SHAPES "))[7:])
     print(f"run folder:   {a.folder} ({len(files)} maps)")
     print(f"figure set:   {wall:8.1f} s wall, peak RSS {peak:.2f} GiB, {n_files} files "
-          f"({a.width})")
+          f"({a.width}, {a.projection})")
     print("steps (s):    " + ", ".join(f"{k} {v:.1f}" for k, v in times.items()))
     print("drawn grids:  " + ", ".join(f"{k} {v[0]} x {v[1]}" if len(v) == 2 else f"{k} {v}"
                                        for k, v in shapes.items()))
