@@ -20,6 +20,7 @@ from __future__ import annotations
 import math
 import textwrap
 import warnings
+from collections.abc import Iterator
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Literal
@@ -273,10 +274,10 @@ def _draw_base(ax, lat, lon, land: np.ndarray, no_data: np.ndarray, *, hatch_no_
     pc = ccrs.PlateCarree()
     xe, ye = _edges(lon), _edges(lat)
     ax.set_extent([xe[0], xe[-1], ye[0], ye[-1]], crs=pc)
-    ax.pcolormesh(xe, ye, np.where(no_data, 1.0, np.nan), cmap=ListedColormap([NO_DATA_COLOUR]),
-                  vmin=0, vmax=2, transform=pc, rasterized=True)
-    ax.pcolormesh(xe, ye, np.where(land, 1.0, np.nan), cmap=ListedColormap([LAND_COLOUR]),
-                  vmin=0, vmax=2, transform=pc, rasterized=True)
+    # one mesh for both (0: land, 1: ocean without data): each mesh of a large grid costs
+    ax.pcolormesh(xe, ye, np.where(land, 0.0, np.where(no_data, 1.0, np.nan)),
+                  cmap=ListedColormap([LAND_COLOUR, NO_DATA_COLOUR]), vmin=-0.5, vmax=1.5,
+                  transform=pc, rasterized=True)
     if hatch_no_data and no_data.any():
         _mark(ax, lat, lon, no_data, "////")
     gl = ax.gridlines(crs=pc, draw_labels=True, linewidth=0.3, color="#555555", alpha=0.6,
@@ -472,18 +473,276 @@ def _regions_text(layer: RegionLayer, *, legend: bool = False) -> str:
 # the figures
 
 
-def _period_maps(maps: xr.Dataset, span: tuple[int, int]) -> xr.Dataset:
-    years = maps["month"].dt.year
-    sel = maps.isel(time=np.flatnonzero(((years >= span[0]) & (years <= span[1])).values))
+#: At most this many grid cells are drawn per pixel of the PNG across a map panel: the
+#: period means are reduced to it by area-weighted block means before they are drawn (more
+#: cells than pixels cannot show; this tool's choice: at 2 a global 1/12-degree map took
+#: about a minute and 1.2 GiB to draw and save, measured in benchmarks/figure_set.py).
+MAX_CELLS_PER_PIXEL = 1.0
+
+PeriodMeans = dict  # (first_year, last_year) -> Dataset, see :func:`period_means`
+
+
+def _reduce_factor(ny: int, nx: int, *, panel_width_in: float) -> int:
+    """Cells per side of a square block so that a panel ``panel_width_in`` inches wide (and
+    at most :data:`MAX_PANEL_HEIGHT_MM` tall) gets at most :data:`MAX_CELLS_PER_PIXEL` cells
+    per PNG pixel (:data:`DPI`) in either direction."""
+    w_px = max(panel_width_in, 0.1) * DPI
+    h_px = MAX_PANEL_HEIGHT_MM / MM_PER_INCH * DPI
+    return max(1, math.ceil(max(nx / (MAX_CELLS_PER_PIXEL * w_px),
+                                ny / (MAX_CELLS_PER_PIXEL * h_px))))
+
+
+def _widest_panel_in(width: Width) -> float:
+    """Width (inches) of the widest map panel of any figure at ``width`` (one panel)."""
+    return WIDTHS_MM[width] / MM_PER_INCH - 0.6
+
+
+def _panel_width_in(ncols: int, width: Width) -> float:
+    return (WIDTHS_MM[width] / MM_PER_INCH - 0.6) / ncols
+
+
+def block_mean(values: np.ndarray, weights: np.ndarray, factor: int
+               ) -> tuple[np.ndarray, np.ndarray]:
+    """Weighted mean of ``values`` over square blocks of ``factor`` x ``factor`` cells of
+    the last two axes, NaN cells left out.
+
+    Parameters
+    ----------
+    values : array (..., lat, lon)
+        Any quantity (NaN: no value).
+    weights : array broadcastable to ``values``
+        Weight of each cell (cell area, m2, or a sum of areas from an earlier reduction).
+    factor : int
+        Cells per block side; the last block of a side holds the cells left over.
+
+    Returns
+    -------
+    (mean, weight) : arrays (..., ceil(lat / factor), ceil(lon / factor))
+        ``sum(w v) / sum(w)`` over the block's cells with a value (NaN where none has one)
+        and ``sum(w)`` over those cells (same units as ``weights``), so that block means of
+        block means stay exact.
+    """
+    v = np.asarray(values, dtype=np.float64)
+    w = np.broadcast_to(np.asarray(weights, dtype=np.float64), v.shape)
+    ok = np.isfinite(v)
+    w = np.where(ok, w, 0.0)
+    vw = np.where(ok, v, 0.0) * w
+    ny, nx = v.shape[-2:]
+    py, px = -ny % factor, -nx % factor
+    pad = [(0, 0)] * (v.ndim - 2) + [(0, py), (0, px)]
+    shape = (*v.shape[:-2], (ny + py) // factor, factor, (nx + px) // factor, factor)
+    s = np.pad(vw, pad).reshape(shape).sum(axis=(-3, -1))
+    sw = np.pad(w, pad).reshape(shape).sum(axis=(-3, -1))
     with np.errstate(all="ignore"):
-        mean = sel["npp"].mean("time", skipna=True)
-        cov = sel["coverage"].mean("time", skipna=True)
-    return xr.Dataset({"npp": mean, "coverage": cov}).load()
+        mean = np.where(sw > 0, s / sw, np.nan)
+    return mean, sw
+
+
+def _block_axis(c: np.ndarray, factor: int) -> np.ndarray:
+    """Centres of the blocks of ``factor`` cells along an axis of centres ``c`` (midpoints
+    of the blocks' outer cell edges)."""
+    if factor == 1:
+        return np.asarray(c)
+    e = _edges(c)
+    be = np.concatenate([e[::factor], [e[-1]]]) if (len(c) % factor) else e[::factor]
+    return (be[1:] + be[:-1]) / 2
+
+
+def _reduce_dataset(ds: xr.Dataset, factor: int) -> xr.Dataset:
+    """Block means (:func:`block_mean`) of ``npp`` and ``coverage`` of a reduced period mean
+    (numpy-backed, with the weights ``npp_weight`` / ``coverage_weight``)."""
+    if factor == 1:
+        return ds
+    lat = _block_axis(ds["lat"].values, factor)
+    lon = _block_axis(ds["lon"].values, factor)
+    out = {}
+    for v in ("npp", "coverage"):
+        m, w = block_mean(ds[v].values, ds[f"{v}_weight"].values, factor)
+        out[v] = (ds[v].dims, m)
+        out[f"{v}_weight"] = (ds[v].dims, w)
+    return xr.Dataset(out, coords={"model": ds["model"].values, "lat": lat, "lon": lon},
+                      attrs={**ds.attrs, "block": ds.attrs.get("block", 1) * factor})
+
+
+def period_means(maps: xr.Dataset, spans, *, width: Width = "two-column",
+                 min_coverage: float | None = None) -> PeriodMeans:
+    """Mean rate and coverage of every span in ``spans``, per model, in one computation.
+
+    Parameters
+    ----------
+    maps : the Dataset of :func:`euphotic.results.open_maps` (npp in mg m-2 d-1 of carbon,
+        coverage 0-1)
+    spans : iterable of (first_year, last_year), both included
+    width : keyword-only
+        Print width: the means are reduced (area-weighted block means, :func:`block_mean`)
+        to at most :data:`MAX_CELLS_PER_PIXEL` cells per PNG pixel of the widest map panel.
+    min_coverage : float, keyword-only
+        Also count, per model at full resolution, the cells with a mean rate whose mean
+        coverage is below it (attr ``n_low`` of each Dataset).
+
+    Returns
+    -------
+    dict
+        span -> numpy-backed Dataset (model, lat, lon) with ``npp`` (mg m-2 d-1), ``coverage``
+        (1) and their block weights ``npp_weight`` / ``coverage_weight`` (m2 of cells with a
+        value), attr ``block`` (cells per block side).
+
+    Notes
+    -----
+    A cell's mean is the mean over the span's months with a value (as
+    :func:`euphotic.compare.difference`); a block's is the cell-area-weighted mean of its
+    cells with a value (NaN if none: land where the block is all land). The stack of months
+    is never held in memory: each month is read once, summed into disjoint groups of years
+    that the spans add up, and all spans are reduced together, one ``dask.compute`` per
+    band of about :data:`BAND_CELLS` cells (one for a grid below that).
+    """
+
+    from euphotic.geo import cell_area
+
+    spans = list(dict.fromkeys(tuple(s) for s in spans))
+    lat, lon = maps["lat"].values, maps["lon"].values
+    f = _reduce_factor(len(lat), len(lon), panel_width_in=_widest_panel_in(width))
+    years = maps["month"].dt.year.values
+    area = xr.DataArray(np.asarray(cell_area(lat, lon)), dims=("lat", "lon"),
+                        coords={"lat": maps["lat"], "lon": maps["lon"]})
+    # disjoint groups of years: each month is summed once, whatever the spans' overlaps
+    cuts = sorted({y for a, b in spans for y in (a, b + 1)})
+    groups = [(a, b - 1) for a, b in zip(cuts[:-1], cuts[1:], strict=False)
+              if any(s[0] <= a and b - 1 <= s[1] for s in spans)]
+    rows = _band_rows(maps, f)
+    parts: dict = {}
+    for r0 in range(0, len(lat), rows):
+        band = maps.isel(lat=slice(r0, r0 + rows))
+        for key, val in _band_means(band, area.isel(lat=slice(r0, r0 + rows)), spans, groups,
+                                    years, f, min_coverage).items():
+            parts.setdefault(key, []).append(val)
+    out: PeriodMeans = {}
+    blat, blon = _block_axis(lat, f), _block_axis(lon, f)
+    models = maps["model"].values
+    for span in spans:
+        data = {}
+        for v in ("npp", "coverage"):
+            val = np.concatenate(parts[(span, v)], axis=1)
+            wt = np.concatenate(parts[(span, f"{v}_weight")], axis=1)
+            data[v] = (("model", "lat", "lon"), val)
+            data[f"{v}_weight"] = (("model", "lat", "lon"), wt)
+        attrs = {"block": f}
+        if (span, "n_low") in parts:
+            n = np.sum(parts[(span, "n_low")], axis=0)
+            attrs["n_low"] = {str(m): int(k) for m, k in zip(models, n, strict=True)}
+        out[span] = xr.Dataset(data, coords={"model": models, "lat": blat, "lon": blon},
+                               attrs=attrs)
+    return out
+
+
+#: Cells of a band of rows reduced in one ``dask.compute`` (this tool's choice: about 2.3
+#: million cells, a quarter of a global 1/12-degree grid, keeps the computation's peak near
+#: 0.5 GiB; measured in benchmarks/figure_set.py).
+BAND_CELLS = 2_400_000
+
+
+def _band_rows(maps: xr.Dataset, f: int) -> int:
+    """Rows of a band: a multiple of the stored chunks' rows and of the block ``f``, about
+    :data:`BAND_CELLS` cells."""
+    data = maps["npp"].data
+    chunk = (data.chunks[maps["npp"].dims.index("lat")][0] if hasattr(data, "chunks")
+             else maps.sizes["lat"])
+    step = math.lcm(max(1, int(chunk)), f)
+    return max(step, BAND_CELLS // max(1, maps.sizes["lon"]) // step * step)
+
+
+def _band_means(band: xr.Dataset, area: xr.DataArray, spans, groups, years, f: int,
+                min_coverage: float | None) -> dict:
+    """Block-reduced means of one band of rows (numpy arrays), all spans in one
+    ``dask.compute``: sum and count of each group of years, added up per span."""
+    import dask
+
+    todo = {}
+    with np.errstate(all="ignore"):
+        sums = {}
+        for g in groups:
+            sel = band.isel(time=np.flatnonzero((years >= g[0]) & (years <= g[1])))
+            for v in ("npp", "coverage"):
+                x = sel[v].transpose("model", "time", "lat", "lon")
+                sums[(g, v)] = (x.sum("time", skipna=True, dtype=np.float64),
+                                x.count("time"))
+        for span in spans:
+            inside = [g for g in groups if span[0] <= g[0] and g[1] <= span[1]]
+            means = {}
+            for v in ("npp", "coverage"):
+                total = sum(sums[(g, v)][0] for g in inside)
+                count = sum(sums[(g, v)][1] for g in inside)
+                m = total / count.where(count > 0)
+                means[v] = m
+                if f == 1:
+                    todo[(span, v)] = m
+                    todo[(span, f"{v}_weight")] = area.where(m.notnull(), 0.0).transpose(
+                        "model", "lat", "lon")
+                    continue
+                m = m.chunk({"lat": _multiple(m.chunks, 1, f, m.sizes["lat"]),
+                             "lon": _multiple(m.chunks, 2, f, m.sizes["lon"])})
+                w = area.where(m.notnull(), 0.0).transpose("model", "lat", "lon")
+                kw = {"lat": f, "lon": f, "boundary": "pad"}
+                sw = w.coarsen(**kw).sum()
+                todo[(span, v)] = (m.fillna(0.0) * w).coarsen(**kw).sum() / sw.where(sw > 0)
+                todo[(span, f"{v}_weight")] = sw
+            if min_coverage is not None:
+                todo[(span, "n_low")] = (means["npp"].notnull()
+                                         & (means["coverage"] < min_coverage)).sum(("lat", "lon"))
+        done = dask.compute(*todo.values())
+    return {k: np.asarray(getattr(d, "values", d)) for k, d in zip(todo, done, strict=True)}
+
+
+def _multiple(chunks, axis: int, f: int, n: int) -> int:
+    """A chunk length along ``axis`` near the current one and a multiple of ``f``."""
+    size = chunks[axis][0] if chunks and chunks[axis] else n
+    return min(max(f, size // f * f), max(f, math.ceil(n / f) * f))
+
+
+def _period_maps(maps: xr.Dataset, span: tuple[int, int], *, means: PeriodMeans | None = None,
+                 ncols: int = 1, width: Width = "two-column") -> xr.Dataset:
+    """The period means of ``span`` (from ``means``, or computed), reduced further for a
+    panel of a grid of ``ncols`` columns at ``width``."""
+    span = tuple(span)
+    ds = (means or {}).get(span)
+    if ds is None:
+        ds = period_means(maps, [span], width=width)[span]
+    block = ds.attrs.get("block", 1)
+    full = (ds.sizes["lat"] * block, ds.sizes["lon"] * block)
+    f = _reduce_factor(*full, panel_width_in=_panel_width_in(ncols, width))
+    return _reduce_dataset(ds, max(1, math.ceil(f / block)))  # blocks of blocks: >= f
+
+
+def _n_low(maps: xr.Dataset, span, means: PeriodMeans | None, min_coverage: float,
+           shown: xr.Dataset) -> dict[str, int]:
+    """Cells of ``span`` with a mean rate below ``min_coverage`` per model, counted at full
+    resolution where :func:`period_means` counted them, else on ``shown``."""
+    ds = (means or {}).get(tuple(span))
+    if ds is not None and "n_low" in ds.attrs:
+        return ds.attrs["n_low"]
+    if shown.attrs.get("block", 1) > 1:
+        sel = maps.isel(time=np.flatnonzero(((maps["month"].dt.year >= span[0])
+                                             & (maps["month"].dt.year <= span[1])).values))
+        with np.errstate(all="ignore"):
+            n = (sel["npp"].mean("time").notnull()
+                 & (sel["coverage"].mean("time") < min_coverage)).sum(("lat", "lon")).compute()
+        return {str(m): int(k) for m, k in zip(n["model"].values, n.values, strict=True)}
+    return {m: int((np.isfinite(shown["npp"].sel(model=m).values)
+                    & (shown["coverage"].sel(model=m).values < min_coverage)).sum())
+            for m in (str(x) for x in shown["model"].values)}
+
+
+def _change(per: xr.Dataset, base: xr.Dataset, relative: bool) -> xr.DataArray:
+    """Period minus baseline mean rate (mg m-2 d-1), or in percent of the baseline (NaN
+    where it is 0), as :func:`euphotic.compare.difference` forms them."""
+    with np.errstate(all="ignore"):
+        diff = per["npp"] - base["npp"]
+        return 100.0 * diff / base["npp"].where(base["npp"] != 0) if relative else diff
 
 
 def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Projection = "equal-area",
                min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
-               regions=None) -> Drawn:
+               regions=None, means: PeriodMeans | None = None) -> Drawn:
     """Mean rate over ``period`` for every model, one shared logarithmic colour scale.
 
     Parameters
@@ -497,6 +756,9 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
     regions : mapping, keyword-only
         Region name -> boolean (lat, lon) mask (:func:`euphotic.results.open_region_masks`),
         outlined on every panel and named on the first; None: no outlines.
+    means : dict, keyword-only
+        Period means already computed by :func:`period_means` (the figure set computes all
+        of them at once); by default computed here.
 
     Returns
     -------
@@ -510,14 +772,18 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
     Each panel is the mean over the period's months of the monthly mean daily rate (months
     without a value skipped); a cell's coverage is the mean of its monthly coverages. Colour
     limits are the :data:`CLIP_PERCENTILES` of all panels' positive values together.
+    Grids finer than :data:`MAX_CELLS_PER_PIXEL` cells per PNG pixel of a panel are drawn as
+    area-weighted block means (:func:`block_mean`; the counts of the caption are of cells).
     """
     import matplotlib.pyplot as plt
     from matplotlib.colors import LogNorm
     from matplotlib.ticker import FixedLocator, NullLocator
 
-    mean = _period_maps(maps, period)
+    ncols = _grid_layout(maps.sizes["model"], width)[1]
+    mean = _period_maps(maps, period, means=means, ncols=ncols, width=width)
     lat, lon = mean["lat"].values, mean["lon"].values
-    layer = region_layer(regions, lat, lon)
+    rlat, rlon = maps["lat"].values, maps["lon"].values
+    layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
     models = [str(m) for m in mean["model"].values]
     vals = mean["npp"].values
@@ -550,7 +816,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
                                  transform=ccrs.PlateCarree(), rasterized=True)
             meshes.append(mesh)
             marks.append(_mark(ax, lat, lon, np.isfinite(v) & (c < min_coverage), "...."))
-            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
+            o, t = _draw_regions(ax, layer, rlat, rlon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
             ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
@@ -564,8 +830,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
         if narrow:
             labels += _region_legend(fig, layer, ncols=2)
         fig.suptitle(f"Mean net primary production, {_span_text(period)}")
-    n_low = {m: int((np.isfinite(mean['npp'].sel(model=m).values)
-                     & (mean['coverage'].sel(model=m).values < min_coverage)).sum()) for m in models}
+    n_low = _n_low(maps, period, means, min_coverage, mean)
     caption = (
         f"Mean daily net primary production (mg C m-2 d-1) over {_span_text(period)} "
         f"(mean of the monthly mean rates), {', '.join(names[m] for m in models)}. "
@@ -593,7 +858,8 @@ def _projection_text(projection: Projection) -> str:
 def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
                    projection: Projection = "equal-area", relative: bool = True,
                    min_coverage: float = DEFAULT_MIN_COVERAGE,
-                   width: Width = "two-column", regions=None) -> Drawn:
+                   width: Width = "two-column", regions=None,
+                   means: PeriodMeans | None = None) -> Drawn:
     """Mean rate over ``period`` against ``baseline``, per model (from
     :func:`euphotic.compare.difference`), diverging colours centred on zero.
 
@@ -601,7 +867,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     ----------
     relative : keyword-only
         Percent of the baseline (default) or absolute difference (mg C m-2 d-1).
-    regions : keyword-only
+    regions, means : keyword-only
         As for :func:`map_panels`.
 
     Returns
@@ -619,13 +885,13 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     import matplotlib.pyplot as plt
     from matplotlib.colors import Normalize
 
-    diff = compare.difference(maps, baseline, period).load()
-    var = "percent" if relative else "difference"
-    d = diff[var]
-    base_cov = _period_maps(maps, baseline)["coverage"]
-    per_cov = _period_maps(maps, period)["coverage"]
+    kw = {"means": means, "ncols": _grid_layout(maps.sizes["model"], width)[1], "width": width}
+    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
+    d = _change(per, base, relative)
+    base_cov, per_cov = base["coverage"], per["coverage"]
     lat, lon = d["lat"].values, d["lon"].values
-    layer = region_layer(regions, lat, lon)
+    rlat, rlon = maps["lat"].values, maps["lon"].values
+    layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
     models = [str(m) for m in d["model"].values]
     vals = d.values
@@ -656,7 +922,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
             low = np.isfinite(v) & ((c < min_coverage)
                                     | (base_cov.sel(model=m).values < min_coverage))
             _mark(ax, lat, lon, low, "....")
-            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
+            o, t = _draw_regions(ax, layer, rlat, rlon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
             ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
@@ -744,7 +1010,8 @@ def ratio_limits(ratios: np.ndarray) -> tuple[float, list[float]]:
 
 def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
               projection: Projection = "equal-area", min_coverage: float = DEFAULT_MIN_COVERAGE,
-              width: Width = "two-column", regions=None) -> Drawn:
+              width: Width = "two-column", regions=None,
+              means: PeriodMeans | None = None) -> Drawn:
     """Ratio of mean rates: ``period`` / ``baseline`` per model and, where several models
     ran, each further model / the first over ``period``; diverging colours centred on one on
     a logarithmic scale with symmetric limits (1/f to f, :func:`ratio_limits`).
@@ -753,7 +1020,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
     ----------
     maps : the Dataset of :func:`euphotic.results.open_maps` (npp in mg m-2 d-1 of carbon)
     period, baseline : (first_year, last_year), both included
-    projection, min_coverage, width, regions : keyword-only
+    projection, min_coverage, width, regions, means : keyword-only
         As for :func:`map_panels`.
 
     Returns
@@ -774,9 +1041,12 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
     from matplotlib.colors import LogNorm
     from matplotlib.ticker import FixedLocator, NullLocator
 
-    per, base = _period_maps(maps, period), _period_maps(maps, baseline)
+    n_panels = 2 * maps.sizes["model"] - 1
+    kw = {"means": means, "ncols": _grid_layout(n_panels, width)[1], "width": width}
+    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
     lat, lon = per["lat"].values, per["lon"].values
-    layer = region_layer(regions, lat, lon)
+    rlat, rlon = maps["lat"].values, maps["lon"].values
+    layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
     models = [str(m) for m in per["model"].values]
     P, B = _span_text(period), _span_text(baseline)
@@ -824,7 +1094,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
                                  transform=ccrs.PlateCarree(), rasterized=True)
             meshes.append(mesh)
             _mark(ax, lat, lon, low, "....")
-            o, t = _draw_regions(ax, layer, lat, lon, names=k == 0 and not narrow)
+            o, t = _draw_regions(ax, layer, rlat, rlon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
             ax.set_title(title, fontsize=FONT_PT + 1)
@@ -861,7 +1131,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
 def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
                       projection: Projection = "equal-area", relative: bool = True,
                       min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
-                      regions=None) -> Drawn:
+                      regions=None, means: PeriodMeans | None = None) -> Drawn:
     """Baseline | period | change, one row per model: the two means on one shared
     logarithmic scale, the change (:func:`euphotic.compare.difference`) on a diverging scale
     centred on zero with symmetric limits.
@@ -870,7 +1140,7 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
     ----------
     maps : the Dataset of :func:`euphotic.results.open_maps` (npp in mg m-2 d-1 of carbon)
     period, baseline : (first_year, last_year), both included
-    projection, relative, min_coverage, width, regions : keyword-only
+    projection, relative, min_coverage, width, regions, means : keyword-only
         As for :func:`difference_map` and :func:`map_panels`.
 
     Returns
@@ -884,11 +1154,12 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
     import matplotlib.pyplot as plt
     from matplotlib.ticker import FixedLocator, MaxNLocator, NullLocator
 
-    per, base = _period_maps(maps, period), _period_maps(maps, baseline)
-    change = compare.difference(maps, baseline, period).load()["percent" if relative
-                                                                else "difference"]
+    kw = {"means": means, "ncols": 3, "width": width}
+    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
+    change = _change(per, base, relative)
     lat, lon = per["lat"].values, per["lon"].values
-    layer = region_layer(regions, lat, lon)
+    rlat, rlon = maps["lat"].values, maps["lon"].values
+    layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
     models = [str(m) for m in per["model"].values]
     P, B = _span_text(period), _span_text(baseline)
@@ -947,7 +1218,8 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
             axs[2].set_title(f"change, {P} against {B}" if width == "two-column"
                              else "change", fontsize=FONT_PT + 1)
             for j, ax in enumerate(axs):
-                o, t = _draw_regions(ax, layer, lat, lon, names=in_map and i == 0 and j == 0)
+                o, t = _draw_regions(ax, layer, rlat, rlon,
+                                     names=in_map and i == 0 and j == 0)
                 outlines.append(o)
                 labels += t
         cax = subs[n].subplots(1, 2, gridspec_kw={"width_ratios": [2, 1]})
@@ -1519,7 +1791,6 @@ def caption_texts(drawn: Drawn, ds: xr.Dataset, *, min_coverage: float, folder: 
 
 def save(drawn: Drawn, folder: Path) -> list[Path]:
     """Write ``NAME.png`` (at :data:`DPI`) and ``NAME.pdf``; the Figure is then closed."""
-    import matplotlib.pyplot as plt
 
     out = []
     for ext in ("png", "pdf"):
@@ -1527,7 +1798,7 @@ def save(drawn: Drawn, folder: Path) -> list[Path]:
         drawn.figure.savefig(p, dpi=DPI, metadata={"Software": f"euphotic {__version__}"}
                              if ext == "png" else {"Creator": f"euphotic {__version__}"})
         out.append(p)
-    plt.close(drawn.figure)
+    _close(drawn)
     return out
 
 
@@ -1536,7 +1807,23 @@ def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | 
              min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
              relative: bool = True, folder: Path | None = None,
              regions=None) -> tuple[list[Drawn], list[str]]:
-    """Every figure of the set (not saved), and notes on figures left out.
+    """Every figure of the set (not saved), and notes on figures left out; the options as
+    :func:`iter_figures`, which draws them one at a time."""
+    notes: list[str] = []
+    drawn = list(iter_figures(maps, totals, period=period, baseline=baseline,
+                              projection=projection, min_coverage=min_coverage, width=width,
+                              relative=relative, folder=folder, regions=regions, notes=notes))
+    return drawn, notes
+
+
+def iter_figures(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | None = None,
+                 baseline: tuple[int, int] | None = None, projection: Projection = "equal-area",
+                 min_coverage: float = DEFAULT_MIN_COVERAGE, width: Width = "two-column",
+                 relative: bool = True, folder: Path | None = None, regions=None,
+                 notes: list[str] | None = None) -> Iterator[Drawn]:
+    """Every figure of the set (not saved), drawn when asked for, so that a caller saving
+    and closing each before the next holds one figure at a time (a map of a large grid holds
+    hundreds of MB); notes on figures left out are appended to ``notes``.
 
     ``period`` defaults to the whole run. The difference, baseline | period | change and
     ratio maps set ``period`` (or, by default, the run's last year) against ``baseline`` (by
@@ -1562,28 +1849,31 @@ def draw_all(maps: xr.Dataset, totals: xr.Dataset, *, period: tuple[int, int] | 
     if baseline is not None:
         _check_years(baseline, years, "--baseline", where)
     shown = period or whole
-    notes: list[str] = []
-    drawn = [map_panels(maps, period=shown, projection=projection, min_coverage=min_coverage,
-                        width=width, regions=regions)]
+    notes = [] if notes is None else notes
     compared = period or (years[-1], years[-1])
     base = baseline or ((years[0], compared[0] - 1) if compared[0] > years[0] else None)
+    # every period mean the maps need, reduced to the drawn resolution, in one computation
+    means = period_means(maps, [shown] + ([compared, base] if base else []), width=width,
+                         min_coverage=min_coverage)
+    yield map_panels(maps, period=shown, projection=projection, min_coverage=min_coverage,
+                     width=width, regions=regions, means=means)
     if base is None:
         notes.append("no difference map: the run has a single year (give --baseline)")
     else:
         kw = {"period": compared, "baseline": base, "projection": projection,
-              "min_coverage": min_coverage, "width": width, "regions": regions}
-        drawn.append(difference_map(maps, relative=relative, **kw))
-        drawn.append(comparison_panels(maps, relative=relative, **kw))
-        drawn.append(ratio_map(maps, **kw))
+              "min_coverage": min_coverage, "width": width, "regions": regions,
+              "means": means}
+        yield difference_map(maps, relative=relative, **kw)
+        yield comparison_panels(maps, relative=relative, **kw)
+        yield ratio_map(maps, **kw)
     if totals.sizes.get("region", 0) == 0:
         notes.append("no regional figures: the run has no regions")
     else:
-        drawn.append(annual_series(totals, baseline=base or whole, width=width))
-        drawn.append(seasonal_figure(totals, period=shown, width=width))
-        drawn.append(totals_chart(totals, period=period, min_coverage=min_coverage, width=width))
-        drawn.append(monthly_series(totals, baseline=base or whole, period=period,
-                                    min_coverage=min_coverage, width=width))
-    return drawn, notes
+        yield annual_series(totals, baseline=base or whole, width=width)
+        yield seasonal_figure(totals, period=shown, width=width)
+        yield totals_chart(totals, period=period, min_coverage=min_coverage, width=width)
+        yield monthly_series(totals, baseline=base or whole, period=period,
+                             min_coverage=min_coverage, width=width)
 
 
 def write_figure_set(folder: str | Path, *, period: str | None = None,
@@ -1611,14 +1901,17 @@ def write_figure_set(folder: str | Path, *, period: str | None = None,
     except NoRunError as exc:  # a run from before region masks were recorded
         regions, region_note = None, [f"no region outlines on the maps: {exc}"]
     inputs = input_lines(folder)
-    drawn, notes = draw_all(maps, totals, period=span, baseline=base, projection=projection,
-                            min_coverage=min_coverage, width=width, relative=relative,
-                            folder=folder, regions=regions)
-    out = FigureSet(notes=notes + region_note)
+    notes: list[str] = []
+    figures = iter_figures(maps, totals, period=span, baseline=base, projection=projection,
+                           min_coverage=min_coverage, width=width, relative=relative,
+                           folder=folder, regions=regions, notes=notes)
+    d: Drawn | None = next(figures)  # bad options fail here, before the folder is touched
+    out = FigureSet(notes=notes)
     try:
         with runfolder.OutputFolder(folder).adding(command, replace_kinds=(KIND,)) as (stage,
                                                                                       added):
-            for d in drawn:
+            # each figure saved and closed before the next is drawn (one in memory at a time)
+            while d is not None:
                 for p in save(d, stage.path):
                     added[p.name] = {"kind": KIND, "description": d.caption_title}
                     out.files.append(folder / p.name)
@@ -1629,9 +1922,23 @@ def write_figure_set(folder: str | Path, *, period: str | None = None,
                     stage.file(name).write_text(text)
                     added[name] = {"kind": KIND, "description": f"caption of {d.name}"}
                     out.files.append(folder / name)
+                _close(d)
+                d = None  # let the figure go before the next one is drawn
+                d = next(figures, None)
     finally:
-        import matplotlib.pyplot as plt
-
-        for d in drawn:
-            plt.close(d.figure)
+        if d is not None:
+            _close(d)
+    out.notes += region_note
     return out
+
+
+def _close(d: Drawn) -> None:
+    """Close the figure and collect it now: a figure's artists form reference cycles, and a
+    map of a large grid left to the next automatic collection kept about 0.4 GiB more at
+    the set's peak (measured with benchmarks/figure_set.py)."""
+    import gc
+
+    import matplotlib.pyplot as plt
+
+    plt.close(d.figure)
+    gc.collect()
