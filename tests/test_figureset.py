@@ -167,7 +167,7 @@ def test_bad_options_fail_in_one_line_and_leave_the_folder_as_it_was(three_years
 # what is drawn
 
 
-def test_map_panels_share_one_log_norm_with_a_labelled_colourbar(data):
+def test_map_panels_share_one_log_norm_with_a_labelled_colourbar(data, three_years):
     from matplotlib.colors import LogNorm
 
     maps, _ = data
@@ -185,8 +185,10 @@ def test_map_panels_share_one_log_norm_with_a_labelled_colourbar(data):
     assert (norm.vmin, norm.vmax) == pytest.approx(tuple(np.percentile(pos, [2, 98])))
     assert d.artists["extend"] == "both" and d.artists["colorbar"].extend == "both"
     titles = [ax.get_title() for ax in d.artists["axes"]]
-    assert titles[0] == "VGPM (Behrenfeld & Falkowski 1997)"
-    assert "vgpm" not in " ".join(titles)  # published names, not the internal ids
+    assert titles[0] == "VGPM"  # the published short name; the caption gives name and citation
+    assert "vgpm" not in " ".join(titles)  # not the internal ids
+    cap, _ = figureset.caption_texts(d, maps, min_coverage=0.5, folder=three_years)
+    assert "VGPM: VGPM (Behrenfeld & Falkowski 1997); " in cap
     assert np.asarray(_rgb(d.figure), dtype=float).std() > 20
     import matplotlib.pyplot as plt
 
@@ -614,3 +616,19 @@ def test_a_run_without_region_masks_gets_figures_without_outlines(tmp_path, monk
             in res.stdout.splitlines())
     assert "Coloured outlines" not in (out / "fig_npp_maps.caption.txt").read_text()
     assert (out / "fig_totals_coverage.png").is_file()
+
+
+def test_a_global_domain_is_drawn_in_an_equal_area_world_projection():
+    """A whole-globe grid in the Lambert azimuthal projection centred on it folds into a thin
+    line; wide domains use Equal Earth (equal-area) and say so in the caption text. A
+    regional domain keeps the Lambert azimuthal projection."""
+    import cartopy.crs as ccrs
+
+    from euphotic.figureset import _projection, _projection_text
+
+    glat, glon = np.arange(-89.0, 90.0, 2.0), np.arange(-179.0, 180.0, 2.0)
+    assert isinstance(_projection("equal-area", glat, glon), ccrs.EqualEarth)
+    assert _projection_text("equal-area", glat, glon) == "Equal Earth projection (equal-area)."
+    rlat, rlon = np.arange(40.25, 60.0, 0.5), np.arange(-35.75, -14.0, 0.5)
+    assert isinstance(_projection("equal-area", rlat, rlon), ccrs.LambertAzimuthalEqualArea)
+    assert isinstance(_projection("latlon", glat, glon), ccrs.PlateCarree)

@@ -180,6 +180,13 @@ def _model_names(ds: xr.Dataset) -> dict[str, str]:
     return {str(m): ds.attrs.get(f"model_name_{m}", str(m)) for m in ds["model"].values}
 
 
+def _model_labels(ds: xr.Dataset) -> dict[str, str]:
+    """Short labels for panel titles and legends (the captions give the published names)."""
+    from euphotic.outputs import model_label
+
+    return {str(m): model_label(str(m)) for m in ds["model"].values}
+
+
 def _citations(ds: xr.Dataset) -> dict[str, str]:
     return {str(m): ds.attrs.get(f"citation_{m}", "not recorded") for m in ds["model"].values}
 
@@ -206,8 +213,20 @@ def _projection(kind: Projection, lat: np.ndarray, lon: np.ndarray):
 
     if kind == "latlon":
         return ccrs.PlateCarree(central_longitude=float(np.mean([lon.min(), lon.max()])))
+    if _is_wide(lat, lon):  # an azimuthal projection folds a hemisphere or more into a sliver
+        return ccrs.EqualEarth(central_longitude=float((lon.min() + lon.max()) / 2))
     return ccrs.LambertAzimuthalEqualArea(central_longitude=float((lon.min() + lon.max()) / 2),
                                           central_latitude=float((lat.min() + lat.max()) / 2))
+
+
+#: Domains spanning at least this many degrees of longitude, or of latitude, are drawn in the
+#: Equal Earth projection (equal-area, for the whole globe) instead of the Lambert azimuthal
+#: one centred on the domain (a judgement: the azimuthal one distorts strongly this far out).
+WIDE_DOMAIN_DEG = (180.0, 120.0)
+
+
+def _is_wide(lat: np.ndarray, lon: np.ndarray) -> bool:
+    return bool(float(np.ptp(lon)) >= WIDE_DOMAIN_DEG[0] or float(np.ptp(lat)) >= WIDE_DOMAIN_DEG[1])
 
 
 def _edges(c: np.ndarray) -> np.ndarray:
@@ -785,6 +804,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
     rlat, rlon = maps["lat"].values, maps["lon"].values
     layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
+    mlabels = _model_labels(maps)
     models = [str(m) for m in mean["model"].values]
     vals = mean["npp"].values
     pos = vals[np.isfinite(vals) & (vals > 0)]
@@ -819,7 +839,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
             o, t = _draw_regions(ax, layer, rlat, rlon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
-            ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
+            ax.set_title(textwrap.fill(mlabels[m], 48 if width == "two-column" else 45),
                          fontsize=FONT_PT + 1)
         cb = fig.colorbar(meshes[0], ax=axes, orientation="horizontal", extend=extend,
                           shrink=0.85, aspect=35, pad=0.02)
@@ -841,7 +861,7 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
         f"Mid grey: land; light grey: ocean without data. Stippled: cells whose mean coverage "
         f"over the period is below {min_coverage:g} of days (this tool's default is "
         f"{DEFAULT_MIN_COVERAGE:g}; {', '.join(f'{names[m]}: {n_low[m]} cells' for m in models)}). "
-        + _regions_text(layer, legend=narrow) + _projection_text(projection)
+        + _regions_text(layer, legend=narrow) + _projection_text(projection, lat, lon)
     )
     return Drawn("fig_npp_maps", fig, f"Mean net primary production, {_span_text(period)}",
                  caption, {"meshes": meshes, "colorbar": cb, "norm": norm, "marks": marks,
@@ -849,9 +869,11 @@ def map_panels(maps: xr.Dataset, *, period: tuple[int, int], projection: Project
                            "outlines": outlines, "region_names": labels})
 
 
-def _projection_text(projection: Projection) -> str:
+def _projection_text(projection: Projection, lat=None, lon=None) -> str:
     if projection == "latlon":
         return "Plain latitude-longitude (Plate Carree) projection."
+    if lat is not None and lon is not None and _is_wide(np.asarray(lat), np.asarray(lon)):
+        return "Equal Earth projection (equal-area)."
     return "Lambert azimuthal equal-area projection centred on the domain."
 
 
@@ -893,6 +915,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     rlat, rlon = maps["lat"].values, maps["lon"].values
     layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
+    mlabels = _model_labels(maps)
     models = [str(m) for m in d["model"].values]
     vals = d.values
     fin = np.abs(vals[np.isfinite(vals)])
@@ -925,7 +948,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
             o, t = _draw_regions(ax, layer, rlat, rlon, names=k == 0 and not narrow)
             outlines.append(o)
             labels += t
-            ax.set_title(textwrap.fill(names[m], 48 if width == "two-column" else 45),
+            ax.set_title(textwrap.fill(mlabels[m], 48 if width == "two-column" else 45),
                          fontsize=FONT_PT + 1)
         cb = fig.colorbar(meshes[0], ax=axes, orientation="horizontal", extend=extend,
                           shrink=0.85, aspect=35, pad=0.02)
@@ -943,7 +966,7 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
         f"{_ordinal(DIFF_PERCENTILE)} percentile of the absolute change (+-{_num(lim)}; arrows mark "
         f"values beyond). Mid grey: land; light grey, hatched: ocean without data in either "
         f"period. Stippled: mean coverage below {min_coverage:g} of days in either period. "
-        + _regions_text(layer, legend=narrow) + _projection_text(projection)
+        + _regions_text(layer, legend=narrow) + _projection_text(projection, lat, lon)
     )
     return Drawn("fig_npp_difference", fig,
                  f"Net primary production {_span_text(period)} against {_span_text(baseline)}",
@@ -1048,6 +1071,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
     rlat, rlon = maps["lat"].values, maps["lon"].values
     layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
+    mlabels = _model_labels(maps)
     models = [str(m) for m in per["model"].values]
     P, B = _span_text(period), _span_text(baseline)
     panels = []  # (title, ratio, low coverage, land)
@@ -1056,7 +1080,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
             a, b = per["npp"].sel(model=m).values, base["npp"].sel(model=m).values
             ca, cb_ = per["coverage"].sel(model=m).values, base["coverage"].sel(model=m).values
             r = a / b
-            panels.append((f"{names[m]}: {P} / {B}", r,
+            panels.append((f"{mlabels[m]}: {P} / {B}", r,
                            np.isfinite(a) & np.isfinite(b) & ((ca < min_coverage)
                                                                | (cb_ < min_coverage)),
                            ~np.isfinite(ca)))
@@ -1064,7 +1088,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
         for m in models[1:]:
             a, b = per["npp"].sel(model=m).values, per["npp"].sel(model=first).values
             ca, cb_ = per["coverage"].sel(model=m).values, per["coverage"].sel(model=first).values
-            panels.append((f"{names[m]} / {names[first]}, {P}", a / b,
+            panels.append((f"{mlabels[m]} / {mlabels[first]}, {P}", a / b,
                            np.isfinite(a) & np.isfinite(b) & ((ca < min_coverage)
                                                                | (cb_ < min_coverage)),
                            ~np.isfinite(ca)))
@@ -1120,7 +1144,7 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
         f"holding the {_ordinal(DIFF_PERCENTILE)} percentile of |log ratio|; arrows on the "
         f"colour bar mark values beyond). Mid grey: land; light grey, hatched: ocean without "
         f"data in either. Stippled: mean coverage below {min_coverage:g} of days in either. "
-        + _regions_text(layer, legend=narrow) + _projection_text(projection)
+        + _regions_text(layer, legend=narrow) + _projection_text(projection, lat, lon)
     )
     return Drawn("fig_npp_ratio", fig, f"Ratio of net primary production, {P} / {B}", caption,
                  {"meshes": meshes, "colorbar": cb, "norm": norm, "ticks": ticks,
@@ -1161,6 +1185,7 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
     rlat, rlon = maps["lat"].values, maps["lon"].values
     layer = region_layer(regions, rlat, rlon)
     names = _model_names(maps)
+    mlabels = _model_labels(maps)
     models = [str(m) for m in per["model"].values]
     P, B = _span_text(period), _span_text(baseline)
     norm, extend, (lo, hi) = _log_scale([per["npp"].values, base["npp"].values])
@@ -1188,7 +1213,7 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
         subs = fig.subfigures(n + 1, 1, height_ratios=[row_h] * n + [cb_h])
         rows, means, changes, outlines, labels = [], [], [], [], []
         for i, (sf, m) in enumerate(zip(subs[:n], models, strict=True)):
-            sf.suptitle(textwrap.fill(names[m], 90 if width == "two-column" else 45),
+            sf.suptitle(textwrap.fill(mlabels[m], 90 if width == "two-column" else 45),
                         fontsize=FONT_PT + 1, fontweight="bold")
             axs = [sf.add_subplot(1, 3, j + 1, projection=crs) for j in range(3)]
             rows.append(axs)
@@ -1249,7 +1274,7 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
         f"value (+-{_num(lim)}); arrows on the colour bars mark clipped values. Mid grey: "
         f"land; light grey: ocean without data (hatched on the change). Stippled: mean "
         f"coverage below {min_coverage:g} of days. "
-        + _regions_text(layer, legend=not in_map) + _projection_text(projection)
+        + _regions_text(layer, legend=not in_map) + _projection_text(projection, lat, lon)
     )
     return Drawn("fig_npp_baseline_period_change", fig,
                  f"Net primary production, {B} baseline against {P}", caption,
@@ -1285,6 +1310,7 @@ def annual_series(totals: xr.Dataset, *, baseline: tuple[int, int],
     ann = compare.annual_totals(totals)
     t = ann["total"]
     names = _model_names(totals)
+    mlabels = _model_labels(totals)
     models = [str(m) for m in t["model"].values]
     regions = [str(r) for r in t["region"].values]
     years = ann["year"].values.astype(int)
@@ -1306,7 +1332,7 @@ def annual_series(totals: xr.Dataset, *, baseline: tuple[int, int],
                     ax.fill_between([baseline[0] - 0.4, baseline[1] + 0.4], b.min(), b.max(),
                                     color=col, alpha=0.15, lw=0)
                     ax.axhline(b.mean(), color=col, lw=0.7, ls="--")
-                ax.plot(years, v, marker="o", ms=2.5, lw=1.0, color=col, label=names[m])
+                ax.plot(years, v, marker="o", ms=2.5, lw=1.0, color=col, label=mlabels[m])
             ax.set_title(r, fontsize=FONT_PT + 1, loc="left")
             ax.set_ylabel("Tg C yr$^{-1}$")
             ax.tick_params(labelsize=FONT_PT)
@@ -1343,6 +1369,7 @@ def seasonal_figure(totals: xr.Dataset, *, period: tuple[int, int],
 
     cyc = compare.seasonal_cycle(totals, years=period, variable="total")
     names = _model_names(totals)
+    mlabels = _model_labels(totals)
     models = [str(m) for m in cyc["model"].values]
     regions = [str(r) for r in cyc["region"].values]
     cm = cyc["calendar_month"].values
@@ -1355,7 +1382,7 @@ def seasonal_figure(totals: xr.Dataset, *, period: tuple[int, int],
                 ax.fill_between(cm, s["min"].values, s["max"].values, color=col, alpha=0.2,
                                 lw=0)
                 ax.plot(cm, s["mean"].values, color=col, lw=1.0, marker="o", ms=2,
-                        label=names[m])
+                        label=mlabels[m])
             ax.set_title(r, fontsize=FONT_PT + 1, loc="left")
             ax.set_ylabel("Tg C month$^{-1}$")
             ax.set_xticks(range(1, 13), list("JFMAMJJASOND"))
@@ -1486,6 +1513,7 @@ def totals_chart(totals: xr.Dataset, *, period: tuple[int, int] | None = None,
     t = _months_of(totals, period)
     low = low_coverage(t, min_coverage).values
     names = _model_names(totals)
+    mlabels = _model_labels(totals)
     models = [str(m) for m in t["model"].values]
     regions = [str(r) for r in t["region"].values]
     months = t["month"].values
@@ -1547,7 +1575,7 @@ def totals_chart(totals: xr.Dataset, *, period: tuple[int, int] | None = None,
                     for j in range(nm)] if side else
                    [Patch(color=LINE_COLOURS[0], lw=0),
                     Line2D([], [], color=MARK_COLOUR, lw=0.5)])
-        labels = ([f"{j + 1}: {names[m]}" for j, m in enumerate(models)] if side else
+        labels = ([f"{j + 1}: {mlabels[m]}" for j, m in enumerate(models)] if side else
                   ["mean across models", "lowest to highest model"])
         handles += [Patch(facecolor="#bbbbbb", hatch="xxxx", edgecolor=MARK_COLOUR, lw=0.3),
                     Line2D([], [], marker="x", color="#D55E00", lw=0, ms=4)]
@@ -1615,6 +1643,7 @@ def monthly_series(totals: xr.Dataset, *, baseline: tuple[int, int],
 
     t = _months_of(totals, period)
     names = _model_names(totals)
+    mlabels = _model_labels(totals)
     models = [str(m) for m in t["model"].values]
     regions = [str(r) for r in t["region"].values]
     months = t["month"].values
@@ -1651,7 +1680,7 @@ def monthly_series(totals: xr.Dataset, *, baseline: tuple[int, int],
             xs, ys = [], []
             for j, m in enumerate(models):
                 ax.plot(x, tr[j], color=LINE_COLOURS[j % len(LINE_COLOURS)], lw=0.9,
-                        zorder=3, label=names[m])
+                        zorder=3, label=mlabels[m])
                 xs += list(x[lo[j]])
                 ys += list(tr[j][lo[j]])
             marks.append(ax.scatter(xs, ys, marker="x", s=12, lw=0.9, color=MARK_COLOUR,
@@ -1769,7 +1798,7 @@ def caption_texts(drawn: Drawn, ds: xr.Dataset, *, min_coverage: float, folder: 
         except EuphoticError:  # not a committed run (a notebook's own Dataset)
             inputs = []
     names, cites = _model_names(ds), _citations(ds)
-    refs = [f"{names[m]}: {cites[m]}" for m in names]
+    refs = [f"{_model_labels(ds)[m]}: {names[m]}; {cites[m]}" for m in names]
     rule = (f"Coverage rule: a cell's monthly value is the mean over the days with a valid "
             f"estimate; coverage is the fraction of the month's days with one. Cells with mean "
             f"coverage below {min_coverage:g} are marked on maps, and region-months below it "
