@@ -877,6 +877,32 @@ def _projection_text(projection: Projection, lat=None, lon=None) -> str:
     return "Lambert azimuthal equal-area projection centred on the domain."
 
 
+@dataclass
+class _TwoPeriods:
+    """What the maps of a period against a baseline start from: both periods' means (drawn
+    grid), the drawn and the run's axes, the region layer, model names and labels."""
+
+    per: xr.Dataset
+    base: xr.Dataset
+    lat: np.ndarray
+    lon: np.ndarray
+    layer: object
+    names: dict[str, str]
+    mlabels: dict[str, str]
+    models: list[str]
+    P: str
+    B: str
+
+
+def _two_periods(maps, period, baseline, regions, **kw) -> _TwoPeriods:
+    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
+    return _TwoPeriods(
+        per, base, per["lat"].values, per["lon"].values,
+        region_layer(regions, maps["lat"].values, maps["lon"].values), _model_names(maps),
+        _model_labels(maps), [str(m) for m in per["model"].values], _span_text(period),
+        _span_text(baseline))
+
+
 def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int, int],
                    projection: Projection = "equal-area", relative: bool = True,
                    min_coverage: float = DEFAULT_MIN_COVERAGE,
@@ -908,15 +934,12 @@ def difference_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple
     from matplotlib.colors import Normalize
 
     kw = {"means": means, "ncols": _grid_layout(maps.sizes["model"], width)[1], "width": width}
-    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
+    tp = _two_periods(maps, period, baseline, regions, **kw)
+    per, base, lat, lon, layer = tp.per, tp.base, tp.lat, tp.lon, tp.layer
+    rlat, rlon = maps["lat"].values, maps["lon"].values  # the run's grid: region outlines
+    names, mlabels, models = tp.names, tp.mlabels, tp.models
     d = _change(per, base, relative)
     base_cov, per_cov = base["coverage"], per["coverage"]
-    lat, lon = d["lat"].values, d["lon"].values
-    rlat, rlon = maps["lat"].values, maps["lon"].values
-    layer = region_layer(regions, rlat, rlon)
-    names = _model_names(maps)
-    mlabels = _model_labels(maps)
-    models = [str(m) for m in d["model"].values]
     vals = d.values
     fin = np.abs(vals[np.isfinite(vals)])
     lim = float(np.percentile(fin, DIFF_PERCENTILE)) if fin.size else 1.0
@@ -1066,14 +1089,10 @@ def ratio_map(maps: xr.Dataset, *, period: tuple[int, int], baseline: tuple[int,
 
     n_panels = 2 * maps.sizes["model"] - 1
     kw = {"means": means, "ncols": _grid_layout(n_panels, width)[1], "width": width}
-    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
-    lat, lon = per["lat"].values, per["lon"].values
-    rlat, rlon = maps["lat"].values, maps["lon"].values
-    layer = region_layer(regions, rlat, rlon)
-    names = _model_names(maps)
-    mlabels = _model_labels(maps)
-    models = [str(m) for m in per["model"].values]
-    P, B = _span_text(period), _span_text(baseline)
+    tp = _two_periods(maps, period, baseline, regions, **kw)
+    per, base, lat, lon, layer = tp.per, tp.base, tp.lat, tp.lon, tp.layer
+    rlat, rlon = maps["lat"].values, maps["lon"].values  # the run's grid: region outlines
+    names, mlabels, models, P, B = tp.names, tp.mlabels, tp.models, tp.P, tp.B
     panels = []  # (title, ratio, low coverage, land)
     with np.errstate(all="ignore"):
         for m in models:
@@ -1179,15 +1198,11 @@ def comparison_panels(maps: xr.Dataset, *, period: tuple[int, int], baseline: tu
     from matplotlib.ticker import FixedLocator, MaxNLocator, NullLocator
 
     kw = {"means": means, "ncols": 3, "width": width}
-    per, base = _period_maps(maps, period, **kw), _period_maps(maps, baseline, **kw)
+    tp = _two_periods(maps, period, baseline, regions, **kw)
+    per, base, lat, lon, layer = tp.per, tp.base, tp.lat, tp.lon, tp.layer
+    rlat, rlon = maps["lat"].values, maps["lon"].values  # the run's grid: region outlines
+    names, mlabels, models, P, B = tp.names, tp.mlabels, tp.models, tp.P, tp.B
     change = _change(per, base, relative)
-    lat, lon = per["lat"].values, per["lon"].values
-    rlat, rlon = maps["lat"].values, maps["lon"].values
-    layer = region_layer(regions, rlat, rlon)
-    names = _model_names(maps)
-    mlabels = _model_labels(maps)
-    models = [str(m) for m in per["model"].values]
-    P, B = _span_text(period), _span_text(baseline)
     norm, extend, (lo, hi) = _log_scale([per["npp"].values, base["npp"].values])
     dnorm, dextend, lim = _diverging_scale([change.values])
     unit = "%" if relative else "mg C m$^{-2}$ d$^{-1}$"
