@@ -53,7 +53,7 @@ def test_demo_checks_clean_through_the_cli(demo_config):
     # stored with descending latitudes and 0..360 longitudes; 30 daily files each (April 2025)
     for line in [
         '[inputs.chl] files = "../sample_grids/chl/maren_chl_*.nc"',
-        "  files:       30 (maren_chl_20250401.nc .. maren_chl_20250430.nc), 2.9 MiB on disk",
+        "  files:       30 (maren_chl_20250401.nc .. maren_chl_20250430.nc), 3.0 MiB on disk",
         "  variable:    chlor, identified by standard_name "
         "'mass_concentration_of_chlorophyll_a_in_sea_water'",
         "  units:       mg m-3 in the file; conversion: none",
@@ -80,7 +80,7 @@ def test_demo_checks_clean_through_the_cli(demo_config):
         "  Whole Maren Sea   63,360 cells, 54,876 ocean",
         "  63,360 cells x 30 days with all inputs x 2 model(s) = 3,801,600 cell-days "
         "(vgpm, eppley_vgpm)",
-        "  input: 90 files, 5.6 MiB on disk, 16.1 MiB decoded",
+        "  input: 90 files, 5.7 MiB on disk, 16.1 MiB decoded",
         "Problems: 0 error(s), 0 warning(s)",
         "The run would start.",
     ]:
