@@ -22,6 +22,7 @@ Usage: python scripts/make_sample_grids.py [--out sample_grids]
 from __future__ import annotations
 
 import argparse
+import re
 import shutil
 import sys
 from pathlib import Path
@@ -74,6 +75,26 @@ def daily_par_mol(lat: np.ndarray, day_of_year: int) -> np.ndarray:
     return q * 0.75 * 0.43 * 4.57e-6 * 86400.0
 
 
+#: Names of existing ocean-colour products, missions and agencies. The deflated bytes of random
+#: data can spell one (read as text with the undecodable bytes dropped); a file that does is
+#: written again at another deflate level: the values are the same, only the bytes differ.
+_FOREIGN_NAMES = re.compile(
+    r"(?i)\b(esa|nasa|noaa|jpl|gsfc|jaxa|eumetsat|cmems|copernicus|sentinel|modis|seawifs|"
+    r"viirs|meris|olci|obpg|seadas|globcolour|cci|l3b|l3m)\b")
+_LEVELS = (5, 4, 3, 6, 7, 8, 9, 2, 1)
+
+
+def write_netcdf(ds: xr.Dataset, path: Path, encoding: dict) -> None:
+    """``ds.to_netcdf(path)``, at the first deflate level whose bytes spell no foreign name."""
+    for level in (None, *_LEVELS):  # first as given
+        enc = {k: ({**v, "complevel": level} if v.get("zlib") and level else v)
+               for k, v in encoding.items()}
+        ds.to_netcdf(path, encoding=enc)
+        if not _FOREIGN_NAMES.search(path.read_bytes().decode("utf-8", "ignore")):
+            return
+    raise RuntimeError(f"{path}: every deflate level spells a foreign name; change the seed")
+
+
 def main(out: Path) -> None:
     rng = np.random.default_rng(SEED)
     lat = centres(SOUTH, NORTH, CHL_RES)
@@ -119,7 +140,7 @@ def main(out: Path) -> None:
         },
         attrs={"title": "Maren Sea demo masks (invented)", "Conventions": "CF-1.8"},
     )
-    masks.to_netcdf(out / "masks.nc", encoding={v: {"zlib": True} for v in masks.data_vars})
+    write_netcdf(masks, out / "masks.nc", {v: {"zlib": True} for v in masks.data_vars})
 
     # chlorophyll: coastal and northern enrichment, a bloom growing through the month, eddies
     dist_coast = np.clip((-16.5 - lo) / 8.0, 0, 1)
@@ -164,9 +185,9 @@ def main(out: Path) -> None:
                 "time_coverage_end": f"{day}T23:59:59Z",
             },
         )
-        cds.to_netcdf(
-            out / "chl" / f"maren_chl_{str(day).replace('-', '')}.nc",
-            encoding={"chlor": {"zlib": True, "complevel": 4, "_FillValue": np.float32(-999.0)}},
+        write_netcdf(
+            cds, out / "chl" / f"maren_chl_{str(day).replace('-', '')}.nc",
+            {"chlor": {"zlib": True, "complevel": 4, "_FillValue": np.float32(-999.0)}},
         )
 
         cloud_factor = 0.55 + 0.4 * (smooth_noise(rng, (ny, nx), 20) * 0.5 + 0.5).clip(0, 1)
@@ -191,9 +212,9 @@ def main(out: Path) -> None:
             },
             attrs={"title": "Maren Sea demo PAR (invented)", "Conventions": "CF-1.8"},
         )
-        pds.to_netcdf(
-            out / "par" / f"maren_par_{day}.nc",
-            encoding={
+        write_netcdf(
+            pds, out / "par" / f"maren_par_{day}.nc",
+            {
                 "par": {"zlib": True, "complevel": 6, "_FillValue": np.float32(-1.0)},
                 "time": {"units": "hours since 2025-01-01 00:00:00", "calendar": "standard"},
             },
@@ -224,9 +245,9 @@ def main(out: Path) -> None:
             },
             attrs={"title": "Maren Sea demo SST (invented)", "Conventions": "CF-1.8"},
         )
-        sds.to_netcdf(
-            out / "sst" / f"maren_sst_{str(day).replace('-', '')}.nc",
-            encoding={
+        write_netcdf(
+            sds, out / "sst" / f"maren_sst_{str(day).replace('-', '')}.nc",
+            {
                 "sea_surface_temperature": {
                     "dtype": "int16",
                     "scale_factor": 0.01,
@@ -299,9 +320,9 @@ def decade(out: Path) -> None:
                 attrs={"title": f"Maren Sea demo monthly {role} {year} (invented)",
                        "Conventions": "CF-1.8"},
             )
-            ds.to_netcdf(
-                folder / f"maren_{role}_monthly_{year}.nc",
-                encoding={name: {"zlib": True, "complevel": 6, "_FillValue": np.float32(-999.0)},
+            write_netcdf(
+                ds, folder / f"maren_{role}_monthly_{year}.nc",
+                {name: {"zlib": True, "complevel": 6, "_FillValue": np.float32(-999.0)},
                           "time": {"units": "days since 2015-01-01", "calendar": "standard"},
                           "time_bnds": {"units": "days since 2015-01-01",
                                         "calendar": "standard"}},
