@@ -407,6 +407,15 @@ def annual_totals(
 # seasonal cycle and climatology
 
 
+def _count_by_calendar_month(flags: xr.DataArray) -> xr.DataArray:
+    """How many True values each calendar month holds (int64, 0 where none); on lazy maps by
+    the compiled calendar-month kernel (a mean of 0/1 times the count of months)."""
+    if _is_lazy(flags) and "time" in flags.dims:
+        share, months = _calendar_means(flags.astype(np.float32))
+        return (share * months).where(months > 0, 0).round().astype(np.int64)
+    return _by_calendar_month(flags.groupby(_calendar_of(flags)).sum()).fillna(0).astype(np.int64)
+
+
 def seasonal_cycle(
     x: xr.Dataset | xr.DataArray,
     *,
@@ -448,13 +457,12 @@ def seasonal_cycle(
     out["range"] = out["max"] - out["min"]
     for k, v in out.items():
         v.attrs = {"units": units, "long_name": f"{k} of {da.name} by calendar month"}
-    count = _by_calendar_month(da.notnull().groupby(_calendar_of(da)).sum()).fillna(0).astype(np.int64)
+    count = _count_by_calendar_month(da.notnull())
     count.attrs = {"units": "1", "long_name": "years with a value"}
     out["count"] = count
     below = _below_rule(x, attrs, str(da.name))
     if below is not None:
-        below = _pick_years(below, years, "years")
-        n_low = _by_calendar_month(below.groupby(_calendar_of(below)).sum()).fillna(0).astype(np.int64)
+        n_low = _count_by_calendar_month(_pick_years(below, years, "years"))
         n_low.attrs = {"units": "1", "long_name": "years below the coverage rule (dropped with "
                        "'drop', kept with 'flag')"}
         out["n_low_coverage"] = n_low
@@ -516,12 +524,7 @@ def climatology(
     data = {"climatology": _drop_time_coords(clim), "n_years": _drop_time_coords(n)}
     below = _below_rule(x, attrs, str(da.name))
     if below is not None:
-        below = _pick_years(below, baseline, "baseline")
-        if _is_lazy(below) and "time" in below.dims:  # the count as a mean of 0/1 times n
-            share, months = _calendar_means(below.astype(np.float32))
-            n_low = (share * months).where(months > 0, 0).round().astype(np.int64)
-        else:
-            n_low = _by_calendar_month(below.groupby(_calendar_of(below)).sum()).fillna(0).astype(np.int64)
+        n_low = _count_by_calendar_month(_pick_years(below, baseline, "baseline"))
         n_low.attrs = {"units": "1", "long_name": "baseline years below the coverage rule "
                        "(dropped with 'drop', kept with 'flag')"}
         data["n_low_coverage"] = _drop_time_coords(n_low)
