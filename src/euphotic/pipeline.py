@@ -213,7 +213,7 @@ MAP_FORMAT = 1
 #: Bumped when map figures change.
 FIGURE_FORMAT = 2
 #: Version of the regions.nc layout (in its fingerprint).
-REGIONS_FORMAT = 1
+REGIONS_FORMAT = 2
 #: RunConfig fields that do not change what a month's map or totals contain.
 _NOT_IN_FINGERPRINT = {"path", "output_dir", "figures", "months_per_compute", "start", "end",
                        "models", "steps"}
@@ -503,20 +503,24 @@ def _region_file(cfg, prep, stage, entries, keep, previous, provenance) -> None:
     """``regions.nc`` into the stage, or kept when the masks and areas it holds are unchanged
     (a content fingerprint: the planes, windows, names, cell areas and region sources)."""
     name = outputs.REGIONS_FILE
-    ds = outputs.region_dataset(
-        prep.region_masks, prep.chl["lat"].values, prep.chl["lon"].values, prep.area_rows_m2,
-        earth=cfg.earth, region_sources=provenance.get("region_sources", ""))
-    h = runfolder.hashlib.blake2b(digest_size=16)
-    for v in ("region_planes", "region_window", "cell_area", "lat", "lon"):
-        h.update(np.ascontiguousarray(ds[v].values).tobytes())
-    fp = runfolder.config_fingerprint([h.hexdigest(), list(prep.region_masks.names),
-                                       ds.attrs["region_sources"], REGIONS_FORMAT])
+    masks, lat, lon = prep.region_masks, prep.chl["lat"].values, prep.chl["lon"].values
+    sources = provenance.get("region_sources", "")
+    h = runfolder.hashlib.blake2b(digest_size=16)  # the masks as held: no copy is made
+    for arr in (masks.planes, prep.area_rows_m2, lat, lon):
+        h.update(b"" if arr is None else np.ascontiguousarray(arr).tobytes())
+    h.update(repr([(w[0].start, w[0].stop, w[1].start, w[1].stop)
+                   for w in masks.windows or []]).encode())
+    fp = runfolder.config_fingerprint([h.hexdigest(), list(masks.names), masks.n_label_layers,
+                                       list(masks.bit_regions), sources, cfg.earth,
+                                       REGIONS_FORMAT])
     old = previous.get("outputs", {}).get(name)
     out_dir = stage.path.parent
     if old and old.get("fingerprint") == fp and _intact(out_dir / name, old):
         entries[name] = old
         keep.add(name)
         return
+    ds = outputs.region_dataset(masks, lat, lon, prep.area_rows_m2, earth=cfg.earth,
+                                region_sources=sources)
     with _writing(out_dir, "the region masks"):
         outputs.write_regions(stage.file(name), ds)
     entries[name] = {"kind": "regions", "fingerprint": fp, **runfolder.stat_entry(stage.file(name))}
