@@ -282,8 +282,39 @@ MATCHUP_KEYS: dict[str, Key] = {
     "gross_to_net": Key(_fraction, "a fraction between 0 and 1"),
 }
 
+def _export_methods(value) -> list[str]:
+    from euphotic.derived import EXPORT_METHODS
+
+    names = [value] if isinstance(value, str) else value
+    if not isinstance(names, list) or not names or not all(isinstance(v, str) for v in names):
+        raise _Bad
+    unknown = [v for v in names if v not in EXPORT_METHODS]
+    if unknown:
+        raise _Bad(f"`export`: unknown method(s) {', '.join(map(json.dumps, unknown))}; choose "
+                   f"from {', '.join(map(json.dumps, EXPORT_METHODS))}")
+    return list(dict.fromkeys(names))
+
+
+def _model_names(value) -> list[str]:
+    names = [value] if isinstance(value, str) else value
+    if not isinstance(names, list) or not names or not all(
+            isinstance(v, str) and v.strip() for v in names):
+        raise _Bad
+    return list(dict.fromkeys(names))
+
+
+#: [derived] keys: `euphotic derive` (euphotic.derived_outputs.write_derived); which models a
+#: run has is known only after it, and checked then
+DERIVED_KEYS: dict[str, Key] = {
+    "export": Key(_export_methods, 'a list of export methods ("laws2011", "dunne2005", '
+                                   '"henson2011")'),
+    "quotient": Key(_quotient, '"ammonium", "nitrate" or a number between 0.5 and 3'),
+    "models": Key(_model_names, "a non-empty list of model names (strings)"),
+}
+
 #: Step table -> its keys; the order in which they run is euphotic.steps.STEPS.
 STEP_KEYS: dict[str, dict[str, Key]] = {
+    "derived": DERIVED_KEYS,
     "compare": COMPARE_KEYS,
     "figure_set": FIGURE_SET_KEYS,
     "matchup": MATCHUP_KEYS,

@@ -95,6 +95,13 @@ def _matchup(folder: Path, options: dict, *, cfg, command: str) -> Done:
     return Done("matchup", files=list(w.files), value=w)
 
 
+def _derived(folder: Path, options: dict, *, cfg, command: str) -> Done:
+    from euphotic.derived_outputs import write_derived
+
+    w = write_derived(folder, cfg=cfg, command=command)  # reads its [derived] table itself
+    return Done("derived", files=list(w.files), value=w)
+
+
 def _report(folder: Path, options: dict, *, cfg, command: str) -> Done:
     from euphotic.methods import write_methods
     from euphotic.report import write_report
@@ -120,6 +127,7 @@ class Step:
 #: The steps, in the order they run. The report comes last so that it embeds what the others
 #: wrote (it is also rebuilt by any later commit into the folder; see euphotic.runfolder).
 STEPS: tuple[Step, ...] = (
+    Step("derived", _derived),
     Step("compare", _compare),
     Step("figure_set", _figure_set),
     Step("matchup", _matchup),

@@ -1,0 +1,525 @@
+"""Write what a run's production implies (``euphotic derive CONFIG``, or the ``[derived]`` step
+of ``euphotic run``): per model and month a CF-1.8 / ACDD-1.3 NetCDF map of export production
+by each configured method, nitrogen and phosphorus demand and oxygen production, and
+``derived_totals.csv`` (region x month x model x quantity), added to the run's output folder
+as one unit (:meth:`euphotic.runfolder.OutputFolder.adding`, manifest kind :data:`KIND`; a new
+derivation replaces the whole set; on any failure nothing changes).
+
+I/O and metadata only: the numbers come from :mod:`euphotic.derived`. It reads the committed
+monthly maps (:func:`euphotic.results.open_maps`), the run's own sea surface temperature and
+chlorophyll (:func:`euphotic.preflight.open_inputs`, one month at a time through
+:func:`euphotic.aggregate.daily_stack`) and the run's regions
+(:func:`euphotic.results.open_regions`), all lazily; each batch of months is computed once
+(maps written and regional sums taken in one dask computation).
+"""
+
+from __future__ import annotations
+
+import csv
+import io
+import logging
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from euphotic import __version__, results, runfolder
+from euphotic import derived as dv
+from euphotic.errors import EuphoticError
+from euphotic.outputs import (
+    CAUTION,
+    PUBLISHED_NAMES,
+    STANDARD_NAME_VOCABULARY,
+    crs_attrs,
+    geospatial_attrs,
+    iso_utc,
+    metadata_attrs,
+    model_label,
+)
+
+log = logging.getLogger("euphotic")
+
+#: The kind under which derived files are listed in the run manifest.
+KIND = "derived"
+#: The regional totals table.
+TOTALS_FILE = "derived_totals.csv"
+#: Columns of the totals table, with their meaning (the README lists the same words).
+TOTALS_COLUMNS: dict[str, str] = {
+    "region": "region name, as configured",
+    "month": "calendar month, YYYY-MM",
+    "model": "model id of the production maps",
+    "quantity": "export_<method>, nitrogen_demand, phosphorus_demand or oxygen_production",
+    "substance": "what the amounts and masses are of: C, N, P or O2",
+    "mean_rate": "area-weighted mean daily rate over the region's cells with a value",
+    "rate_units": "units of mean_rate (mg C m-2 d-1 for export, mmol <substance> m-2 d-1 else)",
+    "observed_area_km2": "area of the region's cells with a value, km2",
+    "total_mol": "amount over the month and the cells with a value, mol of the substance",
+    "total_Tg": "mass over the month and the cells with a value, Tg (1e12 g) of the substance",
+    "flag": "no_valid_data when no cell of the region has a value (totals then empty)",
+}
+#: Significant digits of the numbers in the totals table (no exponent is ever written).
+DIGITS = 6
+#: Quality flag of a region without any cell with a value.
+FLAG_NO_DATA = "no_valid_data"
+#: The caution of every derived output: the project's, and the one of export methods.
+DERIVED_CAUTION = f"{CAUTION} {dv.EXPORT_CAUTION}"
+
+
+@dataclass(frozen=True)
+class Options:
+    """The checked options of one derivation."""
+
+    export: tuple[str, ...] = dv.DEFAULT_EXPORT
+    quotient: float = dv.DEFAULT_QUOTIENT
+    models: tuple[str, ...] | None = None  # None: every model of the run
+
+    def text(self) -> str:
+        return (f"export methods {', '.join(self.export)}; photosynthetic quotient "
+                f"{self.quotient:g} mol O2 (mol C)-1; Redfield C:N:P 106:16:1")
+
+
+@dataclass
+class Written:
+    """What ``euphotic derive`` wrote."""
+
+    files: list[Path] = field(default_factory=list)
+    options: Options | None = None
+    rows: list[dict] = field(default_factory=list)
+
+
+def options_from(table: dict, *, export=None, quotient=None, models=None,
+                 where: str = "[derived]") -> Options:
+    """The options of a ``[derived]`` table (already checked by the config) overridden by those
+    given (command-line options, checked here).
+
+    Raises
+    ------
+    DerivedError
+        One line naming the option and what is expected.
+    """
+    exp = export if export is not None else table.get("export", dv.DEFAULT_EXPORT)
+    exp_where = "--export" if export is not None else f"{where} export"
+    names = [exp] if isinstance(exp, str) else list(exp)
+    unknown = [e for e in names if e not in dv.EXPORT_METHODS]
+    if not names or unknown:
+        raise dv.DerivedError(
+            f"{exp_where}: unknown export method(s) {', '.join(map(repr, unknown)) or '(none)'}"
+            f"; choose from {', '.join(dv.EXPORT_METHODS)}")
+    q_raw = quotient if quotient is not None else table.get("quotient", dv.DEFAULT_QUOTIENT)
+    if isinstance(q_raw, str) and quotient is not None:  # a command-line number arrives as text
+        try:
+            q_raw = float(q_raw)
+        except ValueError:
+            pass
+    q = dv.quotient_value(q_raw, "--quotient" if quotient is not None else f"{where} quotient")
+    mods = models if models else table.get("models")
+    return Options(export=tuple(dict.fromkeys(names)), quotient=q,
+                   models=tuple(dict.fromkeys(mods)) if mods else None)
+
+
+# --------------------------------------------------------------------------------------------
+# inputs
+# --------------------------------------------------------------------------------------------
+
+
+def _month_mean(da: xr.DataArray, month: np.datetime64) -> xr.DataArray:
+    """Mean over the days of the month of an input on the map grid (lazy), NaN where no day
+    has a value."""
+    from euphotic.aggregate import daily_stack, month_days
+
+    stack = daily_stack(da, month_days(np.datetime64(month, "M")))
+    return stack.mean("day", skipna=True)
+
+
+def _zeu(chl: xr.DataArray) -> xr.DataArray:
+    """Euphotic depth (m) from chlorophyll (mg m-3), Morel and Berthon (1989), lazily."""
+    from euphotic.models import euphotic_depth
+
+    zeu = xr.apply_ufunc(euphotic_depth, chl, dask="parallelized", output_dtypes=[np.float64])
+    zeu.attrs = {"units": "m", "long_name": "euphotic depth (Morel and Berthon 1989)"}
+    return zeu
+
+
+def _check_grid(on_grid: xr.DataArray, maps: xr.Dataset, role: str, config) -> None:
+    for c in ("lat", "lon"):
+        a, b = on_grid[c].values, maps[c].values
+        if a.shape != b.shape or not np.allclose(a, b, rtol=0, atol=1e-9):
+            raise dv.DerivedError(
+                f"{config}: the {role} input is on another grid ({c}: {a.size} values) than "
+                f"the run's maps ({b.size}); derive with the config the run was made with")
+
+
+# --------------------------------------------------------------------------------------------
+# one map file
+# --------------------------------------------------------------------------------------------
+
+
+def file_name(model: str, month) -> str:
+    """``derived_<model>_YYYY-MM.nc``."""
+    return f"derived_{model}_{np.datetime64(month, 'M')}.nc"
+
+
+def _references(keys: list[str]) -> str:
+    from euphotic.methods import _bibliography, reference_text
+
+    bib = _bibliography()
+    return " ".join(reference_text(bib.entries[k]) for k in dict.fromkeys(keys))
+
+
+def _bounds(centres: np.ndarray) -> np.ndarray:
+    from euphotic.geo import cell_edges
+
+    e = cell_edges(centres)
+    return np.stack([e[:-1], e[1:]], axis=1)
+
+
+def month_dataset(values: dict, qs: list[dv.Quantity], opts: Options, *, model: str,
+                  month, lat, lon, earth: str, metadata, command: str, source_map: str,
+                  input_files: dict[str, str]) -> xr.Dataset:
+    """One model's month of derived quantities as a lazy CF-1.8 / ACDD-1.3 Dataset."""
+    start = np.datetime64(month, "M").astype("datetime64[D]")
+    end = (np.datetime64(month, "M") + 1).astype("datetime64[D]")
+    n_days = int((end - start).astype(int))
+    data = {}
+    keys: list[str] = []
+    for q in qs:
+        s = dv.SUBSTANCES[q.substance]
+        keys += q.citation_keys
+        data[q.name] = (("time", "lat", "lon"), values[q.name].astype(np.float32).data[None], {
+            "units": s.rate_units, "long_name": q.long_name + ", mean daily rate over the month",
+            "cell_methods": "time: mean", "coverage_content_type": "modelResult",
+            "comment": q.comment, "grid_mapping": "crs"})
+        if q.name.startswith("export_"):
+            e = q.name.removeprefix("export_")
+            m = dv.EXPORT_METHODS[e]
+            data[f"export_ratio_{e}"] = (
+                ("time", "lat", "lon"), values[f"export_ratio_{e}"].astype(np.float32).data[None],
+                {"units": "1", "long_name": f"export ratio, {m.label}",
+                 "coverage_content_type": "modelResult", "comment": m.formula,
+                 "grid_mapping": "crs"})
+    mid = start + (end - start) // 2
+    ds = xr.Dataset(data, coords={
+        "time": ("time", [mid.astype("datetime64[ns]")],
+                 {"standard_name": "time", "axis": "T", "bounds": "time_bnds",
+                  "long_name": "time"}),
+        "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north", "axis": "Y",
+                             "bounds": "lat_bnds", "long_name": "latitude"}),
+        "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east", "axis": "X",
+                             "bounds": "lon_bnds", "long_name": "longitude"}),
+    })
+    ds["crs"] = xr.DataArray(np.int32(0), attrs=crs_attrs(earth))
+    ds["time_bnds"] = (("time", "nv"), np.array([[start, end]], dtype="datetime64[ns]"))
+    ds["lat_bnds"] = (("lat", "nv"), _bounds(lat))
+    ds["lon_bnds"] = (("lon", "nv"), _bounds(lon))
+    name = PUBLISHED_NAMES.get(model, model)
+    stem = file_name(model, month).removesuffix(".nc")
+    now = iso_utc()
+    ds.attrs = {
+        "Conventions": "CF-1.8, ACDD-1.3",
+        "title": f"What production implies: export, nutrient demand and oxygen from "
+                 f"{model_label(model)}, {np.datetime64(month, 'M')}",
+        "summary": (
+            f"Monthly mean daily export production ({len(opts.export)} published methods side "
+            f"by side), nitrogen and phosphorus uptake (Redfield ratio) and oxygen production "
+            f"(photosynthetic quotient {opts.quotient:g}) implied by the monthly mean net "
+            f"primary production of the {name} model (euphotic id {model!r}) in {source_map}. "
+            + DERIVED_CAUTION),
+        "comment": "Ocean cells with a production estimate only. Export ratios use the "
+                   "month's mean sea surface temperature (and chlorophyll for the euphotic "
+                   "depth) of the run's inputs, averaged over the days with a value.",
+        "keywords": "export production, new production, nitrogen demand, phosphorus demand, "
+                    "oxygen production, net primary production",
+        "standard_name_vocabulary": STANDARD_NAME_VOCABULARY,
+        "cdm_data_type": "Grid",
+        "model": model,
+        "model_name": name,
+        "source_map": source_map,
+        "export_methods": " ".join(opts.export),
+        "photosynthetic_quotient": float(opts.quotient),
+        "references": _references(keys),
+        "caution": DERIVED_CAUTION,
+        "time_coverage_start": f"{start}T00:00:00Z",
+        "time_coverage_end": f"{end}T00:00:00Z",
+        "time_coverage_duration": f"P{n_days}D",
+        "time_coverage_resolution": "P1M",
+        **geospatial_attrs(lat, lon),
+        "date_created": now,
+        "date_modified": now,
+        "date_issued": now,
+        "date_metadata_modified": now,
+        "history": f"{now} {command} (euphotic {__version__})",
+        "source": "euphotic " + __version__,
+        "product_version": __version__,
+        "processing_level": "L4 model output (derived)",
+        **metadata_attrs(metadata, stem),
+        **{f"input_files_{r}": v for r, v in input_files.items()},
+    }
+    return ds
+
+
+def _encoding(ds: xr.Dataset) -> dict:
+    enc = {}
+    for v, da in ds.data_vars.items():
+        if da.dims == ("time", "lat", "lon"):
+            blocks = getattr(da.data, "chunksize", None) or (1, *da.shape[1:])
+            enc[v] = {"zlib": True, "complevel": 1, "shuffle": True, "dtype": "float32",
+                      "_FillValue": np.float32(np.nan), "chunksizes": tuple(blocks)}
+    t = {"units": "days since 1970-01-01", "calendar": "standard", "dtype": "float64",
+         "_FillValue": None}
+    enc["time"] = dict(t)
+    enc["time_bnds"] = dict(t)
+    for c in ("lat", "lon", "lat_bnds", "lon_bnds"):
+        enc[c] = {"_FillValue": None}
+    return enc
+
+
+# --------------------------------------------------------------------------------------------
+# regional sums
+# --------------------------------------------------------------------------------------------
+
+
+def _region_sums(values: dict, names: list[str], weights: xr.DataArray) -> xr.DataArray:
+    """Per quantity and region: sum of rate x cell area (m2) over cells with a value, and the
+    area of those cells (m2). Lazy; dims ``(what, quantity, region)``, what = sum, area."""
+    stacked = xr.concat([values[n] for n in names], dim="quantity").assign_coords(quantity=names)
+    ok = np.isfinite(stacked)
+    s = xr.dot(stacked.where(ok, 0.0), weights, dim=["lat", "lon"])
+    a = xr.dot(ok.astype(np.float64), weights, dim=["lat", "lon"])
+    return xr.concat([s, a], dim="what").assign_coords(what=["sum", "area"])
+
+
+def _fmt(v: float) -> str:
+    if not np.isfinite(v):
+        return ""
+    return np.format_float_positional(v, precision=DIGITS, unique=False, fractional=False,
+                                      trim="-")
+
+
+def _rows(sums: np.ndarray, qs: list[dv.Quantity], regions: list[str], model: str, month,
+          n_days: int) -> list[dict]:
+    rows = []
+    for qi, q in enumerate(qs):
+        s = dv.SUBSTANCES[q.substance]
+        unit = s.rate_units.replace("mg ", "mg C ") if s.mass_rate else \
+            s.rate_units.replace("mmol ", f"mmol {s.symbol} ")
+        for ri, region in enumerate(regions):
+            total, area = float(sums[0, qi, ri]), float(sums[1, qi, ri])
+            if area > 0:
+                mol, tg = dv.totals_from_integral(total * n_days, q.substance)
+                mean, flag = total / area, ""
+            else:
+                mol = tg = mean = float("nan")
+                flag = FLAG_NO_DATA
+            rows.append({"region": region, "month": str(np.datetime64(month, "M")),
+                         "model": model, "quantity": q.name, "substance": s.symbol,
+                         "mean_rate": mean, "rate_units": unit,
+                         "observed_area_km2": area / 1e6, "total_mol": mol, "total_Tg": tg,
+                         "flag": flag})
+    return rows
+
+
+def totals_csv(rows: list[dict]) -> str:
+    """The totals table as CSV text (numbers to :data:`DIGITS` significant digits)."""
+    out = io.StringIO()
+    w = csv.DictWriter(out, fieldnames=list(TOTALS_COLUMNS), lineterminator="\n")
+    w.writeheader()
+    for r in rows:
+        w.writerow({k: _fmt(v) if isinstance(v, float) else v for k, v in r.items()})
+    return out.getvalue()
+
+
+# --------------------------------------------------------------------------------------------
+# the command
+# --------------------------------------------------------------------------------------------
+
+
+def _load(cfg):
+    from euphotic.config import RunConfig, load_config
+
+    return cfg if isinstance(cfg, RunConfig) else load_config(cfg)
+
+
+def write_derived(folder: str | Path | None = None, *, cfg, export=None, quotient=None,
+                  models=None, command: str = "euphotic derive") -> Written:
+    """Derive export, nutrient demand and oxygen production from the run committed in
+    ``folder`` (default: the config's output folder) and commit them into it.
+
+    Parameters
+    ----------
+    folder : the run's output folder
+    cfg : RunConfig or config path
+        The run's configuration: its inputs give the month's sea surface temperature and
+        chlorophyll, its ``[derived]`` table the defaults of the options below.
+    export : export methods (names of :data:`euphotic.derived.EXPORT_METHODS`)
+    quotient : photosynthetic quotient, mol O2 per mol C, or "ammonium" / "nitrate"
+    models : models whose maps to use (default: every model with maps in the run)
+
+    Raises
+    ------
+    DerivedError
+        An option that cannot be used, or inputs on another grid than the maps.
+    NoRunError, InterruptedCommitError, OutputChangedError, SelectionError
+        As :func:`euphotic.results.open_maps`.
+    InputFileError
+        The run's temperature or chlorophyll files cannot be read.
+    """
+    import dask
+
+    from euphotic.preflight import open_inputs
+
+    config = _load(cfg)
+    folder = Path(folder if folder is not None else config.output_dir)
+    where = f"{config.path} [derived]"
+    opts = options_from(config.steps.get("derived", {}), export=export, quotient=quotient,
+                        models=models, where=where)
+    results.committed_manifest(folder)  # no run, or an interrupted commit: say so first
+    try:
+        maps = results.open_maps(folder, models=list(opts.models) if opts.models else None)
+    except results.SelectionError as exc:
+        raise dv.DerivedError(f"{where} models: {exc}") from None
+    qs = dv.quantities(opts.export, opts.quotient)
+    needs = {"sst"} | ({"chl"} if any("zeu" in dv.EXPORT_METHODS[e].needs for e in opts.export)
+                       else set())
+    inputs = open_inputs(config)
+    for role in ("chl", "sst"):
+        if role in needs and role in inputs.errors:
+            raise inputs.errors[role]
+        if role in needs:
+            _check_grid(inputs.on_grid[role], maps, role, config.path)
+    regions = results.open_regions(folder)
+    weights = (regions["mask"].astype(np.float64) * regions["cell_area"])
+    region_names = [str(r) for r in regions["region"].values]
+    base = Path(config.path).resolve().parent
+    from euphotic.outputs import _rel
+
+    files_of = {r: ", ".join(_rel(p, base) for p in inputs.raw[r].attrs.get("files", []))
+                for r in sorted(needs)}
+    map_names = {(e["model"], str(np.datetime64(e["month"], "M"))): n
+                 for n, e in results.committed_manifest(folder)["outputs"].items()
+                 if e.get("kind") == "map"}
+    lat, lon = maps["lat"].values, maps["lon"].values
+    models_ = [str(m) for m in maps["model"].values]
+    months = list(maps["month"].values)
+    per_batch = max(1, config.months_per_compute) if config.months_per_compute else len(months)
+    written = Written(options=opts)
+
+    with runfolder.OutputFolder(folder).adding(command, replace_kinds=(KIND,)) as (stage, added):
+        for b in range(0, len(months), per_batch):
+            jobs, sums, keys = [], [], []
+            for ti in range(b, min(b + per_batch, len(months))):
+                month = np.datetime64(months[ti], "M")
+                sst = _month_mean(inputs.on_grid["sst"], month)
+                zeu = _zeu(_month_mean(inputs.on_grid["chl"], month)) if "chl" in needs else None
+                n_days = int(maps["days_in_month"].values[ti])
+                for m in models_:
+                    npp = maps["npp"].sel(model=m).isel(time=ti).drop_vars(
+                        ["model", "time", "month", "days_in_month"], errors="ignore"
+                    ).astype(np.float64)
+                    values = dv.compute_quantities(npp, sst, zeu=zeu, export=opts.export,
+                                                   quotient=opts.quotient)
+                    name = file_name(m, month)
+                    ds = month_dataset(
+                        values, qs, opts, model=m, month=month, lat=lat, lon=lon,
+                        earth=config.earth, metadata=config.metadata, command=command,
+                        source_map=map_names.get((m, str(month)), f"npp_{m}_{month}"),
+                        input_files=files_of)
+                    jobs.append(ds.to_netcdf(stage.file(name), engine="netcdf4",
+                                             encoding=_encoding(ds), compute=False))
+                    sums.append(_region_sums(values, [q.name for q in qs], weights).data)
+                    keys.append((m, month, n_days))
+                    added[name] = {"kind": KIND, "model": m, "month": str(month),
+                                   "description": f"export, N and P demand and O2 production "
+                                                  f"from {model_label(m)}, {month}"}
+                    written.files.append(folder / name)
+            with warnings.catch_warnings():
+                warnings.filterwarnings("ignore", r"Mean of empty slice", RuntimeWarning)
+                warnings.filterwarnings("ignore", r"invalid value encountered", RuntimeWarning)
+                _, computed = dask.compute(jobs, sums)
+            for (m, month, n_days), s in zip(keys, computed, strict=True):
+                written.rows += _rows(np.asarray(s), qs, region_names, m, month, n_days)
+        stage.file(TOTALS_FILE).write_text(totals_csv(written.rows))
+        added[TOTALS_FILE] = {"kind": KIND, "description": "regional totals of the derived "
+                              "quantities (region, month, model, quantity) in mol and Tg",
+                              "export": list(opts.export), "quotient": opts.quotient}
+        written.files.append(folder / TOTALS_FILE)
+    return written
+
+
+# --------------------------------------------------------------------------------------------
+# the report's section
+# --------------------------------------------------------------------------------------------
+
+#: Columns of the report's table: quantity -> header.
+_REPORT_HEADS = {"nitrogen_demand": "N demand (Tg N)", "phosphorus_demand": "P demand (Tg P)",
+                 "oxygen_production": "O2 production (Tg O2)"}
+
+
+def read_totals(path: Path) -> list[dict]:
+    """The rows of a ``derived_totals.csv`` (numbers as floats, empty cells NaN)."""
+    with open(path, newline="") as fh:
+        rows = list(csv.DictReader(fh))
+    for r in rows:
+        for k in ("mean_rate", "observed_area_km2", "total_mol", "total_Tg"):
+            r[k] = float(r[k]) if r.get(k) else float("nan")
+    return rows
+
+
+def annual_table(rows: list[dict]) -> tuple[list[str], list[list]]:
+    """Regional annual totals (Tg) of each quantity side by side: the header and one row per
+    region, year and model: region, year, model, months summed, then each quantity."""
+    quantities = list(dict.fromkeys(r["quantity"] for r in rows))
+    acc: dict[tuple, dict] = {}
+    months: dict[tuple, set] = {}
+    for r in rows:
+        key = (r["region"], r["month"][:4], r["model"])
+        months.setdefault(key, set()).add(r["month"])
+        cell = acc.setdefault(key, {})
+        v = r["total_Tg"]
+        if np.isfinite(v):
+            cell[r["quantity"]] = cell.get(r["quantity"], 0.0) + v
+    head = ["region", "year", "model", "months"] + [
+        _REPORT_HEADS.get(q) or f"export, {dv.EXPORT_METHODS[q.removeprefix('export_')].label}"
+        " (Tg C)" for q in quantities]
+    body = [[reg, year, model_label(mod), len(months[(reg, year, mod)])]
+            + [acc[(reg, year, mod)].get(q, float("nan")) for q in quantities]
+            for (reg, year, mod) in acc]
+    return head, body
+
+
+def report_section(locate, outputs: dict) -> str:
+    """The report's section "What production implies" (HTML; empty when the run has no
+    derived quantities)."""
+    import html
+
+    if TOTALS_FILE not in outputs or outputs[TOTALS_FILE].get("kind") != KIND:
+        return ""
+    try:
+        rows = read_totals(locate(TOTALS_FILE))
+    except (OSError, UnicodeDecodeError, csv.Error, ValueError, KeyError) as exc:
+        raise EuphoticError(f"{locate(TOTALS_FILE)}: cannot read the derived totals "
+                            f"({exc})") from None
+    head, body = annual_table(rows)
+    q = outputs[TOTALS_FILE].get("quotient")
+    quotient = f"a photosynthetic quotient of {q:g} mol O2 (mol C)-1" if q else \
+        "the photosynthetic quotient given in the maps' attributes"
+
+    def e(x) -> str:
+        return html.escape(str(x), quote=True)
+
+    cells = "\n".join(
+        "<tr>" + "".join(f'<td class="text">{e(c)}</td>' for c in r[:3])
+        + f"<td>{r[3]}</td>" + "".join(f"<td>{e(_fmt(v) if isinstance(v, float) else v)}</td>"
+                                       for v in r[4:]) + "</tr>" for r in body)
+    table = ('<div class="wide"><table id="derived">\n<thead><tr>'
+             + "".join(f'<th class="text">{e(h)}</th>' for h in head[:3])
+             + "".join(f"<th>{e(h)}</th>" for h in head[3:])
+             + f"</tr></thead>\n<tbody>\n{cells}\n</tbody>\n</table></div>")
+    return ("<h2>What production implies</h2>\n"
+            "<p>Totals over the months of the run in each year (a year with fewer than 12 "
+            "months is a partial sum), over the cells with a production estimate, from "
+            f"<code>{TOTALS_FILE}</code>. Export by each method side by side; nitrogen and "
+            "phosphorus demand with the Redfield ratio C:N:P = 106:16:1; oxygen with "
+            f"{e(quotient)} (Laws 1991).</p>\n"
+            f'<p class="caution">{e(dv.EXPORT_CAUTION)}</p>\n{table}')
