@@ -85,8 +85,8 @@ def main() -> None:
 )
 @click.option(
     "--no-steps", is_flag=True,
-    help="Stop once the maps and totals are committed: skip the config's [compare], "
-         "[figure_set], [matchup] and [report] steps.",
+    help="Stop once the maps and totals are committed: skip the config's [derived], "
+         "[compare], [figure_set], [matchup] and [report] steps.",
 )
 @click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
 def run(
@@ -483,6 +483,45 @@ def matchup_command(folder: Path, stations: Path | None, window: int | None, day
 
     click.echo("")
     click.echo("Caution: " + CAUTION)
+    if not quiet:
+        for p in w.files:
+            click.echo(f"wrote {p}")
+
+
+@main.command(name="derive")
+@click.argument("config", type=click.Path(dir_okay=False, path_type=Path))
+@click.option("--output-dir", "-o", type=click.Path(file_okay=False, path_type=Path),
+              help="The run's folder, if not the config's [run] output_dir.")
+@click.option("--export", "export", multiple=True, metavar="METHOD",
+              help="Export method: laws2011, dunne2005 or henson2011 (repeat for several; "
+                   "default: [derived] export, else all three).")
+@click.option("--quotient", metavar="Q",
+              help="Photosynthetic quotient, mol O2 per mol C: ammonium (1.1), nitrate (1.4, "
+                   "default) or a number.")
+@click.option("--model", "models", multiple=True, metavar="NAME",
+              help="Model whose maps to use (repeat for several; default: every model of "
+                   "the run).")
+@click.option("--quiet", "-q", is_flag=True, help="No list of files written.")
+@click.option("--debug", is_flag=True, help="Show the full traceback on errors.")
+def derive_command(config: Path, output_dir: Path | None, export: tuple[str, ...],
+                   quotient: str | None, models: tuple[str, ...], quiet: bool,
+                   debug: bool) -> None:
+    """What the production of the run made with CONFIG implies: export production by
+    several published methods side by side, nitrogen and phosphorus demand (Redfield ratio)
+    and oxygen production, as maps per model and month and regional totals, added to the
+    run's folder and listed in its manifest."""
+    from euphotic.derived_outputs import write_derived
+
+    w = _add_to_run("derive", write_derived, debug, folder=output_dir, cfg=config,
+                    export=list(export) or None, quotient=quotient,
+                    models=list(models) or None)
+    if w is None:
+        return
+    from euphotic.derived import EXPORT_CAUTION
+    from euphotic.outputs import CAUTION
+
+    click.echo(f"Derived with {w.options.text()}.")
+    click.echo("Caution: " + CAUTION + " " + EXPORT_CAUTION)
     if not quiet:
         for p in w.files:
             click.echo(f"wrote {p}")

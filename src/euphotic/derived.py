@@ -351,11 +351,18 @@ def quotient_value(value, where: str = "quotient") -> float:
     """
     if isinstance(value, str) and value.strip().lower() in QUOTIENTS:
         return QUOTIENTS[value.strip().lower()]
-    ok = isinstance(value, int | float) and not isinstance(value, bool) and 0.5 <= value <= 3.0
-    if not ok:
+    q = float("nan")
+    if isinstance(value, int | float) and not isinstance(value, bool):
+        q = float(value)
+    elif isinstance(value, str):  # a number as typed on the command line
+        try:
+            q = float(value)
+        except ValueError:
+            pass
+    if not 0.5 <= q <= 3.0:
         raise DerivedError(f"{where}: expected \"ammonium\", \"nitrate\" or a number between "
                            f"0.5 and 3 (mol O2 per mol C), not {value!r}")
-    return float(value)
+    return q
 
 
 def oxygen_production(npp, *, quotient: float | str = DEFAULT_QUOTIENT,

@@ -27,7 +27,6 @@ import xarray as xr
 
 from euphotic import __version__, results, runfolder
 from euphotic import derived as dv
-from euphotic.errors import EuphoticError
 from euphotic.outputs import (
     CAUTION,
     PUBLISHED_NAMES,
@@ -74,6 +73,8 @@ class Options:
     export: tuple[str, ...] = dv.DEFAULT_EXPORT
     quotient: float = dv.DEFAULT_QUOTIENT
     models: tuple[str, ...] | None = None  # None: every model of the run
+    #: where the models came from, for messages
+    models_where: str = "[derived] models"
 
     def text(self) -> str:
         return (f"export methods {', '.join(self.export)}; photosynthetic quotient "
@@ -108,15 +109,12 @@ def options_from(table: dict, *, export=None, quotient=None, models=None,
             f"{exp_where}: unknown export method(s) {', '.join(map(repr, unknown)) or '(none)'}"
             f"; choose from {', '.join(dv.EXPORT_METHODS)}")
     q_raw = quotient if quotient is not None else table.get("quotient", dv.DEFAULT_QUOTIENT)
-    if isinstance(q_raw, str) and quotient is not None:  # a command-line number arrives as text
-        try:
-            q_raw = float(q_raw)
-        except ValueError:
-            pass
     q = dv.quotient_value(q_raw, "--quotient" if quotient is not None else f"{where} quotient")
     mods = models if models else table.get("models")
+    models_where = "--model" if models else f"{where} models"
     return Options(export=tuple(dict.fromkeys(names)), quotient=q,
-                   models=tuple(dict.fromkeys(mods)) if mods else None)
+                   models=tuple(dict.fromkeys(mods)) if mods else None,
+                   models_where=models_where)
 
 
 # --------------------------------------------------------------------------------------------
@@ -378,16 +376,15 @@ def write_derived(folder: str | Path | None = None, *, cfg, export=None, quotien
     try:
         maps = results.open_maps(folder, models=list(opts.models) if opts.models else None)
     except results.SelectionError as exc:
-        raise dv.DerivedError(f"{where} models: {exc}") from None
+        raise dv.DerivedError(f"{opts.models_where}: {exc}") from None
     qs = dv.quantities(opts.export, opts.quotient)
     needs = {"sst"} | ({"chl"} if any("zeu" in dv.EXPORT_METHODS[e].needs for e in opts.export)
                        else set())
     inputs = open_inputs(config)
-    for role in ("chl", "sst"):
-        if role in needs and role in inputs.errors:
+    for role in ("chl", "sst"):  # chlorophyll gives the grid: needed in any case
+        if role in inputs.errors:
             raise inputs.errors[role]
-        if role in needs:
-            _check_grid(inputs.on_grid[role], maps, role, config.path)
+        _check_grid(inputs.on_grid[role], maps, role, config.path)
     regions = results.open_regions(folder)
     weights = (regions["mask"].astype(np.float64) * regions["cell_area"])
     region_names = [str(r) for r in regions["region"].values]
@@ -498,7 +495,9 @@ def report_section(locate, outputs: dict) -> str:
     try:
         rows = read_totals(locate(TOTALS_FILE))
     except (OSError, UnicodeDecodeError, csv.Error, ValueError, KeyError) as exc:
-        raise EuphoticError(f"{locate(TOTALS_FILE)}: cannot read the derived totals "
+        from euphotic.report import ReportError
+
+        raise ReportError(f"{locate(TOTALS_FILE)}: cannot read the derived totals "
                             f"({exc})") from None
     head, body = annual_table(rows)
     q = outputs[TOTALS_FILE].get("quotient")

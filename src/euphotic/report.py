@@ -81,6 +81,7 @@ _PAGE = Template("""<!DOCTYPE html>
 <h2>Regional totals</h2>
 $totals
 $comparisons
+$derived
 $matchups
 <h2>Figures</h2>
 $figures
@@ -340,6 +341,9 @@ def render(folder: str | Path, *, outputs: dict[str, dict] | None = None,
             _csv_table(locate(n), n) for n in comp)
     figures, n_images = _figures(locate, outputs)
     matchups, n_match = _matchups(locate, outputs)
+    from euphotic.derived_outputs import report_section
+
+    derived = report_section(locate, outputs)  # "What production implies", when derived
     n_images += n_match
     m = methods_text(folder)
     paragraph = " ".join(m.text.split())
@@ -348,7 +352,7 @@ def render(folder: str | Path, *, outputs: dict[str, dict] | None = None,
     page = _PAGE.substitute(
         css=_CSS, run_id=_e(manifest.get("run_id", "")), created=_e(manifest.get("created", "")),
         version=_e(manifest.get("version", "")), caution=_e(manifest.get("caution") or CAUTION),
-        totals=totals_table(totals), comparisons=comparisons, matchups=matchups, figures=figures, methods=methods,
+        totals=totals_table(totals), comparisons=comparisons, derived=derived, matchups=matchups, figures=figures, methods=methods,
         provenance=_provenance(manifest), tool_version=_e(__version__),
         now=_e(runfolder.now_iso()))
     return page, n_images
