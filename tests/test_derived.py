@@ -531,3 +531,50 @@ def test_run_with_a_derived_table_adds_the_step(tmp_path):
 
     man = json.loads((out / "euphotic_manifest.json").read_text())
     assert man["added"][0]["command"].endswith("[derived]")
+
+
+def test_the_ensemble_is_derived_when_the_run_has_one(demo_copy, monkeypatch):
+    """A run with ensemble maps (kind "ensemble map", opened by results.open_ensemble_maps)
+    gets derived maps of the ensemble mean too. The ensemble here stands in for the one a run
+    of two models writes: the mean of the two demo models where both have a value."""
+    import json
+
+    from euphotic import results
+
+    cfg, out = demo_copy
+    man_path = out / "euphotic_manifest.json"
+    man = json.loads(man_path.read_text())
+    man["outputs"]["npp_ensemble_2025-04.nc"] = {"kind": "ensemble map", "model": "ensemble",
+                                                 "month": "2025-04"}
+    man_path.write_text(json.dumps(man))
+    maps = results.open_maps(out)
+    mean = maps["npp"].mean("model", skipna=False)
+
+    def open_ensemble_maps(folder):
+        assert Path(folder) == out
+        return xr.Dataset({"npp_mean": mean})
+
+    monkeypatch.setattr(results, "open_ensemble_maps", open_ensemble_maps, raising=False)
+    res = _derive(cfg, "--export", "henson2011", "-q")
+    assert res.exit_code == 0, res.output
+    names = {p.name for p in out.iterdir() if p.name.startswith("derived_")}
+    assert "derived_ensemble_2025-04.nc" in names and len(names) == 4
+    with xr.open_dataset(out / "derived_ensemble_2025-04.nc") as e, \
+            xr.open_dataset(out / "derived_vgpm_2025-04.nc") as a, \
+            xr.open_dataset(out / "derived_eppley_vgpm_2025-04.nc") as b:
+        # N demand is linear in production: the ensemble's is the mean of the members'
+        np.testing.assert_allclose(e["nitrogen_demand"].values,
+                                   (a["nitrogen_demand"].values.astype(float)
+                                    + b["nitrogen_demand"].values) / 2, rtol=1e-6)
+        assert "ensemble mean of the run's models" in e.attrs["summary"]
+    rows = _read_csv(out / "derived_totals.csv")
+    assert {r["model"] for r in rows} == {"vgpm", "eppley_vgpm", "ensemble"}
+    # asked for by name where there is none: one line
+    monkeypatch.delattr(results, "open_ensemble_maps", raising=False)
+    man = json.loads(man_path.read_text())  # as the derivation committed it
+    del man["outputs"]["npp_ensemble_2025-04.nc"]
+    man_path.write_text(json.dumps(man))
+    res = _derive(cfg, "--model", "ensemble")
+    assert res.exit_code == 1
+    assert res.stderr == (f"euphotic: error: --model: {out}: the run has no ensemble maps (it "
+                          "ran vgpm, eppley_vgpm)\n")

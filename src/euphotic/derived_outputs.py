@@ -140,6 +140,23 @@ def _zeu(chl: xr.DataArray) -> xr.DataArray:
     return zeu
 
 
+#: The ensemble where a model name goes (euphotic.results.ENSEMBLE on the ensemble branch),
+#: and the manifest kind of its maps (euphotic.ensemble.MAP_KIND).
+ENSEMBLE = "ensemble"
+ENSEMBLE_MAP_KIND = "ensemble map"
+
+
+def _ensemble_npp(folder: Path, manifest: dict) -> xr.DataArray | None:
+    """The ensemble-mean production maps ``(time, lat, lon)`` with a ``month`` coordinate,
+    when the run holds an ensemble (:func:`euphotic.results.open_ensemble_maps`); else None."""
+    if not any(e.get("kind") == ENSEMBLE_MAP_KIND for e in manifest["outputs"].values()):
+        return None
+    opener = getattr(results, "open_ensemble_maps", None)
+    if opener is None:  # a folder written by a version with ensembles, read by one without
+        return None
+    return opener(folder)["npp_mean"]
+
+
 def _check_grid(on_grid: xr.DataArray, maps: xr.Dataset, role: str, config) -> None:
     for c in ("lat", "lon"):
         a, b = on_grid[c].values, maps[c].values
@@ -212,6 +229,9 @@ def month_dataset(values: dict, qs: list[dv.Quantity], opts: Options, *, model: 
     ds["lat_bnds"] = (("lat", "nv"), _bounds(lat))
     ds["lon_bnds"] = (("lon", "nv"), _bounds(lon))
     name = PUBLISHED_NAMES.get(model, model)
+    who = f"the {name} model (euphotic id {model!r})"
+    if model == ENSEMBLE:
+        name = who = "the ensemble mean of the run's models"
     stem = file_name(model, month).removesuffix(".nc")
     now = iso_utc()
     ds.attrs = {
@@ -222,7 +242,7 @@ def month_dataset(values: dict, qs: list[dv.Quantity], opts: Options, *, model: 
             f"Monthly mean daily export production ({len(opts.export)} published methods side "
             f"by side), nitrogen and phosphorus uptake (Redfield ratio) and oxygen production "
             f"(photosynthetic quotient {opts.quotient:g}) implied by the monthly mean net "
-            f"primary production of the {name} model (euphotic id {model!r}) in {source_map}. "
+            f"primary production of {who} in {source_map}. "
             + DERIVED_CAUTION),
         "comment": "Ocean cells with a production estimate only. Export ratios use the "
                    "month's mean sea surface temperature (and chlorophyll for the euphotic "
@@ -372,11 +392,20 @@ def write_derived(folder: str | Path | None = None, *, cfg, export=None, quotien
     where = f"{config.path} [derived]"
     opts = options_from(config.steps.get("derived", {}), export=export, quotient=quotient,
                         models=models, where=where)
-    results.committed_manifest(folder)  # no run, or an interrupted commit: say so first
+    manifest = results.committed_manifest(folder)  # no run, or an interrupted commit first
+    wanted = [m for m in opts.models or () if m != ENSEMBLE]
     try:
-        maps = results.open_maps(folder, models=list(opts.models) if opts.models else None)
+        maps = results.open_maps(folder, models=wanted or None)
     except results.SelectionError as exc:
         raise dv.DerivedError(f"{opts.models_where}: {exc}") from None
+    ensemble = _ensemble_npp(folder, manifest)
+    if ensemble is None and opts.models and ENSEMBLE in opts.models:
+        raise dv.DerivedError(f"{opts.models_where}: {folder}: the run has no ensemble maps "
+                              f"(it ran {', '.join(map(str, maps['model'].values))})")
+    sources = {str(m): maps["npp"].sel(model=m) for m in maps["model"].values
+               if not opts.models or m in opts.models}
+    if ensemble is not None and (not opts.models or ENSEMBLE in opts.models):
+        sources[ENSEMBLE] = ensemble
     qs = dv.quantities(opts.export, opts.quotient)
     needs = {"sst"} | ({"chl"} if any("zeu" in dv.EXPORT_METHODS[e].needs for e in opts.export)
                        else set())
@@ -393,11 +422,11 @@ def write_derived(folder: str | Path | None = None, *, cfg, export=None, quotien
 
     files_of = {r: ", ".join(_rel(p, base) for p in inputs.raw[r].attrs.get("files", []))
                 for r in sorted(needs)}
-    map_names = {(e["model"], str(np.datetime64(e["month"], "M"))): n
-                 for n, e in results.committed_manifest(folder)["outputs"].items()
-                 if e.get("kind") == "map"}
+    map_names = {(e["model"] if e.get("kind") == "map" else ENSEMBLE,
+                  str(np.datetime64(e["month"], "M"))): n
+                 for n, e in manifest["outputs"].items()
+                 if e.get("kind") in ("map", ENSEMBLE_MAP_KIND) and "month" in e}
     lat, lon = maps["lat"].values, maps["lon"].values
-    models_ = [str(m) for m in maps["model"].values]
     months = list(maps["month"].values)
     per_batch = max(1, config.months_per_compute) if config.months_per_compute else len(months)
     written = Written(options=opts)
@@ -410,8 +439,11 @@ def write_derived(folder: str | Path | None = None, *, cfg, export=None, quotien
                 sst = _month_mean(inputs.on_grid["sst"], month)
                 zeu = _zeu(_month_mean(inputs.on_grid["chl"], month)) if "chl" in needs else None
                 n_days = int(maps["days_in_month"].values[ti])
-                for m in models_:
-                    npp = maps["npp"].sel(model=m).isel(time=ti).drop_vars(
+                for m, source in sources.items():
+                    at = np.flatnonzero(source["month"].values == months[ti])
+                    if not len(at):
+                        continue  # an ensemble without this month
+                    npp = source.isel(time=int(at[0])).drop_vars(
                         ["model", "time", "month", "days_in_month"], errors="ignore"
                     ).astype(np.float64)
                     values = dv.compute_quantities(npp, sst, zeu=zeu, export=opts.export,
