@@ -472,7 +472,7 @@ def test_readme_first_command_is_one_line_running_the_decade_demo():
 #: What the README says the first command writes (besides the 240 month maps).
 DECADE_FILES = {
     "regional_totals.csv", "regional_totals.csv-metadata.json", "euphotic_manifest.json",
-    "regions.nc", *COMPARE_FILES, *METHODS_FILES, "report.html",
+    "regions.nc", *COMPARE_FILES, *METHODS_FILES, "report.html", "derived_totals.csv",
     *(f"fig_{n}.{ext}" for n in ("npp_maps", "npp_difference", "npp_baseline_period_change",
                                   "npp_ratio", "annual_totals", "seasonal_cycle",
                                   "totals_coverage", "monthly_totals")
@@ -492,7 +492,9 @@ def test_decade_demo_with_its_steps(tmp_path):
     names = set(os.listdir(out)) - {runfolder.LOCK_NAME}
     maps = {n for n in names if n.startswith("npp_") and n.endswith(".nc")}
     assert len(maps) == 240  # 2 models x 120 months
-    assert names - maps == DECADE_FILES
+    derived = {n for n in names if n.startswith("derived_") and n.endswith(".nc")}
+    assert derived == {n.replace("npp_", "derived_") for n in maps}  # the [derived] step
+    assert names - maps - derived == DECADE_FILES
     assert set(man["outputs"]) == names - {runfolder.MANIFEST_NAME}
     assert man["months"][0] == "2015-01" and man["months"][-1] == "2024-12"
     assert len(_report_images(out / "report.html")) == 8

@@ -16,6 +16,7 @@ chlorophyll (:func:`euphotic.preflight.open_inputs`, one month at a time through
 from __future__ import annotations
 
 import csv
+import functools
 import io
 import logging
 import warnings
@@ -176,7 +177,10 @@ def file_name(model: str, month) -> str:
     return f"derived_{model}_{np.datetime64(month, 'M')}.nc"
 
 
-def _references(keys: list[str]) -> str:
+@functools.lru_cache(maxsize=32)
+def _references(keys: tuple[str, ...]) -> str:
+    """The works cited, as text, from ``references.bib`` (rendered once per set of keys: each
+    rendering looks up pybtex's plugins, about 0.3 s)."""
     from euphotic.methods import _bibliography, reference_text
 
     bib = _bibliography()
@@ -256,7 +260,7 @@ def month_dataset(values: dict, qs: list[dv.Quantity], opts: Options, *, model: 
         "source_map": source_map,
         "export_methods": " ".join(opts.export),
         "photosynthetic_quotient": float(opts.quotient),
-        "references": _references(keys),
+        "references": _references(tuple(keys)),
         "caution": DERIVED_CAUTION,
         "time_coverage_start": f"{start}T00:00:00Z",
         "time_coverage_end": f"{end}T00:00:00Z",
@@ -281,7 +285,7 @@ def _encoding(ds: xr.Dataset) -> dict:
     enc = {}
     for v, da in ds.data_vars.items():
         if da.dims == ("time", "lat", "lon"):
-            blocks = getattr(da.data, "chunksize", None) or (1, *da.shape[1:])
+            blocks = (1, min(da.shape[1], 1024), min(da.shape[2], 1024))  # as the maps'
             enc[v] = {"zlib": True, "complevel": 1, "shuffle": True, "dtype": "float32",
                       "_FillValue": np.float32(np.nan), "chunksizes": tuple(blocks)}
     t = {"units": "days since 1970-01-01", "calendar": "standard", "dtype": "float64",
@@ -299,13 +303,14 @@ def _encoding(ds: xr.Dataset) -> dict:
 
 
 def _region_sums(values: dict, names: list[str], weights: xr.DataArray) -> xr.DataArray:
-    """Per quantity and region: sum of rate x cell area (m2) over cells with a value, and the
-    area of those cells (m2). Lazy; dims ``(what, quantity, region)``, what = sum, area."""
+    """Per quantity, month and region: sum of rate x cell area (m2) over cells with a value,
+    and the area of those cells (m2). Lazy; dims ``(what, quantity, time, region)``, what =
+    sum, area."""
     stacked = xr.concat([values[n] for n in names], dim="quantity").assign_coords(quantity=names)
     ok = np.isfinite(stacked)
     s = xr.dot(stacked.where(ok, 0.0), weights, dim=["lat", "lon"])
     a = xr.dot(ok.astype(np.float64), weights, dim=["lat", "lon"])
-    return xr.concat([s, a], dim="what").assign_coords(what=["sum", "area"])
+    return xr.concat([s, a], dim="what").transpose("what", "quantity", "time", "region")
 
 
 def _fmt(v: float) -> str:
@@ -416,6 +421,7 @@ def write_derived(folder: str | Path | None = None, *, cfg, export=None, quotien
         _check_grid(inputs.on_grid[role], maps, role, config.path)
     regions = results.open_regions(folder)
     weights = (regions["mask"].astype(np.float64) * regions["cell_area"])
+    weights = weights.assign_coords(lat=maps["lat"].values, lon=maps["lon"].values)
     region_names = [str(r) for r in regions["region"].values]
     base = Path(config.path).resolve().parent
     from euphotic.outputs import _rel
@@ -433,41 +439,62 @@ def write_derived(folder: str | Path | None = None, *, cfg, export=None, quotien
 
     with runfolder.OutputFolder(folder).adding(command, replace_kinds=(KIND,)) as (stage, added):
         for b in range(0, len(months), per_batch):
-            jobs, sums, keys = [], [], []
-            for ti in range(b, min(b + per_batch, len(months))):
-                month = np.datetime64(months[ti], "M")
-                sst = _month_mean(inputs.on_grid["sst"], month)
-                zeu = _zeu(_month_mean(inputs.on_grid["chl"], month)) if "chl" in needs else None
-                n_days = int(maps["days_in_month"].values[ti])
-                for m, source in sources.items():
-                    at = np.flatnonzero(source["month"].values == months[ti])
-                    if not len(at):
-                        continue  # an ensemble without this month
-                    npp = source.isel(time=int(at[0])).drop_vars(
-                        ["model", "time", "month", "days_in_month"], errors="ignore"
-                    ).astype(np.float64)
-                    values = dv.compute_quantities(npp, sst, zeu=zeu, export=opts.export,
-                                                   quotient=opts.quotient)
+            batch = [np.datetime64(months[ti], "M") for ti in range(b, min(b + per_batch,
+                                                                           len(months)))]
+            days = {mo: int(maps["days_in_month"].values[b + k]) for k, mo in enumerate(batch)}
+            # the month's mean temperature (and euphotic depth): once for every model, on the
+            # maps' own coordinates (so that xarray lines them up exactly)
+            sst = xr.concat([_month_mean(inputs.on_grid["sst"], mo) for mo in batch],
+                            dim="time").assign_coords(lat=lat, lon=lon)
+            zeu = (_zeu(xr.concat([_month_mean(inputs.on_grid["chl"], mo) for mo in batch],
+                                  dim="time")).assign_coords(lat=lat, lon=lon)
+                   if "chl" in needs else None)
+            grids, sums, keys = [], [], []
+            for m, source in sources.items():
+                have = [(k, int(at[0])) for k, mo in enumerate(batch)
+                        if len(at := np.flatnonzero(source["month"].values.astype(
+                            "datetime64[M]") == mo))]
+                if not have:
+                    continue  # an ensemble without these months
+                pick = [k for k, _ in have]
+                npp = source.isel(time=[i for _, i in have]).drop_vars(
+                    ["model", "time", "month", "days_in_month"], errors="ignore"
+                ).assign_coords(lat=lat, lon=lon).astype(np.float64)
+                values = dv.compute_quantities(
+                    npp, sst.isel(time=pick), zeu=None if zeu is None else zeu.isel(time=pick),
+                    export=opts.export, quotient=opts.quotient)
+                sums.append(_region_sums(values, [q.name for q in qs], weights).data)
+                keys.append((m, [batch[k] for k in pick]))
+                grids.append({n: v.astype(np.float32) for n, v in values.items()})
+            # one computation for the batch: every input month read once, every model's maps
+            # and sums from it (the maps then written from memory: a lazy write per file would
+            # optimise the whole shared graph once per file)
+            with warnings.catch_warnings():
+                warnings.filterwarnings("ignore", r"Mean of empty slice", RuntimeWarning)
+                warnings.filterwarnings("ignore", r"invalid value encountered", RuntimeWarning)
+                grids, computed = dask.compute(grids, sums)
+            for (m, got), values in zip(keys, grids, strict=True):
+                for j, month in enumerate(got):
                     name = file_name(m, month)
                     ds = month_dataset(
-                        values, qs, opts, model=m, month=month, lat=lat, lon=lon,
-                        earth=config.earth, metadata=config.metadata, command=command,
+                        {n: v.isel(time=j) for n, v in values.items()}, qs, opts, model=m,
+                        month=month, lat=lat, lon=lon, earth=config.earth,
+                        metadata=config.metadata, command=command,
                         source_map=map_names.get((m, str(month)), f"npp_{m}_{month}"),
                         input_files=files_of)
-                    jobs.append(ds.to_netcdf(stage.file(name), engine="netcdf4",
-                                             encoding=_encoding(ds), compute=False))
-                    sums.append(_region_sums(values, [q.name for q in qs], weights).data)
-                    keys.append((m, month, n_days))
+                    ds.to_netcdf(stage.file(name), engine="netcdf4", encoding=_encoding(ds))
                     added[name] = {"kind": KIND, "model": m, "month": str(month),
                                    "description": f"export, N and P demand and O2 production "
                                                   f"from {model_label(m)}, {month}"}
                     written.files.append(folder / name)
-            with warnings.catch_warnings():
-                warnings.filterwarnings("ignore", r"Mean of empty slice", RuntimeWarning)
-                warnings.filterwarnings("ignore", r"invalid value encountered", RuntimeWarning)
-                _, computed = dask.compute(jobs, sums)
-            for (m, month, n_days), s in zip(keys, computed, strict=True):
-                written.rows += _rows(np.asarray(s), qs, region_names, m, month, n_days)
+            rows: dict[tuple, list[dict]] = {}
+            for (m, got), s in zip(keys, computed, strict=True):
+                for j, month in enumerate(got):
+                    rows[(month, m)] = _rows(np.asarray(s)[:, :, j, :], qs, region_names, m,
+                                             month, days[month])
+            for month in batch:  # month by month, the models in the run's order
+                for m in sources:
+                    written.rows += rows.get((month, m), [])
         stage.file(TOTALS_FILE).write_text(totals_csv(written.rows))
         added[TOTALS_FILE] = {"kind": KIND, "description": "regional totals of the derived "
                               "quantities (region, month, model, quantity) in mol and Tg",

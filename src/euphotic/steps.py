@@ -1,10 +1,11 @@
 """Steps after a run, set in the run's configuration: ``euphotic run`` goes on, once the maps
-and totals are committed, to add the comparisons, the figure set, the methods text and the
-report to the folder, the same outputs as the commands ``euphotic compare``, ``euphotic
-figures``, ``euphotic methods`` and ``euphotic report``.
+and totals are committed, to add the derived quantities, the comparisons, the figure set, the
+methods text and the report to the folder, the same outputs as the commands ``euphotic
+derive``, ``euphotic compare``, ``euphotic figures``, ``euphotic methods`` and ``euphotic
+report``.
 
-A step runs when its table is in the configuration (``[compare]``, ``[figure_set]``,
-``[report]``; their keys are declared in :data:`euphotic.config.STEP_KEYS`) and in the order of
+A step runs when its table is in the configuration (``[derived]``, ``[compare]``,
+``[figure_set]``, ``[matchup]``, ``[report]``; their keys are declared in :data:`euphotic.config.STEP_KEYS`) and in the order of
 :data:`STEPS`. Each step calls the function of its command with the table's keys (a key left
 out takes that function's default, so a step and its command behave alike) and commits its
 outputs on its own (:meth:`euphotic.runfolder.OutputFolder.adding`), under the lock the run
