@@ -144,6 +144,20 @@ def _bibliography():
     return parse_string(text, "bibtex")
 
 
+_BIB = None
+
+
+def reference_text_for(key: str) -> str:
+    """The reference text of one ``references.bib`` key (:func:`reference_text`)."""
+    global _BIB
+    if _BIB is None:
+        _BIB = _bibliography()
+    try:
+        return reference_text(_BIB.entries[key])
+    except KeyError:
+        raise MethodsError(f"references.bib: no entry {key!r}") from None
+
+
 def _plain(latex: str) -> str:
     from pybtex.richtext import Text
 
