@@ -122,6 +122,9 @@ class ModelSpec:
     reference: Callable
     parameters: tuple[Parameter | Choice, ...] = ()
     summary: str = ""
+    #: the model as a phrase of the methods paragraph, citing with {bibkey} placeholders
+    #: (e.g. "the VGPM of {behrenfeld1997}"); empty: the published name and its citations
+    methods: str = ""
     output_attrs: dict = field(default_factory=lambda: dict(NPP_ATTRS))
 
     @property

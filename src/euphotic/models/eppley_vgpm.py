@@ -65,6 +65,8 @@ SPEC = ModelSpec(
     parameters=(EUPHOTIC_DEPTH,),
     point=point,
     reference=eppley_vgpm_kernel,
+    methods=("the Eppley-VGPM, the same model with P^B_opt = 1.54 x 10^(0.0275 T - 0.07) from "
+             "the exponential temperature function of {eppley1972}"),
     summary=("The VGPM with P^B_opt(T) = 1.54 x 10^(0.0275 T - 0.07), Eppley's exponential "
              "temperature curve, in place of the polynomial; all else as the VGPM."),
 )

@@ -124,6 +124,10 @@ SPEC = ModelSpec(
     parameters=(EUPHOTIC_DEPTH,),
     point=point,
     reference=vgpm_kernel,
+    methods=("the Vertically Generalized Production Model (VGPM) of {behrenfeld1997}, eq. 10, "
+             "with the optimal assimilation number P^B_opt from sea surface temperature by the "
+             "seventh-order polynomial of their eq. 11 and the euphotic depth Z_eu from surface "
+             "chlorophyll after {morel1989}"),
     summary=("Vertically Generalized Production Model: chlorophyll-specific optimal rate "
              "P^B_opt(T) from the seventh-order polynomial of temperature, a light term "
              "E0 / (E0 + 4.1), euphotic depth, chlorophyll and day length."),
