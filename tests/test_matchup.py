@@ -17,6 +17,8 @@ import xarray as xr
 from click.testing import CliRunner
 
 from euphotic import models
+from euphotic.models import ModelSpec
+from euphotic.models._compiled import jit_point
 from euphotic.cli import main
 from euphotic.config import load_config, matchup_table
 from euphotic.errors import ConfigError
@@ -46,15 +48,26 @@ def _field(values=None, chunks=(1, 90, 90)) -> xr.DataArray:
                                 "period_end": ("time", DAYS + np.timedelta64(1, "D"))})
 
 
+@jit_point
+def _ident_point(chl, par, sst, day_length):
+    return 0.0 if day_length <= 0.0 else chl
+
+
+def _ident_reference(chl, par, sst, day_length):
+    return np.where(np.asarray(day_length) <= 0, 0.0, chl)
+
+
 @pytest.fixture
 def ident(monkeypatch):
     """A 'model' returning the chlorophyll field itself (0 where there is no daylight, the
     models' rule), so the expected window values are f(i, j, day)."""
-    def chl_as_npp(chl, par, sst, day_length):
-        return np.where(np.asarray(day_length) <= 0, 0.0, chl)
-
-    monkeypatch.setitem(models.MODELS, "ident", chl_as_npp)
-    return "ident"
+    spec = ModelSpec(name="ident", label="ident", published_name="chlorophyll as NPP (tests)",
+                     citation_keys=(), inputs=models.SPECS["vgpm"].inputs,
+                     point=_ident_point, reference=_ident_reference)
+    monkeypatch.setitem(models.SPECS, "ident", spec)
+    monkeypatch.delitem(models._BUILT, "ident", raising=False)
+    yield "ident"
+    models._BUILT.pop("ident", None)
 
 
 def _inputs(chl=None) -> DailyInputs:
