@@ -17,12 +17,12 @@ import xarray as xr
 from click.testing import CliRunner
 
 from euphotic import models
-from euphotic.models import ModelSpec
-from euphotic.models._compiled import jit_point
 from euphotic.cli import main
 from euphotic.config import load_config, matchup_table
 from euphotic.errors import ConfigError
 from euphotic.matchup import DailyInputs, WindowOptions, extract, match, station_cells
+from euphotic.models import ModelSpec
+from euphotic.models._compiled import jit_point
 from euphotic.stations import MatchupOptionError, read_stations
 
 from ._grids import run_config

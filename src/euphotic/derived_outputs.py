@@ -134,7 +134,7 @@ def _month_mean(da: xr.DataArray, month: np.datetime64) -> xr.DataArray:
 
 def _zeu(chl: xr.DataArray) -> xr.DataArray:
     """Euphotic depth (m) from chlorophyll (mg m-3), Morel and Berthon (1989), lazily."""
-    from euphotic.models import euphotic_depth
+    from euphotic.models.morel_berthon import euphotic_depth
 
     zeu = xr.apply_ufunc(euphotic_depth, chl, dask="parallelized", output_dtypes=[np.float64])
     zeu.attrs = {"units": "m", "long_name": "euphotic depth (Morel and Berthon 1989)"}
