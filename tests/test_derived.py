@@ -578,3 +578,15 @@ def test_the_ensemble_is_derived_when_the_run_has_one(demo_copy, monkeypatch):
     assert res.exit_code == 1
     assert res.stderr == (f"euphotic: error: --model: {out}: the run has no ensemble maps (it "
                           "ran vgpm, eppley_vgpm)\n")
+
+
+def test_readme_names_every_method_key_and_column():
+    """The README section "What production implies" documents what the code writes."""
+    from .conftest import ROOT
+
+    text = (ROOT / "README.md").read_text()
+    section = text.split("## What production implies", 1)[1].split("\n## ", 1)[0]
+    for name in [*dv.EXPORT_METHODS, *do.TOTALS_COLUMNS, "nitrogen_demand", "phosphorus_demand",
+                 "oxygen_production", "export", "quotient", "models"]:
+        assert f"`{name}`" in section or f'"{name}"' in section, name
+    assert "factor of several" in section
