@@ -202,7 +202,8 @@ def test_numpy_xarray_dask_agree_and_dask_stays_lazy(no_compute):
 # --------------------------------------------------------------------------------------------
 
 #: What `euphotic derive` adds to the demo folder (two models, April 2025).
-DEMO_FILES = {"derived_vgpm_2025-04.nc", "derived_eppley_vgpm_2025-04.nc", "derived_totals.csv"}
+DEMO_FILES = {"derived_vgpm_2025-04.nc", "derived_eppley_vgpm_2025-04.nc", "derived_totals.csv",
+              "derived_totals.csv-metadata.json"}
 #: Variables of a derived map with the default options.
 DEMO_VARIABLES = {"export_laws2011", "export_ratio_laws2011", "export_dunne2005",
                   "export_ratio_dunne2005", "export_henson2011", "export_ratio_henson2011",
@@ -306,6 +307,31 @@ def test_derived_totals_match_the_runs_carbon_totals(derived_demo):
     assert ("oxygen_production", "mmol O2 m-2 d-1") in units
 
 
+def test_csvw_sidecar_is_valid_and_carries_the_caution(derived_demo):
+    """The W3C CSVW metadata, validated and read with the csvw library, as the run's totals
+    sidecar is (test_outputs)."""
+    import json
+
+    from csvw import CSVW, Table
+
+    _, out, _, _ = derived_demo
+    side = out / "derived_totals.csv-metadata.json"
+    assert CSVW(str(side), validate=True).is_valid
+    typed = list(Table.from_file(side).iterdicts())
+    plain = _read_csv(out / "derived_totals.csv")
+    assert [(r["region"], r["quantity"]) for r in typed] == [
+        (r["region"], r["quantity"]) for r in plain]
+    assert str(typed[0]["total_Tg"]) == plain[0]["total_Tg"]
+    doc = json.loads(side.read_text())
+    cols = {c["name"]: c for c in doc["tableSchema"]["columns"]}
+    assert list(cols) == list(do.TOTALS_COLUMNS)
+    assert cols["total_Tg"]["schema:unitText"] == "Tg"
+    assert cols["total_mol"]["schema:unitText"] == "mol"
+    props = {p["schema:name"]: p["schema:value"] for p in doc["schema:additionalProperty"]}
+    assert props["caution"] == do.DERIVED_CAUTION and props["photosynthetic_quotient"] == 1.4
+    assert "Dunne, J. P." in doc["dc:references"]
+
+
 def test_derived_maps_follow_the_formulas_at_a_cell(derived_demo):
     """At every cell: Henson's ratio from the month's mean temperature of the run's own SST
     files (read here with xarray, averaged with numpy), export = ratio x the run's NPP."""
@@ -344,7 +370,8 @@ def test_a_new_derivation_replaces_the_set(derived_demo):
     assert res.exit_code == 0, res.output
     assert "export methods henson2011; photosynthetic quotient 1.1" in res.stdout
     names = {p.name for p in out.iterdir() if p.name.startswith("derived_")}
-    assert names == {"derived_vgpm_2025-04.nc", "derived_totals.csv"}
+    assert names == {"derived_vgpm_2025-04.nc", "derived_totals.csv",
+                     "derived_totals.csv-metadata.json"}
     rows = _read_csv(out / "derived_totals.csv")
     assert {r["quantity"] for r in rows} == {"export_henson2011", "nitrogen_demand",
                                             "phosphorus_demand", "oxygen_production"}
@@ -518,7 +545,7 @@ def test_run_with_a_derived_table_adds_the_step(tmp_path):
     out = tmp_path / "out"
     names = {p.name for p in out.iterdir() if p.name.startswith("derived_")}
     assert names == {f"derived_{m}_2023-0{i}.nc" for m in ("vgpm", "eppley_vgpm")
-                     for i in (1, 2)} | {"derived_totals.csv"}
+                     for i in (1, 2)} | {"derived_totals.csv", "derived_totals.csv-metadata.json"}
     rows = _read_csv(out / "derived_totals.csv")
     assert len(rows) == 1 * 2 * 2 * 5  # region x months x models x (2 exports, N, P, O2)
     o2 = [r for r in rows if r["quantity"] == "oxygen_production"]
@@ -558,7 +585,7 @@ def test_the_ensemble_is_derived_when_the_run_has_one(demo_copy, monkeypatch):
     res = _derive(cfg, "--export", "henson2011", "-q")
     assert res.exit_code == 0, res.output
     names = {p.name for p in out.iterdir() if p.name.startswith("derived_")}
-    assert "derived_ensemble_2025-04.nc" in names and len(names) == 4
+    assert "derived_ensemble_2025-04.nc" in names and len(names) == 5
     with xr.open_dataset(out / "derived_ensemble_2025-04.nc") as e, \
             xr.open_dataset(out / "derived_vgpm_2025-04.nc") as a, \
             xr.open_dataset(out / "derived_eppley_vgpm_2025-04.nc") as b:

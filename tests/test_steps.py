@@ -473,6 +473,7 @@ def test_readme_first_command_is_one_line_running_the_decade_demo():
 DECADE_FILES = {
     "regional_totals.csv", "regional_totals.csv-metadata.json", "euphotic_manifest.json",
     "regions.nc", *COMPARE_FILES, *METHODS_FILES, "report.html", "derived_totals.csv",
+    "derived_totals.csv-metadata.json",
     *(f"fig_{n}.{ext}" for n in ("npp_maps", "npp_difference", "npp_baseline_period_change",
                                   "npp_ratio", "annual_totals", "seasonal_cycle",
                                   "totals_coverage", "monthly_totals")

@@ -18,6 +18,7 @@ from __future__ import annotations
 import csv
 import functools
 import io
+import json
 import logging
 import warnings
 from dataclasses import dataclass, field
@@ -43,8 +44,9 @@ log = logging.getLogger("euphotic")
 
 #: The kind under which derived files are listed in the run manifest.
 KIND = "derived"
-#: The regional totals table.
+#: The regional totals table and its CSV-on-the-Web metadata.
 TOTALS_FILE = "derived_totals.csv"
+TOTALS_METADATA = "derived_totals.csv-metadata.json"
 #: Columns of the totals table, with their meaning (the README lists the same words).
 TOTALS_COLUMNS: dict[str, str] = {
     "region": "region name, as configured",
@@ -343,6 +345,56 @@ def _rows(sums: np.ndarray, qs: list[dv.Quantity], regions: list[str], model: st
     return rows
 
 
+#: Column -> (CSVW datatype, UDUNITS unit or None). Rates have their units in rate_units.
+_COLUMN_TYPES = {"region": ("string", None), "month": ("gYearMonth", None),
+                 "model": ("string", None), "quantity": ("string", None),
+                 "substance": ("string", None), "mean_rate": ("double", None),
+                 "rate_units": ("string", None), "observed_area_km2": ("double", "km2"),
+                 "total_mol": ("double", "mol"), "total_Tg": ("double", "Tg"),
+                 "flag": ("string", None)}
+
+
+def totals_metadata(opts: Options, models: list[str], *, metadata, export_keys: list[str]
+                    ) -> dict:
+    """The W3C CSV-on-the-Web metadata of ``derived_totals.csv`` (as the run's totals table
+    has): each column's meaning, datatype and unit, the options, the works cited and the
+    caution."""
+    meta = metadata_attrs(metadata, TOTALS_FILE.removesuffix(".csv"))
+    columns = []
+    for name, description in TOTALS_COLUMNS.items():
+        datatype, unit = _COLUMN_TYPES[name]
+        col = {"name": name, "titles": name, "dc:description": description,
+               "datatype": datatype, "null": "",
+               "required": name in ("region", "month", "model", "quantity")}
+        if unit:
+            col["schema:unitText"] = unit
+        columns.append(col)
+    properties = {"caution": DERIVED_CAUTION, "euphotic_version": __version__,
+                  "export_methods": " ".join(opts.export),
+                  "photosynthetic_quotient": opts.quotient,
+                  "redfield_ratio": "C:N:P = 106:16:1",
+                  "models": " ".join(models),
+                  **{k: v for k, v in meta.items() if k not in ("id", "license")}}
+    return {
+        "@context": ["http://www.w3.org/ns/csvw", {"@language": "en"}],
+        "url": TOTALS_FILE,
+        "dc:identifier": meta["id"],
+        "dc:title": "What production implies: regional export, nutrient demand and oxygen "
+                    "(euphotic)",
+        "dc:description": "Totals per region, calendar month, model and derived quantity. "
+                          + DERIVED_CAUTION,
+        "dc:license": meta["license"],
+        "dc:created": {"@value": iso_utc(), "@type": "xsd:dateTime"},
+        "dc:references": _references(tuple(export_keys)),
+        "rdfs:comment": DERIVED_CAUTION,
+        "schema:additionalProperty": [
+            {"@type": "schema:PropertyValue", "schema:name": k, "schema:value": v}
+            for k, v in properties.items()],
+        "tableSchema": {"columns": columns,
+                        "primaryKey": ["region", "month", "model", "quantity"]},
+    }
+
+
 def totals_csv(rows: list[dict]) -> str:
     """The totals table as CSV text (numbers to :data:`DIGITS` significant digits)."""
     out = io.StringIO()
@@ -500,6 +552,13 @@ def write_derived(folder: str | Path | None = None, *, cfg, export=None, quotien
                               "quantities (region, month, model, quantity) in mol and Tg",
                               "export": list(opts.export), "quotient": opts.quotient}
         written.files.append(folder / TOTALS_FILE)
+        keys = [k for q in qs for k in q.citation_keys]
+        side = stage.file(TOTALS_METADATA)
+        side.write_text(json.dumps(totals_metadata(opts, list(sources), metadata=config.metadata,
+                                                   export_keys=keys), indent=1))
+        added[TOTALS_METADATA] = {"kind": KIND, "of": TOTALS_FILE,
+                                  "description": "CSV-on-the-Web metadata of the derived totals"}
+        written.files.append(folder / TOTALS_METADATA)
     return written
 
 
