@@ -61,7 +61,7 @@ def _inputs(chl=None) -> DailyInputs:
     chl = _field() if chl is None else chl
     ocean = xr.DataArray(np.ones((len(LAT), len(LON)), bool), dims=("lat", "lon"),
                          coords={"lat": LAT, "lon": LON})
-    return DailyInputs(chl, _field(), _field(), ocean)
+    return DailyInputs({"chl": chl, "par": _field(), "sst": _field()}, ocean)
 
 
 def _at(lat, lon, day):
@@ -144,7 +144,7 @@ def test_day_window_and_outside_grid(ident):
     regional = _field().isel(lat=slice(100, 140), lon=slice(100, 160))
     ocean = xr.DataArray(np.ones(regional.shape[1:], bool), dims=("lat", "lon"),
                          coords={"lat": regional.lat, "lon": regional.lon})
-    inputs = DailyInputs(regional, regional, regional, ocean)
+    inputs = DailyInputs({"chl": regional, "par": regional, "sst": regional}, ocean)
     # +-1 day on the first day of the period: the day before is not covered (not valid)
     ex = extract(inputs, *_at(float(LAT[120]), float(LON[130]), "2025-06-01"), [ident],
                  WindowOptions(days=1))
