@@ -30,7 +30,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from euphotic.models import eppley_vgpm, vgpm
-from euphotic.models.eppley_vgpm import _eppley_kernel
+from euphotic.models.eppley_vgpm import eppley_vgpm_kernel as _eppley_kernel
 from euphotic.models.vgpm import PBOPT_T_HIGH, PBOPT_T_LOW, vgpm_kernel
 
 from .conftest import NoCompute

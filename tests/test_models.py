@@ -340,12 +340,16 @@ def test_incompatible_units_are_rejected():
 
 @pytest.mark.parametrize("name", ["vgpm", "eppley_vgpm"])
 def test_compiled_kernel_matches_numpy_formula(name):
-    import importlib
+    from euphotic.models import SPECS, get_model
+    from euphotic.models._compiled import HAVE_NUMBA
 
-    mod = importlib.import_module(f"euphotic.models.{name}")
-    block = getattr(mod, f"{name}_block")
-    reference = mod.vgpm_kernel if name == "vgpm" else mod._eppley_kernel
-    if block is None:
+    model = get_model(name)
+    reference = SPECS[name].reference
+
+    def block(*a):
+        return model.block(*a, 0.0)  # the euphotic-depth choice's index: Morel & Berthon
+
+    if not HAVE_NUMBA:
         pytest.skip("numba not installed")
     rng = np.random.default_rng(1997)
     n = 200_000

@@ -209,16 +209,14 @@ def test_failed_run_leaves_no_file_and_keeps_old_results(tmp_path, monkeypatch):
     good = (out / "npp_vgpm_2024-01.nc").read_bytes()
     good_csv = (out / "regional_totals.csv").read_text()
 
-    import importlib
-
-    vg = importlib.import_module("euphotic.models.vgpm")  # the module, not the function
+    from euphotic.models import get_model
 
     def broken(*args, **kwargs):
         raise RuntimeError("disk on fire")
 
-    monkeypatch.setattr(vg, "vgpm_kernel", broken)
-    monkeypatch.setattr(vg, "vgpm_block", broken)
-    monkeypatch.setitem(importlib.import_module("euphotic.models").MONTH_BLOCKS, "vgpm", broken)
+    model = get_model("vgpm")  # its compiled monthly pass and its block kernel both fail
+    monkeypatch.setattr(model, "accumulate", broken)
+    monkeypatch.setattr(model, "block", broken)
     with pytest.raises(RuntimeError, match="disk on fire"):
         run(cfg, progress=False, force=True)
     assert (out / "npp_vgpm_2024-01.nc").read_bytes() == good

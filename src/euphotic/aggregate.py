@@ -110,76 +110,161 @@ def monthly_npp(
     sst: xr.DataArray,
     ocean: xr.DataArray,
     day_length: xr.DataArray | None = None,
-    month_block: Callable | None = None,
+    month_block=None,
 ) -> MonthlyMaps:
-    """Monthly mean NPP and coverage for one calendar month (lazy).
+    """Monthly mean NPP and coverage of one model for one calendar month (lazy): the
+    four-input form of :func:`monthly_npp_models`. ``month_block`` falsy: the model function
+    applied day by day (the reference path)."""
+    inputs = {"chl": chl, "par": par, "sst": sst}
+    if day_length is not None:
+        inputs["day_length"] = day_length
+    return monthly_npp_models([(model_name, {})], month, inputs=inputs, ocean=ocean,
+                              fused=bool(month_block), models={model_name: model})[0]
 
-    With ``month_block`` (a model's fused compiled pass, from
-    :func:`euphotic.models.get_month_block`) each day's block is turned straight into a running
-    sum and count of valid rates; otherwise the model function is applied day by day and the
-    mean taken with xarray. Both give the same numbers (tested).
+
+def monthly_npp_models(
+    runs: list[tuple[str, dict]],
+    month: np.datetime64,
+    *,
+    inputs: Mapping[str, xr.DataArray],
+    ocean: xr.DataArray,
+    fused: bool | None = None,
+    models: Mapping[str, Callable] | None = None,
+) -> list[MonthlyMaps]:
+    """Monthly mean NPP and coverage of several models for one calendar month (lazy).
 
     Parameters
     ----------
-    model : callable
-        A model from :mod:`euphotic.models` (chl mg m-3, PAR mol m-2 d-1, SST degC, h).
-    chl, par, sst : xarray.DataArray
-        Inputs on one grid, dims (time, lat, lon) with period_start/period_end coords.
+    runs : list of (model name, parameter values)
+        Parameter values by name: numbers (a Choice by its name or index) or (lat, lon) arrays
+        (a per-region parameter); a parameter left out takes its declared default.
+    inputs : mapping role -> xarray.DataArray
+        Inputs on one grid, dims (time, lat, lon) with period_start/period_end coords; every
+        role a model requires. ``day_length`` left out: computed from latitude and date.
     ocean : xarray.DataArray of bool
         (lat, lon) ocean cells; elsewhere the result is NaN.
-    day_length : xarray.DataArray, optional
-        A day-length input (h) with periods; by default computed from latitude and date.
+    fused : bool, optional
+        The fused compiled pass (default when compiled kernels are on and day length is
+        computed): per spatial block one chain of tasks over the days in which every model adds
+        its valid daily rates to its running sum and count, so all models share one read of
+        each input block and one task per block and day chunk. Otherwise each model's public
+        function is applied day by day and the mean taken with xarray. Both give the same
+        numbers (tested).
+    models : mapping name -> model function, optional
+        Override the registered model functions (tests).
     """
+    from euphotic.models import get_model
+
+    def fn(name):
+        return (models or {}).get(name) or get_model(name)
+
+    chl = inputs["chl"]
     all_days = month_days(month)
     n = len(all_days)
-    block = month_block if day_length is None else None
-    if block is not None:
+    m = np.datetime64(month, "M")
+    specs = [getattr(fn(name), "spec", None) for name, _ in runs]
+    if fused is None:
+        from euphotic.models._compiled import use_compiled
+
+        fused = use_compiled()
+    fused = fused and "day_length" not in inputs and all(s is not None for s in specs)
+    if fused:
         # Days without chlorophyll yield an estimate only in polar night (0, counted as
         # observed): they are added as counts per latitude row instead of being computed.
         covered = day_to_period(chl["period_start"].values, chl["period_end"].values, all_days) >= 0
         dl_all = _day_length(chl["lat"].values, all_days)  # (day, lat)
         dark_rows = (dl_all[~covered] <= 0.0).sum(axis=0).astype(np.float64)
         days = all_days[covered]
-        c, p, t = (daily_stack(x, days) for x in (chl, par, sst))
-        npp, coverage = _fused_month(block, c, p, t, dl_all[covered], ocean, n, dark_rows)
-        return MonthlyMaps(
-            month=np.datetime64(month, "M"), model=model_name, npp=npp, coverage=coverage, n_days=n
-        )
+        roles = list(dict.fromkeys(r for s in specs for r in s.roles if r != "day_length"
+                                   and r in inputs))
+        stacks = {r: daily_stack(inputs[r], days) for r in roles}
+        out = _fused_months(runs, specs, stacks, dl_all[covered], ocean, n, dark_rows)
+        return [MonthlyMaps(month=m, model=name, npp=npp, coverage=cov, n_days=n)
+                for (name, _), (npp, cov) in zip(runs, out, strict=True)]
     days = all_days
-    c = daily_stack(chl, days)
-    p = daily_stack(par, days)
-    t = daily_stack(sst, days)
-    if day_length is None:
+    stacks = {r: daily_stack(v, days) for r, v in inputs.items()}
+    c = stacks["chl"]
+    if "day_length" not in stacks:
         dl = _day_length(chl["lat"], xr.DataArray(days, dims="day", coords={"day": c.day}))
-        dl = dl.transpose("day", "lat")
-    else:
-        dl = daily_stack(day_length, days)
-    npp_daily = model(c, p, t, dl).where(ocean)
-    valid = npp_daily.notnull()
-    npp = npp_daily.mean("day", skipna=True)
-    coverage = (valid.sum("day") / n).where(ocean)
-    return MonthlyMaps(
-        month=np.datetime64(month, "M"), model=model_name, npp=npp, coverage=coverage, n_days=n
-    )
+        stacks["day_length"] = dl.transpose("day", "lat")
+    coords = {"lat": chl["lat"], "lon": chl["lon"]}
+    result = []
+    for name, params in runs:
+        model = fn(name)
+        spec = getattr(model, "spec", None)
+        roles = spec.roles if spec is not None else ("chl", "par", "sst", "day_length")
+        kw = {r: stacks[r] for r in roles if r in stacks}
+        pk = {k: (xr.DataArray(v, dims=("lat", "lon"), coords=coords) if np.ndim(v) == 2 else v)
+              for k, v in params.items()}
+        npp_daily = model(**kw, **pk).where(ocean)
+        valid = npp_daily.notnull()
+        npp = npp_daily.mean("day", skipna=True)
+        coverage = (valid.sum("day") / n).where(ocean)
+        result.append(MonthlyMaps(month=m, model=name, npp=npp, coverage=coverage, n_days=n))
+    return result
 
 
-def _fused_month(block, c, p, t, dl, ocean, n, dark_rows):
+class _MonthPass:
+    """One task of the fused monthly pass: every model adds one chunk of days of one spatial
+    block into its (sum, count). Pickled by model names (distributed workers rebuild it)."""
+
+    def __init__(self, names: tuple[str, ...], roles: tuple[str, ...], layout: tuple):
+        self.names, self.roles, self.layout = names, roles, layout
+
+    def __call__(self, acc, ocean, dl, *blocks):
+        from euphotic.models import get_model
+
+        n_roles = len(self.roles)
+        have = dict(zip(self.roles, blocks[:n_roles], strict=True))
+        extra = blocks[n_roles:]
+        oc = np.ascontiguousarray(ocean, dtype=np.bool_)
+        if acc is None:
+            acc = np.zeros((len(self.names), 2) + oc.shape, dtype=np.float64)
+        models = [get_model(n) for n in self.names]
+        params = [[extra[v] if kind == "block" else v for kind, v in lay] for lay in self.layout]
+        missing = np.broadcast_to(np.float64(np.nan), oc.shape)
+        n_days = dl.shape[0]
+        for k in range(n_days):  # days outer: a day's blocks stay in cache for every model
+            dl_k = np.ascontiguousarray(dl[k], dtype=np.float64)
+            for i, model in enumerate(models):
+                day = [dl_k if r == "day_length" else (have[r][k] if r in have else missing)
+                       for r in model.spec.roles]
+                model.accumulate(day, params[i], oc, acc[i, 0], acc[i, 1])
+        return acc
+
+
+def _fused_months(runs, specs, stacks, dl, ocean, n, dark_rows):
     """Per spatial block, one chain of tasks over the day chunks: each task adds its days'
-    valid rates into the block's running (sum, count), in place, and the last one turns them
-    into (mean rate, coverage). One accumulator per block is alive, however many days."""
+    valid rates of every model into the block's running (sum, count), in place, and the last
+    one turns them into (mean rate, coverage). One accumulator per block is alive, however
+    many days. Returns [(npp, coverage)] per model."""
     import dask.array as da
     from dask.base import tokenize
     from dask.highlevelgraph import HighLevelGraph
 
-    cd = c.data if isinstance(c.data, da.Array) else da.from_array(c.values)
+    roles = tuple(stacks)
+    first = stacks[roles[0]]
+    cd = first.data if isinstance(first.data, da.Array) else da.from_array(first.values)
     spatial = cd.chunks[1:]
-    pd_ = da.asarray(p.data).rechunk(cd.chunks)
-    td = da.asarray(t.data).rechunk(cd.chunks)
+    arrays = [cd] + [da.asarray(stacks[r].data).rechunk(cd.chunks) for r in roles[1:]]
+    layout, extra = [], []
+    for (_, params), spec in zip(runs, specs, strict=True):
+        lay = []
+        for p in spec.parameters:
+            v = params.get(p.name, p.default)
+            if np.ndim(v) == 2:
+                lay.append(("block", len(extra)))
+                extra.append(da.from_array(np.asarray(v, np.float64), chunks=spatial))
+            else:
+                lay.append(("const", p.check(v)))
+        layout.append(tuple(lay))
+    names = tuple(name for name, _ in runs)
+    task = _MonthPass(names, roles, tuple(layout))
     dld = da.from_array(np.asarray(dl, np.float64), chunks=(cd.chunks[0], spatial[0]))
     oc = ocean.data if isinstance(ocean.data, da.Array) else da.from_array(np.asarray(ocean.values, bool))
     oc = oc.rechunk(spatial)
     dark = da.from_array(np.asarray(dark_rows, np.float64), chunks=(spatial[0],))
-    token = tokenize(block, cd, pd_, td, dld, oc, dark, n)
+    token = tokenize(names, layout, *arrays, *extra, dld, oc, dark, n)
     step, final = f"month-step-{token}", f"month-mean-{token}"
     dsk = {}
     n_steps = len(cd.chunks[0])
@@ -188,32 +273,34 @@ def _fused_month(block, c, p, t, dl, ocean, n, dark_rows):
             prev = None
             for d in range(n_steps):
                 dsk[(step, d, y, x)] = (
-                    block, (cd.name, d, y, x), (pd_.name, d, y, x), (td.name, d, y, x),
-                    (dld.name, d, y), (oc.name, y, x), prev,
+                    task, prev, (oc.name, y, x), (dld.name, d, y),
+                    *[(a.name, d, y, x) for a in arrays], *[(e.name, y, x) for e in extra],
                 )
                 prev = (step, d, y, x)
             # one task per block turns (sum, count) into (mean rate, coverage), so both outputs
             # come from the same block and the scheduler frees the inputs promptly
-            dsk[(final, 0, y, x)] = (_finish_month, prev, (oc.name, y, x), (dark.name, y), n)
-    graph = HighLevelGraph.from_collections(final, dsk, dependencies=[cd, pd_, td, dld, oc, dark])
-    out = da.Array(graph, final, chunks=((2,),) + spatial, dtype=np.float64)
-    coords = {"lat": c["lat"], "lon": c["lon"]}
-    npp = xr.DataArray(out[0], dims=("lat", "lon"), coords=coords)
-    coverage = xr.DataArray(out[1], dims=("lat", "lon"), coords=coords)
-    return npp, coverage
+            dsk[(final, 0, 0, y, x)] = (_finish_month, prev, (oc.name, y, x), (dark.name, y), n)
+    graph = HighLevelGraph.from_collections(final, dsk,
+                                            dependencies=[*arrays, *extra, dld, oc, dark])
+    out = da.Array(graph, final, chunks=((len(names),), (2,)) + spatial, dtype=np.float64)
+    coords = {"lat": first["lat"], "lon": first["lon"]}
+    return [(xr.DataArray(out[i, 0], dims=("lat", "lon"), coords=coords),
+             xr.DataArray(out[i, 1], dims=("lat", "lon"), coords=coords))
+            for i in range(len(names))]
 
 
 def _finish_month(sums: np.ndarray, ocean: np.ndarray, dark_rows: np.ndarray, n_days: int) -> np.ndarray:
-    """(sum, count) of valid daily rates -> (mean rate, coverage); NaN off the ocean.
+    """(sum, count) of valid daily rates -> (mean rate, coverage); NaN off the ocean; for each
+    model (``sums`` shaped (model, 2, lat, lon); the result has that shape).
 
     ``dark_rows``: per latitude row, the polar-night days that had no input (rate 0, observed).
     """
-    total = sums[0]
-    count = sums[1] + np.where(ocean, dark_rows[:, None], 0.0)
+    total = sums[:, 0]
+    count = sums[:, 1] + np.where(ocean, dark_rows[:, None], 0.0)[None]
     valid = count > 0
     mean = np.where(valid, total / np.where(valid, count, 1.0), np.nan)
-    coverage = np.where(ocean, count / n_days, np.nan)
-    return np.stack([mean, coverage])
+    coverage = np.where(ocean[None], count / n_days, np.nan)
+    return np.stack([mean, coverage], axis=1)
 
 
 #: Quantities summed per region, in this order.

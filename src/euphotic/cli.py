@@ -491,11 +491,25 @@ def matchup_command(folder: Path, stations: Path | None, window: int | None, day
 
 @main.command(name="models")
 def list_models() -> None:
-    """List the available models and their citations."""
-    from euphotic.models import CITATIONS, MODELS
+    """List the available models: inputs, parameters and references."""
+    from euphotic.models import CITATIONS, SPECS, Choice
 
-    for name in MODELS:
-        click.echo(f"{name}\n    {CITATIONS[name]}")
+    for name, spec in SPECS.items():
+        click.echo(f"{name}  ({spec.label}): {spec.published_name}")
+        if spec.summary:
+            click.echo(f"    {spec.summary}")
+        ins = ", ".join(f"{i.role} [{i.units}]" + ("" if i.required else " (optional)")
+                        for i in spec.inputs)
+        click.echo(f"    inputs: {ins}")
+        for p in spec.parameters:
+            if isinstance(p, Choice):
+                what = f"one of {', '.join(p.choices)}; default {p.default}"
+            else:
+                what = f"default {p.default:g} {p.units}" + ("; may be set per region"
+                                                             if p.per_region else "")
+            click.echo(f"    parameter {p.name}: {what} ({p.source})")
+        click.echo(f"    references: {CITATIONS[name]}")
+        click.echo("")
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -290,7 +290,8 @@ STEP_KEYS: dict[str, dict[str, Key]] = {
     "report": REPORT_KEYS,
 }
 
-_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", "matchup", *STEP_KEYS}
+_TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", "matchup", "models",
+              *STEP_KEYS}
 
 
 def input_roles(model_names) -> tuple[tuple[str, ...], tuple[str, ...]]:
@@ -298,8 +299,6 @@ def input_roles(model_names) -> tuple[tuple[str, ...], tuple[str, ...]]:
     (:func:`euphotic.models.input_roles`)."""
     from euphotic import models
 
-    if not hasattr(models, "input_roles"):  # TEMPORARY until the declarations land on main
-        return ("chl", "par", "sst"), ("day_length",)
     return models.input_roles(list(model_names))
 
 
@@ -331,6 +330,9 @@ class RunConfig:
     metadata: dict[str, str] = field(default_factory=dict)
     #: things worth knowing that are not errors (logged as warnings when the config is loaded)
     notes: list[str] = field(default_factory=list)
+    #: [models.<name>] tables: model -> {"values": {parameter: value},
+    #: "regions": {region name: {parameter: value}}} (see euphotic.models.parameter_settings)
+    model_settings: dict[str, dict] = field(default_factory=dict)
     #: steps after the run: table name -> its checked keys, for the tables present
     #: ([compare], [figure_set], [report]; see euphotic.steps)
     steps: dict[str, dict] = field(default_factory=dict)
@@ -347,6 +349,75 @@ class RunConfig:
     def optional_inputs(self) -> tuple[str, ...]:
         """Roles the models can use but do without (day length: computed when not given)."""
         return tuple(roles.ordered(input_roles(self.models)[1]))
+
+
+def _model_settings(raw, models: list[str], regions: list, path: str, problems: list,
+                    notes: list) -> dict[str, dict]:
+    """Check ``[models.<name>]`` tables: parameter values of a model, for the whole run and
+    (parameters declared per region) per region in ``[models.<name>.regions."<region>"]``."""
+    from euphotic.models import SPECS
+
+    if raw is None:
+        return {}
+    if not isinstance(raw, dict):
+        problems.append(ConfigError(path, "[models] must be a table of [models.<name>] tables"))
+        return {}
+    region_names = {r.name for r in regions}
+    out: dict[str, dict] = {}
+    for name, table in raw.items():
+        where = f"{path} [models.{name}]"
+        if name not in SPECS:
+            problems.append(ConfigError(where, f"unknown model {name!r}; choose from "
+                                               f"{', '.join(sorted(SPECS))}"))
+            continue
+        if not isinstance(table, dict):
+            problems.append(ConfigError(where, "must be a table of parameter values"))
+            continue
+        if name not in models:
+            notes.append(f"{where}: {name} is not in [run] models; its parameters are not used")
+        spec = SPECS[name]
+        known = {p.name: p for p in spec.parameters}
+
+        def check(values: dict, where: str, *, per_region: bool, name=name,
+                  known=known) -> dict:
+            good = {}
+            for key, value in values.items():
+                p = known.get(key)
+                if p is None:
+                    allowed = ", ".join(known) or "none"
+                    problems.append(ConfigError(where, f"unknown parameter {key!r} of {name} "
+                                                       f"(its parameters: {allowed})"))
+                    continue
+                if per_region and not p.per_region:
+                    problems.append(ConfigError(where, f"{key} is one value for the whole run; "
+                                                       f"set it in [models.{name}]"))
+                    continue
+                try:
+                    p.check(value)
+                except ValueError as exc:
+                    problems.append(ConfigError(where, str(exc)))
+                    continue
+                good[key] = value
+            return good
+
+        values = {k: v for k, v in table.items() if k != "regions"}
+        entry = {"values": check(values, where, per_region=False), "regions": {}}
+        by_region = table.get("regions", {})
+        if not isinstance(by_region, dict):
+            problems.append(ConfigError(where, 'regions must be a table of '
+                                               f'[models.{name}.regions."<region name>"] tables'))
+            by_region = {}
+        for region, vals in by_region.items():
+            rwhere = f'{path} [models.{name}.regions."{region}"]'
+            if region not in region_names:
+                problems.append(ConfigError(rwhere, f"no region named {region!r} in [[regions]]"))
+                continue
+            if not isinstance(vals, dict):
+                problems.append(ConfigError(rwhere, "must be a table of parameter values"))
+                continue
+            entry["regions"][region] = check(vals, rwhere, per_region=True)
+        out[name] = entry
+    return out
 
 
 def _check_keys(table: dict, allowed, where: str, problems: list) -> None:
@@ -576,6 +647,9 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         except EuphoticError as exc:
             problems.append(exc)
 
+    model_settings = _model_settings(raw.get("models"), list(models), regions, str(path),
+                                     problems, notes)
+
     steps: dict[str, dict] = {}
     for table, keys in STEP_KEYS.items():
         if table in raw:
@@ -607,5 +681,6 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         land_mask_variable=ocean.get("variable"),
         metadata=metadata,
         notes=notes,
+        model_settings=model_settings,
         steps=steps,
     )

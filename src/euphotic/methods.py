@@ -38,22 +38,6 @@ _ROLE_WORDS = {r.name: r.description for r in _roles.ROLES.values()}
 
 #: Model id -> (sentence, citation keys in the order the sentence cites them). The sentence
 #: holds ``{key}`` placeholders filled with author-year citations.
-MODEL_SENTENCES: dict[str, tuple[str, tuple[str, ...]]] = {
-    "vgpm": (
-        "the Vertically Generalized Production Model (VGPM) of {behrenfeld1997}, eq. 10, "
-        "with the optimal assimilation number P^B_opt from sea surface temperature by the "
-        "seventh-order polynomial of their eq. 11 and the euphotic depth Z_eu from surface "
-        "chlorophyll after {morel1989}",
-        ("behrenfeld1997", "morel1989"),
-    ),
-    "eppley_vgpm": (
-        "the Eppley-VGPM, the same model with P^B_opt = 1.54 x 10^(0.0275 T - 0.07) from the "
-        "exponential temperature function of {eppley1972}",
-        ("eppley1972", "behrenfeld1997", "morel1989"),
-    ),
-}
-
-
 class MethodsError(EuphoticError):
     """The run's records cannot be turned into a methods paragraph (e.g. a citation key that
     ``references.bib`` lacks)."""
@@ -138,6 +122,20 @@ def _bibliography():
 
     text = resources.files("euphotic").joinpath("references.bib").read_text(encoding="utf-8")
     return parse_string(text, "bibtex")
+
+
+_BIB = None
+
+
+def reference_text_for(key: str) -> str:
+    """The reference text of one ``references.bib`` key (:func:`reference_text`)."""
+    global _BIB
+    if _BIB is None:
+        _BIB = _bibliography()
+    try:
+        return reference_text(_BIB.entries[key])
+    except KeyError:
+        raise MethodsError(f"references.bib: no entry {key!r}") from None
 
 
 def _plain(latex: str) -> str:
@@ -256,6 +254,7 @@ def methods_text(folder: str | os.PathLike) -> Methods:
         ``references.bib``.
     """
     from euphotic import results, units
+    from euphotic.models import SPECS
     from euphotic.outputs import CAUTION, PUBLISHED_NAMES
     from euphotic.readers import TARGET_UNITS
 
@@ -280,13 +279,16 @@ def methods_text(folder: str | os.PathLike) -> Methods:
     # models
     parts = []
     for m in manifest.get("models", []):
-        if m in MODEL_SENTENCES:
-            tmpl, mkeys = MODEL_SENTENCES[m]
-            parts.append(tmpl.format(**{k: cite(k) for k in mkeys if "{" + k + "}" in tmpl}))
-            for k in mkeys:
-                cite(k)
-        else:
+        spec = SPECS.get(m)
+        if spec is None:  # a model this version does not know
             parts.append(f"{PUBLISHED_NAMES.get(m, m)} (euphotic model {m!r})")
+            continue
+        tmpl = spec.methods or (spec.published_name + " (" + ", ".join(
+            "{" + k + "}" for k in spec.citation_keys) + ")")
+        parts.append(tmpl.format(**{k: cite(k) for k in spec.citation_keys
+                                    if "{" + k + "}" in tmpl}))
+        for k in spec.citation_keys:
+            cite(k)
     models_txt = parts[0] if len(parts) == 1 else "; and ".join(["; ".join(parts[:-1]), parts[-1]])
     sentences.append(
         f"Monthly net primary production (NPP, mg C m-2 d-1) was estimated "

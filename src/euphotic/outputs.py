@@ -26,7 +26,7 @@ from euphotic import __version__
 from euphotic.aggregate import MonthlyMaps
 from euphotic.constants import AUTHALIC_RADIUS_M, WGS84_A_M, WGS84_F
 from euphotic.errors import ConfigError
-from euphotic.models import CITATIONS
+from euphotic.models import CITATIONS, SPECS
 from euphotic.roles import ROLES
 
 CAUTION = (
@@ -39,16 +39,31 @@ CAUTION = (
 #: packaged with compliance-checker 6.1; every name used here has been in the table for years).
 STANDARD_NAME_VOCABULARY = "CF Standard Name Table v93"
 
+class _FromSpecs(Mapping):
+    """Model id -> one field of its declaration (:data:`euphotic.models.SPECS`)."""
+
+    def __init__(self, field: str):
+        self._field = field
+
+    def __getitem__(self, model):
+        spec = SPECS.get(model)
+        if spec is None:
+            raise KeyError(model)
+        return getattr(spec, self._field)
+
+    def __iter__(self):
+        return iter(SPECS)
+
+    def __len__(self):
+        return len(SPECS)
+
+
 #: Model id -> the model's published name, as written in titles and summaries.
-PUBLISHED_NAMES: dict[str, str] = {
-    "vgpm": "VGPM (Behrenfeld & Falkowski 1997)",
-    "eppley_vgpm": "VGPM (Behrenfeld & Falkowski 1997) with the Eppley (1972) temperature "
-    "dependence",
-}
+PUBLISHED_NAMES: Mapping[str, str] = _FromSpecs("published_name")
 
 #: Short labels for axes and legends (the captions and metadata give PUBLISHED_NAMES and the
 #: citations).
-MODEL_LABELS: dict[str, str] = {"vgpm": "VGPM", "eppley_vgpm": "Eppley-VGPM"}
+MODEL_LABELS: Mapping[str, str] = _FromSpecs("label")
 
 
 def model_label(model: str) -> str:

@@ -19,7 +19,7 @@ from euphotic import aggregate, methods, ocean, outputs, preflight, roles, runfo
 from euphotic.config import RunConfig
 from euphotic.errors import ConfigError, NoValidDataError
 from euphotic.geo import cell_area
-from euphotic.models import get_model, get_month_block
+from euphotic.models import model_parameter_attrs, parameter_settings
 from euphotic.regions import region_masks
 
 log = logging.getLogger("euphotic")
@@ -226,14 +226,14 @@ def run(
 
 
 #: Bumped when a change of the code changes the bytes of maps for the same inputs.
-MAP_FORMAT = 1
+MAP_FORMAT = 2
 #: Bumped when map figures change.
 FIGURE_FORMAT = 2
 #: Version of the regions.nc layout (in its fingerprint).
 REGIONS_FORMAT = 2
 #: RunConfig fields that do not change what a month's map or totals contain.
 _NOT_IN_FINGERPRINT = {"path", "output_dir", "figures", "months_per_compute", "start", "end",
-                       "models", "steps"}
+                       "models", "steps", "model_settings"}
 
 
 def _input_files(prep: Prepared) -> dict[str, list[str]]:
@@ -277,7 +277,8 @@ def _item_fingerprints(cfg: RunConfig, prep: Prepared) -> dict[tuple[str, np.dat
                  for role, da in prep.inputs.items()}
         for model_name in cfg.models:
             out[(model_name, month)] = runfolder.config_fingerprint(
-                [__version__, MAP_FORMAT, model_name, str(month), conf_fp, aux, files]
+                [__version__, MAP_FORMAT, model_name, str(month), conf_fp, aux, files,
+                 cfg.model_settings.get(model_name, {})]
             )
     return out
 
@@ -289,22 +290,21 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_
     names = prep.region_masks.names
     writes, lazies, counts, files = [], [], [], []
     suffix = "zarr" if cfg.output_format == "zarr" else "nc"
+    inputs = _prep_inputs(prep)
+    # every model of a month in one fused pass: one read of each input block for all of them
+    maps_of = {}
+    for month in dict.fromkeys(mo for _, mo in items):
+        runs = [(m, parameter_settings(m, cfg.model_settings.get(m), prep.region_masks))
+                for m, mo in items if mo == month]
+        for maps in aggregate.monthly_npp_models(runs, month, inputs=inputs, ocean=ocean_mask):
+            maps_of[(maps.model, month)] = maps
     for model_name, month in items:
-        model = get_model(model_name)
-        maps = aggregate.monthly_npp(
-            model,
-            model_name,
-            month,
-            chl=prep.chl,
-            par=prep.par,
-            sst=prep.sst,
-            ocean=ocean_mask,
-            day_length=prep.day_length,
-            month_block=get_month_block(model_name),
-        )
+        maps = maps_of[(model_name, month)]
+        attrs = dict(extra_attrs or {})
+        attrs.update(model_parameter_attrs(model_name, cfg.model_settings.get(model_name)))
         ds = outputs.month_dataset(maps, title=cfg.title, input_files=input_files, command=command,
                                    earth=cfg.earth, provenance=provenance, metadata=cfg.metadata,
-                                   extra_attrs=extra_attrs)
+                                   extra_attrs=attrs)
         name = f"{outputs.month_stem(maps)}.{suffix}"
         files.append(name)
         writes.append(outputs.write_lazy(ds, stage.file(name), cfg.output_format))
@@ -314,6 +314,17 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_
             if names else None
         )
     return writes, lazies, counts, files
+
+
+def _prep_inputs(prep: Prepared) -> dict[str, xr.DataArray]:
+    """Role -> input on the grid (day length only when it is an input)."""
+    got = getattr(prep, "inputs", None)
+    if got:
+        return dict(got)
+    out = {"chl": prep.chl, "par": prep.par, "sst": prep.sst}
+    if prep.day_length is not None:
+        out["day_length"] = prep.day_length
+    return out
 
 
 def _rows_to_json(rows: list[dict]) -> list[dict]:

@@ -1,72 +1,176 @@
-"""Published net primary production models, one per module, and a registry by name.
+"""Published net primary production models, one module and one declaration each.
 
-Each model function takes surface chlorophyll (mg m-3), daily PAR (mol photons m-2 d-1),
-sea surface temperature (degC) and day length (h) and returns depth-integrated net primary
-production, mg C m-2 d-1. They accept numpy arrays, dask arrays and (dask-backed) xarray
-objects; on dask they stay lazy.
+Each model module holds a :class:`~euphotic.models._declare.ModelSpec` (its inputs with units,
+parameters with defaults and sources, scalar formula, numpy reference formula and citation keys
+in ``references.bib``); :func:`~euphotic.models._declare.build` makes the public function
+(numpy, dask or xarray in, the same kind out, lazy on dask) and the compiled kernels from it.
+A new model is one new module and one line in :data:`SPECS`.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Iterable, Mapping
 
+import numpy as np
+
+from euphotic.models import eppley_vgpm as _eppley_vgpm
+from euphotic.models import vgpm as _vgpm
 from euphotic.models._apply import InputMismatchError, check_same_grid
-from euphotic.models._compiled import use_compiled
-from euphotic.models.eppley_vgpm import eppley_vgpm, eppley_vgpm_month_block, pb_opt_eppley
+from euphotic.models._declare import Choice, Input, Model, ModelSpec, Parameter, build
+from euphotic.models.eppley_vgpm import eppley_vgpm, pb_opt_eppley
 from euphotic.models.morel_berthon import euphotic_depth
-from euphotic.models.vgpm import pb_opt_behrenfeld_falkowski, vgpm, vgpm_month_block
+from euphotic.models.vgpm import pb_opt_behrenfeld_falkowski, vgpm
 
-#: Model name -> function. A new model is one module and one line here.
-MODELS: dict[str, Callable] = {
-    "vgpm": vgpm,
-    "eppley_vgpm": eppley_vgpm,
-}
+#: Model name -> declaration, in the order `euphotic models` lists them.
+SPECS: dict[str, ModelSpec] = {s.name: s for s in (
+    _vgpm.SPEC,
+    _eppley_vgpm.SPEC,
+)}
 
-#: Model name -> fused monthly block function (compiled; None or absent: use the model function).
-MONTH_BLOCKS: dict[str, Callable | None] = {
-    "vgpm": vgpm_month_block,
-    "eppley_vgpm": eppley_vgpm_month_block,
-}
+_BUILT: dict[str, Model] = {"vgpm": vgpm, "eppley_vgpm": eppley_vgpm}
 
 
-def get_month_block(name: str) -> Callable | None:
-    """The fused monthly block function of a model, if it has one and compiled code is on."""
-    return MONTH_BLOCKS.get(name) if use_compiled() else None
+class UnknownModelError(ValueError):
+    """A model name that is not registered."""
+
+
+def get_model(name: str) -> Model:
+    """The public function of the model registered under ``name``."""
+    if name not in SPECS:
+        raise UnknownModelError(f"unknown model {name!r}; choose one of {', '.join(SPECS)}")
+    if name not in _BUILT:
+        _BUILT[name] = build(SPECS[name])
+    return _BUILT[name]
+
+
+def get_month_block(name: str) -> Model | None:
+    """The model when its compiled monthly pass is on (compiled kernels available and not
+    switched off by ``EUPHOTIC_KERNEL=numpy``), else None."""
+    from euphotic.models._compiled import use_compiled
+
+    return get_model(name) if use_compiled() else None
+
+
+def parameter_settings(name: str, settings: Mapping | None = None, region_masks=None) -> dict:
+    """Parameter name -> value for one model run: the declared default, the config's value
+    (``settings["values"]``) and, for parameters declared ``per_region``, a (lat, lon) array
+    where regions set their own (``settings["regions"]``: region name -> values; a cell in
+    several of them takes the value of the region listed last). ``region_masks``: mapping
+    region name -> boolean (lat, lon) mask (needed when regions set values)."""
+    spec = SPECS[name]
+    settings = settings or {}
+    out = {p.name: settings.get("values", {}).get(p.name, p.default) for p in spec.parameters}
+    by_region = settings.get("regions", {})
+    for p in spec.parameters:
+        layers = [(r, vals[p.name]) for r, vals in by_region.items() if p.name in vals]
+        if not layers:
+            continue
+        field = None
+        for region, value in layers:
+            mask = np.asarray(region_masks[region], dtype=bool)
+            if field is None:
+                field = np.full(mask.shape, float(p.check(out[p.name])))
+            field[mask] = p.check(value)
+        out[p.name] = field
+    return out
+
+
+def model_parameter_attrs(name: str, settings: Mapping | None = None) -> dict[str, str]:
+    """Attributes recording the parameters a model ran with (for its output files)."""
+    spec = SPECS[name]
+    if not spec.parameters:
+        return {}
+    settings = settings or {}
+    values = settings.get("values", {})
+    parts = [f"{p.name} = {values.get(p.name, p.default)}"
+             + ("" if isinstance(p, Choice) else f" {p.units}")
+             + ("" if p.name in values else " (default)") for p in spec.parameters]
+    for region, vals in settings.get("regions", {}).items():
+        parts += [f"{k} = {v} in {region}" for k, v in vals.items()]
+    return {"model_parameters": "; ".join(parts)}
+
+
+#: Model name -> public function (every registered model).
+class _Models(Mapping):
+    def __getitem__(self, name):
+        if name not in SPECS:
+            raise KeyError(name)
+        return get_model(name)
+
+    def __iter__(self):
+        return iter(SPECS)
+
+    def __len__(self):
+        return len(SPECS)
+
+
+MODELS: Mapping[str, Model] = _Models()
+
+
+def input_roles(model_names: Iterable[str]) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """(required, optional) input roles of the named models, each in first-declared order.
+    ``day_length`` is always optional: it is computed from latitude and date unless given."""
+    required, optional = [], []
+    for name in model_names:
+        for inp in SPECS[name].inputs:
+            target = optional if (not inp.required or inp.role == "day_length") else required
+            if inp.role not in required and inp.role not in target:
+                target.append(inp.role)
+    optional = [r for r in optional if r not in required]
+    return tuple(required), tuple(optional)
+
+
+def citation(name: str) -> str:
+    """The references of a model as text (from ``references.bib``), one after another."""
+    from euphotic.methods import reference_text_for
+
+    return " ".join(reference_text_for(k) for k in SPECS[name].citation_keys)
+
+
+class _Citations(Mapping):
+    """Model name -> its references as one line of text (formatted on first use)."""
+
+    _cache: dict[str, str] = {}
+
+    def __getitem__(self, name):
+        if name not in SPECS:
+            raise KeyError(name)
+        if name not in self._cache:
+            self._cache[name] = citation(name)
+        return self._cache[name]
+
+    def __iter__(self):
+        return iter(SPECS)
+
+    def __len__(self):
+        return len(SPECS)
 
 
 #: Model name -> citation written into output metadata.
-CITATIONS: dict[str, str] = {
-    "vgpm": (
-        "Behrenfeld, M. J. and Falkowski, P. G. (1997). Photosynthetic rates derived from "
-        "satellite-based chlorophyll concentration. Limnology and Oceanography 42(1):1-20. "
-        "Euphotic depth: Morel, A. and Berthon, J.-F. (1989), Limnology and Oceanography "
-        "34(8):1545-1562."
-    ),
-    "eppley_vgpm": (
-        "VGPM of Behrenfeld and Falkowski (1997, Limnol. Oceanogr. 42:1-20) with the "
-        "temperature dependence of Eppley, R. W. (1972), Temperature and phytoplankton growth "
-        "in the sea, Fishery Bulletin 70:1063-1085. Euphotic depth: Morel and Berthon (1989)."
-    ),
-}
-
-
-def get_model(name: str) -> Callable:
-    """Return the model function registered under ``name``."""
-    try:
-        return MODELS[name]
-    except KeyError:
-        raise ValueError(f"unknown model {name!r}; choose one of {sorted(MODELS)}") from None
+CITATIONS: Mapping[str, str] = _Citations()
 
 
 __all__ = [
     "CITATIONS",
     "MODELS",
+    "SPECS",
+    "Choice",
+    "Input",
     "InputMismatchError",
+    "Model",
+    "ModelSpec",
+    "Parameter",
+    "UnknownModelError",
+    "build",
     "check_same_grid",
+    "citation",
     "eppley_vgpm",
     "euphotic_depth",
     "get_model",
     "get_month_block",
+    "model_parameter_attrs",
+    "parameter_settings",
+    "input_roles",
     "pb_opt_behrenfeld_falkowski",
     "pb_opt_eppley",
     "vgpm",

@@ -109,16 +109,17 @@ def _factors(given: str, expected: str, name: str) -> tuple[float, float]:
         raise ValueError(f"{name}: {exc}") from None
 
 
-def model_inputs(chl, par, sst, day_length) -> tuple:
-    """The four model inputs checked (:func:`check_same_grid`) and in canonical units:
-    chl mg m-3, PAR mol photons m-2 d-1, SST degC, day length h."""
-    check_same_grid(chl=chl, par=par, sst=sst, day_length=day_length)
-    return (
-        as_units(chl, units.CHL_UNITS, "chl"),
-        as_units(par, units.PAR_UNITS, "par"),
-        as_units(sst, units.SST_UNITS, "sst"),
-        as_units(day_length, units.DAY_LENGTH_UNITS, "day_length"),
-    )
+def model_inputs(spec, bound: dict) -> list:
+    """A model's inputs (``bound``: role -> value, None for an optional input not given),
+    checked (:func:`check_same_grid`) and converted to the units its declaration names
+    (:class:`euphotic.models._declare.ModelSpec`), in declared order; a missing optional
+    input becomes NaN."""
+    check_same_grid(**{k: v for k, v in bound.items() if v is not None})
+    out = []
+    for inp in spec.inputs:
+        v = bound.get(inp.role)
+        out.append(np.nan if v is None else as_units(v, inp.units, inp.role))
+    return out
 
 
 def apply_kernel(kernel: Callable, *args, name: str, attrs: dict | None = None):

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from euphotic.models._apply import apply_kernel, model_inputs
-from euphotic.models._compiled import block_kernel, jit_loop, jit_point, month_block, use_compiled
-from euphotic.models.morel_berthon import euphotic_depth, euphotic_depth_point
+from euphotic.models import euphotic_depth as zeu
+from euphotic.models._compiled import jit_point
+from euphotic.models._declare import NPP_ATTRS, Choice, Input, ModelSpec, build
 
 #: Dimensionless constant of the VGPM (the volume function integrated over depth).
 #: Source: Behrenfeld and Falkowski (1997), Limnol. Oceanogr. 42:1-20, equation 10.
@@ -31,11 +31,13 @@ PBOPT_COEFFS = (
     -3.27e-8,
 )
 
-_OUTPUT_ATTRS = {
-    "units": "mg m-2 d-1",
-    "long_name": "net primary production of carbon, integrated over the euphotic layer",
-    "standard_name": "net_primary_productivity_of_biomass_expressed_as_carbon",
-}
+_OUTPUT_ATTRS = NPP_ATTRS
+
+#: The inputs of the VGPM and the units its formula takes.
+INPUTS = (Input("chl", "mg m-3"), Input("par", "mol m-2 d-1"), Input("sst", "degC"),
+          Input("day_length", "h"))
+#: The euphotic-depth relation (Behrenfeld & Falkowski 1997 used Morel & Berthon 1989).
+EUPHOTIC_DEPTH = Choice("euphotic_depth", zeu.CHOICES, default=zeu.DEFAULT, source=zeu.SOURCE)
 
 
 def pb_opt_behrenfeld_falkowski(sst) -> np.ndarray:
@@ -67,10 +69,11 @@ def pb_opt_behrenfeld_falkowski(sst) -> np.ndarray:
     return np.where(t < PBOPT_T_LOW, PBOPT_LOW, np.where(t > PBOPT_T_HIGH, PBOPT_HIGH, poly))
 
 
-def vgpm_kernel(chl, par, sst, day_length, pb_opt=pb_opt_behrenfeld_falkowski) -> np.ndarray:
+def vgpm_kernel(chl, par, sst, day_length, pb_opt=pb_opt_behrenfeld_falkowski, *,
+                euphotic_depth: str = zeu.DEFAULT) -> np.ndarray:
     """VGPM on numpy arrays in canonical units (float64 arithmetic). See :func:`vgpm`.
 
-    The numpy reference formula; :data:`vgpm_block` is the compiled equivalent."""
+    The plain numpy formula (the test reference); ``pb_opt`` is the temperature function."""
     chl = np.asarray(chl, dtype=np.float64)
     par = np.asarray(par, dtype=np.float64)
     dl = np.asarray(day_length, dtype=np.float64)
@@ -78,8 +81,8 @@ def vgpm_kernel(chl, par, sst, day_length, pb_opt=pb_opt_behrenfeld_falkowski) -
     valid_chl = np.isfinite(chl) & (chl > 0.0)
     chl_ok = np.where(valid_chl, chl, np.nan)
     par_ok = np.where(par >= 0.0, par, np.nan)  # negative light is a bad value, NaN stays NaN
-    zeu = euphotic_depth(chl_ok)
-    npp = VGPM_CONSTANT * pbo * (par_ok / (par_ok + VGPM_LIGHT_HALF_SAT)) * zeu * chl_ok * dl
+    z = zeu.euphotic_depth_by(chl_ok, euphotic_depth)
+    npp = VGPM_CONSTANT * pbo * (par_ok / (par_ok + VGPM_LIGHT_HALF_SAT)) * z * chl_ok * dl
     # No light, no production: where the sun does not rise the rate is 0 whatever else is known.
     return np.where(dl <= 0.0, 0.0, npp)
 
@@ -96,91 +99,39 @@ def pb_opt_point(t: float) -> float:
 
 
 @jit_point
-def vgpm_point_with(chl: float, par: float, dl: float, pb_opt: float) -> float:
+def vgpm_point_with(chl: float, par: float, dl: float, pb_opt: float, zeu_method: float) -> float:
     """The VGPM for one cell given its P^B_opt (compiled), mg C m-2 d-1."""
     if dl <= 0.0:
         return 0.0  # no light, no production
     if not (chl > 0.0 and chl < np.inf) or not (par >= 0.0):
         return np.nan
     light = par / (par + VGPM_LIGHT_HALF_SAT)
-    return VGPM_CONSTANT * pb_opt * light * euphotic_depth_point(chl) * chl * dl
+    return VGPM_CONSTANT * pb_opt * light * zeu.zeu_point(chl, zeu_method) * chl * dl
 
 
-def _vgpm_loop(c, p, t, d, out):
-    for i in range(out.size):
-        out[i] = vgpm_point_with(
-            np.float64(c[i]), np.float64(p[i]), np.float64(d[i]), pb_opt_point(np.float64(t[i]))
-        )
+@jit_point
+def point(chl: float, par: float, sst: float, day_length: float, zeu_method: float) -> float:
+    """The VGPM for one cell and day (compiled), mg C m-2 d-1."""
+    return vgpm_point_with(chl, par, day_length, pb_opt_point(sst), zeu_method)
 
 
-#: Compiled block kernel of the VGPM (None without numba).
-vgpm_block = block_kernel(jit_loop(_vgpm_loop))
+SPEC = ModelSpec(
+    name="vgpm",
+    label="VGPM",
+    published_name="VGPM (Behrenfeld & Falkowski 1997)",
+    citation_keys=("behrenfeld1997", "morel1989"),
+    inputs=INPUTS,
+    parameters=(EUPHOTIC_DEPTH,),
+    point=point,
+    reference=vgpm_kernel,
+    methods=("the Vertically Generalized Production Model (VGPM) of {behrenfeld1997}, eq. 10, "
+             "with the optimal assimilation number P^B_opt from sea surface temperature by the "
+             "seventh-order polynomial of their eq. 11 and the euphotic depth Z_eu from surface "
+             "chlorophyll after {morel1989}"),
+    summary=("Vertically Generalized Production Model: chlorophyll-specific optimal rate "
+             "P^B_opt(T) from the seventh-order polynomial of temperature, a light term "
+             "E0 / (E0 + 4.1), euphotic depth, chlorophyll and day length."),
+)
 
-
-def _vgpm_accumulate(c, p, t, d, ocean, total, count):
-    for j in range(c.shape[0]):
-        dl = d[j]
-        for i in range(c.shape[1]):
-            if ocean[j, i]:
-                v = vgpm_point_with(
-                    np.float64(c[j, i]), np.float64(p[j, i]), dl, pb_opt_point(np.float64(t[j, i]))
-                )
-                if v == v:  # a valid estimate (not NaN)
-                    total[j, i] += v
-                    count[j, i] += 1.0
-
-
-#: Fused monthly pass of the VGPM: rate, ocean mask, sum and count of valid days in one loop.
-vgpm_month_block = month_block(jit_loop(_vgpm_accumulate))
-
-
-def vgpm(chl, par, sst, day_length):
-    """Net primary production by the VGPM.
-
-    Parameters
-    ----------
-    chl : array_like, dask array or xarray.DataArray
-        Surface chlorophyll-a, mg m-3. Values <= 0 or non-finite are missing.
-    par : array_like, dask array or xarray.DataArray
-        Daily photosynthetically active radiation at the surface, mol photons m-2 d-1. A
-        DataArray whose ``units`` say otherwise is converted as the file readers do
-        (:func:`euphotic.units.par_factors`): a daily dose (``einstein m-2 d-1``), a daily-mean
-        photon flux (``umol m-2 s-1``, x 86,400 s) or a daily-mean energy flux (``W m-2``,
-        x 4.57 umol J-1 after McCree 1972, x 86,400 s).
-    sst : array_like, dask array or xarray.DataArray
-        Sea surface temperature, degC (a DataArray in K is converted from its units).
-    day_length : array_like, dask array or xarray.DataArray
-        Day length, h.
-
-    Returns
-    -------
-    same kind as the inputs
-        Net primary production integrated over the euphotic layer, mg C m-2 d-1
-        (float64; NaN where an input is missing, 0 where day_length is 0).
-
-    Raises
-    ------
-    InputMismatchError
-        DataArray inputs that would broadcast instead of lining up cell by cell: each
-        DataArray's dims must be a subset of the largest input's dims, with identical
-        coordinate values on the shared dims (so a ``day_length(lat)`` or a scalar is fine;
-        ``latitude/longitude`` beside ``lat/lon``, or two different grids, are not). See
-        :func:`euphotic.models.check_same_grid`.
-    ValueError
-        A ``units`` attribute that cannot be converted, naming the argument.
-
-    Notes
-    -----
-    .. math:: PP_{eu} = 0.66125\\,P^B_{opt}(T)\\,\\frac{E_0}{E_0 + 4.1}\\,Z_{eu}\\,C_{sat}\\,D_{irr}
-
-    with :math:`P^B_{opt}` from :func:`pb_opt_behrenfeld_falkowski` and :math:`Z_{eu}` from
-    :func:`euphotic.models.morel_berthon.euphotic_depth`.
-
-    References
-    ----------
-    Behrenfeld and Falkowski (1997), Limnol. Oceanogr. 42:1-20, equations 10 and 11.
-    Morel and Berthon (1989), Limnol. Oceanogr. 34:1545-1562.
-    """
-    chl, par, sst, day_length = model_inputs(chl, par, sst, day_length)
-    kernel = vgpm_block if (vgpm_block is not None and use_compiled()) else vgpm_kernel
-    return apply_kernel(kernel, chl, par, sst, day_length, name="npp", attrs=_OUTPUT_ATTRS)
+#: The public function (numpy, dask or xarray; see :func:`euphotic.models._declare.build`).
+vgpm = build(SPEC)
