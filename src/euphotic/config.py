@@ -636,6 +636,10 @@ def _load(path: Path, problems: list) -> RunConfig | None:
     source = ocean.get("source", "file" if land_mask else "package")
     if source == "file" and not land_mask and "land_mask" not in ocean_raw:
         problems.append(ConfigError(where_ocean, "source = 'file' needs `land_mask`"))
+    if source == "temperature" and isinstance(raw.get("inputs"), dict) \
+            and "sst" not in raw["inputs"]:
+        problems.append(ConfigError(where_ocean, "source = 'temperature' needs [inputs.sst] "
+                                                 "(the ocean is where temperature is valid)"))
 
     regions: list[Region] = []
     regions_raw = raw.get("regions", [])
