@@ -578,6 +578,8 @@ def _inputs(raw: dict, path: Path, base: Path, run_raw: dict, models: list[str],
             **screen_options,
         )
     key = "model" if "model" in run_raw and "models" not in run_raw else "models"
+    if "model" not in run_raw and "models" not in run_raw:
+        key = "models (not set, the default)"
     for m, need in needs.items():
         lacking = [r for r in need if r not in inputs_raw]
         if lacking:
