@@ -88,6 +88,16 @@ def test_catalogue_order_units_and_ranges():
         roles.role("salinity")
 
 
+def test_every_declared_model_input_is_a_catalogued_role_in_convertible_units():
+    for spec in models.SPECS.values():
+        for inp in spec.inputs:
+            facts = roles.role(inp.role)  # raises for a role the readers do not know
+            if facts.conversion == "light":
+                assert units.par_factors(inp.units) == (1.0, "photons"), (spec.name, inp)
+            else:
+                units.linear_factors(facts.units, inp.units)  # raises when not convertible
+
+
 # ---- reading the new inputs ------------------------------------------------------------------
 
 LAT, LON = grid(30.0, 32.0, -40.0, -38.0, 0.5)  # 4 x 4 cells of 0.5 degree (mid-Atlantic)
