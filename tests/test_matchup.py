@@ -21,7 +21,7 @@ from euphotic.cli import main
 from euphotic.config import load_config, matchup_table
 from euphotic.errors import ConfigError
 from euphotic.matchup import DailyInputs, WindowOptions, extract, match, station_cells
-from euphotic.models import Input, ModelSpec
+from euphotic.models import ModelSpec
 from euphotic.models._compiled import jit_point
 from euphotic.stations import MatchupOptionError, read_stations
 
@@ -50,28 +50,21 @@ def _field(values=None, chunks=(1, 90, 90)) -> xr.DataArray:
 
 @jit_point
 def _ident_point(chl, par, sst, day_length):
-    if day_length <= 0.0:
-        return 0.0
-    return chl
+    return 0.0 if day_length <= 0.0 else chl
 
 
 def _ident_reference(chl, par, sst, day_length):
-    return np.where(np.asarray(day_length) <= 0, 0.0, np.asarray(chl, float))
-
-
-#: A 'model' returning the chlorophyll field itself (0 where there is no daylight, the models'
-#: rule), so the expected window values are f(i, j, day); declared like a registered model.
-IDENT = ModelSpec(
-    name="ident", label="Ident", published_name="the chlorophyll itself (tests only)",
-    citation_keys=("behrenfeld1997",),
-    inputs=(Input("chl", "mg m-3"), Input("par", "mol m-2 d-1"), Input("sst", "degC"),
-            Input("day_length", "h")),
-    point=_ident_point, reference=_ident_reference)
+    return np.where(np.asarray(day_length) <= 0, 0.0, chl)
 
 
 @pytest.fixture
 def ident(monkeypatch):
-    monkeypatch.setitem(models.SPECS, "ident", IDENT)
+    """A 'model' returning the chlorophyll field itself (0 where there is no daylight, the
+    models' rule), so the expected window values are f(i, j, day)."""
+    spec = ModelSpec(name="ident", label="ident", published_name="chlorophyll as NPP (tests)",
+                     citation_keys=(), inputs=models.SPECS["vgpm"].inputs,
+                     point=_ident_point, reference=_ident_reference)
+    monkeypatch.setitem(models.SPECS, "ident", spec)
     monkeypatch.delitem(models._BUILT, "ident", raising=False)
     yield "ident"
     models._BUILT.pop("ident", None)
