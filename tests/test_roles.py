@@ -275,6 +275,21 @@ def test_unknown_input_and_temperature_ocean_without_temperature(tmp_path, mixin
                             "ocean is where temperature is valid)")
 
 
+def test_the_chlorophyll_grid_is_needed_even_by_a_model_without_chlorophyll(tmp_path,
+                                                                          monkeypatch):
+    def depth_only(mld):
+        return mld
+
+    spec = ModelSpec(name="depth_only", label="D", published_name="depth (tests only)",
+                     citation_keys=(), inputs=(Input("mld", "m"),), point=depth_only,
+                     reference=depth_only)
+    monkeypatch.setitem(models.SPECS, "depth_only", spec)
+    path = run_config(tmp_path / "run.toml", run='models = ["depth_only"]',
+                      inputs='[inputs.mld]\nfiles = "m/*.nc"\n', ocean='source = "package"')
+    assert _error(path) == (f"{path}: missing [inputs.chl]: its grid is the grid of the run "
+                            "(every input is brought onto it)")
+
+
 # ---- a run of a model needing the new inputs -------------------------------------------------
 
 DAYS = ("2024-05-01", "2024-05-02", "2024-05-03")

@@ -577,6 +577,9 @@ def _inputs(raw: dict, path: Path, base: Path, run_raw: dict, models: list[str],
             base_dir=base,
             **screen_options,
         )
+    if roles.GRID_ROLE not in inputs_raw and roles.GRID_ROLE not in required:
+        problems.append(ConfigError(path, f"missing [inputs.{roles.GRID_ROLE}]: its grid is "
+                                          "the grid of the run (every input is brought onto it)"))
     key = "model" if "model" in run_raw and "models" not in run_raw else "models"
     if "model" not in run_raw and "models" not in run_raw:
         key = "models (not set, the default)"
