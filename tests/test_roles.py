@@ -406,3 +406,14 @@ def test_sample_grids_stay_small_and_the_new_demo_inputs_are_coherent():
     april_chl = open_input(InputSpec(role="chl",
                                      files=str(sample / "chl" / "maren_chl_20250401.nc")))
     assert match_grid(day, april_chl, "mld").shape == (1, 240, 264)
+
+
+def test_inspect_tries_every_catalogued_input():
+    # a backscattering file has no chlorophyll, PAR, temperature or day-length variable: the
+    # command tries each role of the catalogue in turn and names the one that fits
+    f = ROOT / "sample_grids" / "bbp" / "maren_bbp_20250401.nc"
+    res = CliRunner().invoke(main, ["inspect", str(f)])
+    assert res.exit_code == 0, res.output
+    assert res.stdout.splitlines()[:2] == [
+        "input:     bbp (particulate backscattering coefficient at 443 nm)",
+        "variable:  bbp_443 -> converted to m-1"]
