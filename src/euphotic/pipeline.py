@@ -19,7 +19,7 @@ from euphotic import aggregate, methods, ocean, outputs, preflight, roles, runfo
 from euphotic.config import RunConfig
 from euphotic.errors import ConfigError, NoValidDataError
 from euphotic.geo import cell_area
-from euphotic.models import model_parameter_attrs, parameter_settings
+from euphotic.models import SPECS, model_parameter_attrs, parameter_settings
 from euphotic.regions import region_masks
 
 log = logging.getLogger("euphotic")
@@ -263,7 +263,7 @@ def _item_fingerprints(cfg: RunConfig, prep: Prepared) -> dict[tuple[str, np.dat
     from euphotic import __version__
 
     conf = {f.name: getattr(cfg, f.name) for f in dataclasses.fields(cfg)
-            if f.name not in _NOT_IN_FINGERPRINT}
+            if f.name not in _NOT_IN_FINGERPRINT and f.name != "inputs"}
     base = Path(cfg.path).resolve().parent if cfg.path else None
     extra_files = [cfg.land_mask] if cfg.land_mask else []
     for r in cfg.regions:
@@ -271,13 +271,24 @@ def _item_fingerprints(cfg: RunConfig, prep: Prepared) -> dict[tuple[str, np.dat
             extra_files.append(r.mask_file)
     conf_fp = runfolder.config_fingerprint(conf)
     aux = [runfolder.file_stat(p, base) for p in extra_files]
+    # each map depends on the inputs its model declares, the grid's (chl) and, for an ocean
+    # taken from temperature, sst: an input added for another model leaves it unchanged
+    used = {}
+    for model_name in cfg.models:
+        roles = {"chl", *SPECS[model_name].roles}
+        if cfg.ocean_source == "temperature":
+            roles.add("sst")
+        used[model_name] = [r for r in prep.inputs if r in roles]
+    specs = {r: runfolder.config_fingerprint(cfg.inputs[r]) for r in prep.inputs if r in cfg.inputs}
     out = {}
     for month in prep.months:
         files = {role: [runfolder.file_stat(p, base) for p in _files_for_month(da, month)]
                  for role, da in prep.inputs.items()}
         for model_name in cfg.models:
+            mine = used[model_name]
             out[(model_name, month)] = runfolder.config_fingerprint(
-                [__version__, MAP_FORMAT, model_name, str(month), conf_fp, aux, files,
+                [__version__, MAP_FORMAT, model_name, str(month), conf_fp, aux,
+                 {r: files[r] for r in mine}, {r: specs.get(r) for r in mine},
                  cfg.model_settings.get(model_name, {})]
             )
     return out
@@ -318,13 +329,7 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_
 
 def _prep_inputs(prep: Prepared) -> dict[str, xr.DataArray]:
     """Role -> input on the grid (day length only when it is an input)."""
-    got = getattr(prep, "inputs", None)
-    if got:
-        return dict(got)
-    out = {"chl": prep.chl, "par": prep.par, "sst": prep.sst}
-    if prep.day_length is not None:
-        out["day_length"] = prep.day_length
-    return out
+    return dict(prep.inputs)
 
 
 def _rows_to_json(rows: list[dict]) -> list[dict]:
