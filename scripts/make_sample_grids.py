@@ -10,11 +10,24 @@ Inputs, each in a different but common layout, so the demo exercises the readers
 - par/:  daily-mean PAR photon flux, 1/12 degree, umol m-2 s-1, one time step per file;
 - sst/:  daily SST, 1/4 degree, packed int16 in kelvin (scale_factor/add_offset), longitudes
          in 0..360 and latitudes descending;
+- bbp/:  daily particulate backscattering at 443 nm, 1/6 degree, m-1, float32, no CF standard
+         name (none exists for the particulate part: found by its variable name bbp_443),
+         dated by ACDD time_coverage_* attributes, with the chlorophyll's cloud gaps;
+- kd490/: daily Kd(490), 1/6 degree, m-1, packed int16 (scale_factor), one time step per file,
+         with a radiation_wavelength scalar coordinate, the chlorophyll's cloud gaps;
+- mld/:  daily mixed-layer depth (model-like: no gaps), 1/4 degree, int16 in cm, no time
+         variable or attribute: dated by the date in the file name (``date_pattern``);
 - masks.nc: land flag and the Tollan Bank region mask on the chlorophyll grid;
 - decade/: ten years (2015-2024) of monthly composites on a coarse 1/2-degree grid, one file
          per year and input with twelve monthly time steps dated by time bounds (chl in mg m-3,
-         PAR in mol m-2 d-1, SST in degC), with an invented seasonal cycle, year-to-year
-         variability and a slow invented trend, for comparisons of years and trends.
+         PAR in mol m-2 d-1, SST in degC, bbp and Kd(490) in m-1, MLD in m), with an invented
+         seasonal cycle, year-to-year variability and a slow invented trend, for comparisons
+         of years and trends.
+
+Backscattering and attenuation follow the day's chlorophyll by published bio-optical relations
+(:func:`kd490_from_chl`, :func:`bbp443_from_chl`) times a little noise; the mixed layer is deep
+in winter and in the north, shallow in summer (10-300 m). They are drawn from their own random
+stream (``EXTRA_SEED``), so the chlorophyll, PAR and SST files stay byte for byte as before.
 
 Usage: python scripts/make_sample_grids.py [--out sample_grids]
 """
@@ -31,6 +44,10 @@ import numpy as np
 import xarray as xr
 
 SEED = 20250565
+#: Random stream of the backscattering, attenuation and mixed-layer fields (kept apart from
+#: SEED so that adding them changed no byte of the older files).
+EXTRA_SEED = 20250566
+EXTRA_RES = 1.0 / 6.0  # bbp and Kd(490): every 2 x 2 chlorophyll cells
 MONTH_START = np.datetime64("2025-04-01")
 N_DAYS = 30
 WEST, EAST, SOUTH, NORTH = -36.0, -14.0, 40.0, 60.0
@@ -75,6 +92,55 @@ def daily_par_mol(lat: np.ndarray, day_of_year: int) -> np.ndarray:
     return q * 0.75 * 0.43 * 4.57e-6 * 86400.0
 
 
+#: Kd(490) = KW + CHI * chl ** E: Morel, A. and Maritorena, S. (2001), J. Geophys. Res.
+#: 106(C4):7163-7180, eq. 8 and table 2 at 490 nm (values from memory): pure-sea-water
+#: attenuation Kw(490) = 0.0166 m-1, chi(490) = 0.07242, e(490) = 0.68955.
+KD490_KW, KD490_CHI, KD490_E = 0.0166, 0.07242, 0.68955
+
+
+def kd490_from_chl(chl: np.ndarray) -> np.ndarray:
+    """Diffuse attenuation at 490 nm, m-1, from chlorophyll, mg m-3 (Morel & Maritorena 2001)."""
+    return KD490_KW + KD490_CHI * chl**KD490_E
+
+
+def bbp443_from_chl(chl: np.ndarray) -> np.ndarray:
+    """Particulate backscattering at 443 nm, m-1, from chlorophyll, mg m-3.
+
+    The particle-scattering model of Morel and Maritorena (2001, J. Geophys. Res. 106:7163,
+    eqs. 13-14, from memory): b_p(550) = 0.416 chl^0.766 (Loisel and Morel 1998), a
+    backscattering ratio 0.002 + 0.01 (0.5 - 0.25 log10 chl), and a spectral slope
+    (lambda / 550)^nu with nu = 0.5 (log10 chl - 0.3) for 0.02 < chl < 2 (0 above 2, and
+    -0.5 x 1.99 below 0.02). Gives about 0.0008 m-1 at 0.1 mg m-3 and 0.003 at 1.
+    """
+    c = np.asarray(chl, np.float64)
+    lc = np.log10(c)
+    bp550 = 0.416 * c**0.766
+    ratio = 0.002 + 0.01 * (0.5 - 0.25 * lc)
+    nu = np.where(c >= 2.0, 0.0, 0.5 * (np.clip(lc, np.log10(0.02), None) - 0.3))
+    return ratio * bp550 * (443.0 / 550.0) ** nu
+
+
+def block_mean(a: np.ndarray, k: int) -> np.ndarray:
+    """Mean of the valid values of each k x k block (NaN where none is valid)."""
+    ny, nx = a.shape
+    b = a.reshape(ny // k, k, nx // k, k)
+    n = np.isfinite(b).sum(axis=(1, 3))
+    total = np.nansum(b, axis=(1, 3))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(n > 0, total / np.maximum(n, 1), np.nan)
+
+
+def mld_field(lat: np.ndarray, month_position: float, noise: np.ndarray) -> np.ndarray:
+    """Invented mixed-layer depth, m: deepest in March (``month_position`` 2.0, 0 = mid
+    January), shallowest in August-September; deeper in the north (about 250 m in a northern
+    winter, 20-30 m everywhere in summer), within 10-300 m."""
+    winter = ((1 + np.cos(2 * np.pi * (month_position - 2.0) / 12.0)) / 2.0) ** 2
+    north = np.clip((lat - 40.0) / 20.0, 0, 1)
+    deep = 80.0 + 190.0 * north
+    shallow = 18.0 + 10.0 * north
+    return np.clip((shallow + (deep - shallow) * winter) * np.exp(0.15 * noise), 10.0, 300.0)
+
+
 #: Names of existing ocean-colour products, missions and agencies. The deflated bytes of random
 #: data can spell one (read as text with the undecodable bytes dropped); a file that does is
 #: written again at another deflate level: the values are the same, only the bytes differ.
@@ -108,7 +174,7 @@ def main(out: Path) -> None:
 
     if out.exists():
         shutil.rmtree(out)
-    for sub in ("chl", "par", "sst"):
+    for sub in ("chl", "par", "sst", "bbp", "kd490", "mld"):
         (out / sub).mkdir(parents=True)
 
     # masks: land flag and the Tollan Bank (a shallow bank in the north)
@@ -156,6 +222,7 @@ def main(out: Path) -> None:
     sst_base = (
         19.0 - 0.62 * (slat[:, None] - 40.0) + 0.4 * smooth_noise(rng, (len(slat), len(slon)), 4)
     )
+    chl_days = []  # each day's chlorophyll, for backscattering and attenuation
     for d in range(N_DAYS):
         day = MONTH_START + d
         doy = int((day - day.astype("datetime64[Y]")).astype(int)) + 1
@@ -163,6 +230,7 @@ def main(out: Path) -> None:
         chl = np.exp(base_log + bloom + 0.15 * smooth_noise(rng, (ny, nx), 5)).astype("f4")
         clouds = 0.55 * fog + smooth_noise(rng, (ny, nx), 18) > 0.45  # a third to half under cloud
         chl = np.where(land | clouds, np.float32(np.nan), np.round(chl, 3)).astype("f4")
+        chl_days.append(chl)
         cds = xr.Dataset(
             {
                 "chlor": (
@@ -258,6 +326,76 @@ def main(out: Path) -> None:
                 "time": {"units": "days since 1981-01-01", "calendar": "standard"},
             },
         )
+    daily_optics_and_mixing(out, chl_days, masks.coords)
+
+
+def daily_optics_and_mixing(out: Path, chl_days: list[np.ndarray], chl_coords) -> None:
+    """bbp/, kd490/ and mld/ of the April demo (see the module docstring), from the days'
+    chlorophyll and their own random stream."""
+    rng = np.random.default_rng(EXTRA_SEED)
+    k = int(round(EXTRA_RES / CHL_RES))
+    olat, olon = centres(SOUTH, NORTH, EXTRA_RES), centres(WEST, EAST, EXTRA_RES)
+    mlat, mlon = centres(SOUTH, NORTH, SST_RES), centres(WEST, EAST, SST_RES)
+    mland = land_flag(mlat, mlon)
+
+    def axes(la, lo):
+        return {"lat": ("lat", la, {"standard_name": "latitude", "units": "degrees_north"}),
+                "lon": ("lon", lo, {"standard_name": "longitude", "units": "degrees_east"})}
+
+    mld_noise = smooth_noise(rng, (len(mlat), len(mlon)), 6)
+    for d, chl in enumerate(chl_days):
+        day = MONTH_START + d
+        stamp = str(day).replace("-", "")
+        c = block_mean(chl.astype(np.float64), k)
+        noise = np.exp(0.06 * smooth_noise(rng, c.shape, 3))
+        bbp = np.round(bbp443_from_chl(c) * noise, 6).astype("f4")
+        bds = xr.Dataset(
+            {"bbp_443": (("lat", "lon"), bbp,
+                         {"long_name": "particulate backscattering coefficient at 443 nm",
+                          "units": "m-1", "valid_min": np.float32(0.0)})},
+            coords=axes(olat, olon),
+            attrs={"title": "Maren Sea demo particulate backscattering (invented)",
+                   "Conventions": "CF-1.8, ACDD-1.3",
+                   "time_coverage_start": f"{day}T00:00:00Z",
+                   "time_coverage_end": f"{day}T23:59:59Z"},
+        )
+        write_netcdf(bds, out / "bbp" / f"maren_bbp_{stamp}.nc",
+                     {"bbp_443": {"zlib": True, "complevel": 5,
+                                  "_FillValue": np.float32(-999.0)}})
+
+        kd = kd490_from_chl(c) * np.exp(0.05 * smooth_noise(rng, c.shape, 3))
+        kds = xr.Dataset(
+            {"kd490": (("time", "lat", "lon"), kd[None],
+                       {"standard_name":
+                        "volume_attenuation_coefficient_of_downwelling_radiative_flux_in_sea_water",
+                        "long_name": "diffuse attenuation coefficient at 490 nm",
+                        "units": "m-1"})},
+            coords={"time": ("time", [day.astype("datetime64[ns]")]),
+                    "wavelength": ((), 490.0, {"standard_name": "radiation_wavelength",
+                                               "units": "nm"}),
+                    **axes(olat, olon)},
+            attrs={"title": "Maren Sea demo Kd(490) (invented)", "Conventions": "CF-1.8"},
+        )
+        write_netcdf(kds, out / "kd490" / f"maren_kd490_{stamp}.nc",
+                     {"kd490": {"dtype": "int16", "scale_factor": 0.0001,
+                                "_FillValue": np.int16(-32768), "zlib": True},
+                      "wavelength": {"_FillValue": None},
+                      "time": {"units": "days since 2025-01-01", "calendar": "standard"}})
+
+        # April: the winter mixed layer shoaling through the month (mid-April is 3.0)
+        mixing = 0.8 * mld_noise + 0.6 * smooth_noise(rng, mld_noise.shape, 2)
+        mld = mld_field(mlat[:, None], 2.5 + d / 30.0, mixing)
+        mld_cm = np.where(mland, -1, np.round(mld * 100.0)).astype("i2")
+        mds = xr.Dataset(
+            {"mld": (("lat", "lon"), mld_cm,
+                     {"standard_name": "ocean_mixed_layer_thickness_defined_by_sigma_theta",
+                      "long_name": "mixed-layer depth (density threshold, invented)",
+                      "units": "cm", "_FillValue": np.int16(-1)})},
+            coords=axes(mlat, mlon),
+            attrs={"title": "Maren Sea demo mixed-layer depth (invented)",
+                   "Conventions": "CF-1.8"},
+        )
+        write_netcdf(mds, out / "mld" / f"maren_mld_{stamp}.nc", {"mld": {"zlib": True}})
 
 
 DECADE_SEED = 20150109
@@ -282,6 +420,7 @@ def decade(out: Path) -> None:
         "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north"}),
         "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east"}),
     }
+    monthly_chl = {}  # year -> (12, lat, lon) chlorophyll, for backscattering and attenuation
     for year in DECADE_YEARS:
         months = np.arange(np.datetime64(f"{year}-01"), np.datetime64(f"{year + 1}-01"))
         starts = months.astype("datetime64[D]")
@@ -326,6 +465,57 @@ def decade(out: Path) -> None:
                           "time": {"units": "days since 2015-01-01", "calendar": "standard"},
                           "time_bnds": {"units": "days since 2015-01-01",
                                         "calendar": "standard"}},
+            )
+        monthly_chl[year] = np.asarray(chl, np.float64)
+    decade_optics_and_mixing(folder, monthly_chl, lat, land, coords)
+
+
+def decade_optics_and_mixing(folder: Path, monthly_chl: dict, lat: np.ndarray,
+                             land: np.ndarray, coords: dict) -> None:
+    """maren_{bbp,kd490,mld}_monthly_YEAR.nc of the decade demo: bbp and Kd(490) from each
+    month's chlorophyll (same gaps), the mixed layer's invented seasonal cycle; own random
+    stream."""
+    rng = np.random.default_rng(EXTRA_SEED + 1)
+    ny, nx = land.shape
+    for year, chl in monthly_chl.items():
+        months = np.arange(np.datetime64(f"{year}-01"), np.datetime64(f"{year + 1}-01"))
+        starts = months.astype("datetime64[D]")
+        ends = (months + 1).astype("datetime64[D]")
+        bbp, kd, mld = [], [], []
+        year_mixing = 0.2 * rng.standard_normal()  # a stormy or a calm winter
+        for m in range(12):
+            c = chl[m]
+            bbp.append(np.round(bbp443_from_chl(c) * np.exp(0.05 * smooth_noise(rng, (ny, nx), 3)),
+                                6))
+            kd.append(np.round(kd490_from_chl(c) * np.exp(0.04 * smooth_noise(rng, (ny, nx), 3)),
+                               4))
+            noise = 0.8 * smooth_noise(rng, (ny, nx), 4) + (year_mixing if m < 4 else 0.0) / 0.15
+            mld.append(np.where(land, np.nan, np.round(mld_field(lat[:, None], m, noise), 1)))
+        time = ("time", starts.astype("datetime64[ns]"), {"standard_name": "time",
+                                                          "bounds": "time_bnds"})
+        for role, values, attrs in (
+            ("bbp", bbp, {"long_name": "particulate backscattering coefficient at 443 nm",
+                          "units": "m-1"}),
+            ("kd490", kd, {"standard_name": "volume_attenuation_coefficient_of_downwelling_"
+                                            "radiative_flux_in_sea_water",
+                           "long_name": "diffuse attenuation coefficient at 490 nm",
+                           "units": "m-1"}),
+            ("mld", mld, {"standard_name": "ocean_mixed_layer_thickness",
+                          "units": "m"}),
+        ):
+            ds = xr.Dataset(
+                {role: (("time", "lat", "lon"), np.asarray(values, "f4"),
+                        {**attrs, "cell_methods": "time: mean"}),
+                 "time_bnds": (("time", "nv"), np.stack([starts, ends], 1).astype("datetime64[ns]"))},
+                coords={"time": time, **coords},
+                attrs={"title": f"Maren Sea demo monthly {role} {year} (invented)",
+                       "Conventions": "CF-1.8"},
+            )
+            write_netcdf(
+                ds, folder / f"maren_{role}_monthly_{year}.nc",
+                {role: {"zlib": True, "complevel": 6, "_FillValue": np.float32(-999.0)},
+                 "time": {"units": "days since 2015-01-01", "calendar": "standard"},
+                 "time_bnds": {"units": "days since 2015-01-01", "calendar": "standard"}},
             )
 
 

@@ -71,8 +71,30 @@ def test_demo_checks_clean_through_the_cli(demo_config):
         "lon interpolated linearly (0.25 -> 0.0833333 deg)",
         "  periods:     30, 1 day(s) long, 2025-04-01..2025-04-30",
         "  gaps:        none",
-        "  month    all    chl    par    sst",
-        "  2025-04  30/30  30/30  30/30  30/30",
+        # backscattering: float32 m-1 on a 1/6-degree grid, no CF standard name (none exists
+        # for the particulate part), found by its variable name
+        '[inputs.bbp] files = "../sample_grids/bbp/maren_bbp_*.nc"',
+        "  files:       30 (maren_bbp_20250401.nc .. maren_bbp_20250430.nc), 1.2 MiB on disk",
+        "  variable:    bbp_443, identified by variable name 'bbp_443'",
+        "  units:       m-1 in the file; conversion: none",
+        "  grid:        120 x 132 cells, lat 40.0833..59.9167 step 0.166667, "
+        "lon -35.9167..-14.0833 step 0.166667",
+        "  regridding:  lat interpolated linearly (0.166667 -> 0.0833333 deg); "
+        "lon interpolated linearly (0.166667 -> 0.0833333 deg)",
+        "  files:       30 (maren_kd490_20250401.nc .. maren_kd490_20250430.nc), 759.0 KiB on "
+        "disk",
+        "  variable:    kd490, identified by standard_name "
+        "'volume_attenuation_coefficient_of_downwelling_radiative_flux_in_sea_water'",
+        # mixed layer: int16 cm on the 1/4-degree grid, dated by the file name; cm -> m is
+        # x 0.01 (SI prefix centi)
+        "  files:       30 (maren_mld_20250401.nc .. maren_mld_20250430.nc), 668.3 KiB on disk",
+        "  variable:    mld, identified by standard_name "
+        "'ocean_mixed_layer_thickness_defined_by_sigma_theta'",
+        "  units:       cm in the file; conversion: cm -> m (x 0.01)",
+        # 'all' is the days of the inputs the models require (vgpm, eppley_vgpm: chl, par, sst)
+        "Months (days covered / days in the month; 'all': chl, par and sst together)",
+        "  month    all    chl    par    sst    bbp    kd490  mld",
+        "  2025-04  30/30  30/30  30/30  30/30  30/30  30/30  30/30",
         "  months to produce: 1; skipped: none",
         # box -22..-15 E x 44..56 N on 1/12-degree cells: 84 columns x 144 rows (by hand)
         "  Skerrow Shelf     12,096 cells, 8,319 ocean",
@@ -80,27 +102,38 @@ def test_demo_checks_clean_through_the_cli(demo_config):
         "  Whole Maren Sea   63,360 cells, 54,876 ocean",
         "  63,360 cells x 30 days with all inputs x 2 model(s) = 3,801,600 cell-days "
         "(vgpm, eppley_vgpm)",
-        "  input: 90 files, 5.7 MiB on disk, 16.1 MiB decoded",
-        "Problems: 0 error(s), 0 warning(s)",
+        # decoded, by hand: chl and PAR 30 x 240 x 264 x 4 B each (float32), SST 30 x 80 x 88
+        # x 8 B (float64 after the offset), bbp 30 x 120 x 132 x 4 B, Kd(490) 30 x 120 x 132 x
+        # 8 B (unpacked with a float64 scale_factor), MLD 30 x 80 x 88 x 4 B: 23,434,560 B
+        "  input: 180 files, 8.3 MiB on disk, 22.4 MiB decoded",
+        # the demo's models (vgpm, eppley_vgpm) use none of the three new inputs: a note
+        "Problems: 0 error(s), 1 warning(s)",
+        f"  warning: {demo_config} [run]: models: no model listed uses [inputs.bbp], "
+        "[inputs.kd490] and [inputs.mld] (vgpm, eppley_vgpm); they are read and checked but "
+        "not used",
         "The run would start.",
     ]:
         assert line in out.splitlines(), line
-    assert out.count("periods:     30, 1 day(s) long, 2025-04-01..2025-04-30") == 3
+    assert out.count("periods:     30, 1 day(s) long, 2025-04-01..2025-04-30") == 6
     assert "Peak memory (estimate): " in out and "basis: base 290.0 MiB" in out
-    assert res.stderr == ""
+    assert res.stderr == (
+        "euphotic: warning: models: no model listed uses [inputs.bbp], [inputs.kd490] and "
+        "[inputs.mld] (vgpm, eppley_vgpm); they are read and checked but not used\n")
 
 
 def test_demo_check_computes_nothing_on_the_grid(demo_config, no_compute):
     with dask.config.set(num_workers=2), no_compute:
         rep = preflight.check(load_config(demo_config))
-    assert rep.ok and rep.problems == []
-    assert [r.variable for r in rep.inputs] == ["chlor", "par", "sea_surface_temperature"]
+    assert rep.ok and [p.level for p in rep.problems] == ["warning"]  # the unused-input note
+    assert [r.variable for r in rep.inputs] == ["chlor", "par", "sea_surface_temperature",
+                                                "bbp_443", "kd490", "mld"]
     assert [(m.month, m.n_days, m.all_inputs, m.by_input) for m in rep.months] == [
-        (D("2025-04"), 30, 30, {"chl": 30, "par": 30, "sst": 30})
+        (D("2025-04"), 30, 30, {"chl": 30, "par": 30, "sst": 30, "bbp": 30, "kd490": 30,
+                                "mld": 30})
     ]
     e = rep.estimate
     assert (e.cells, e.days, e.models, e.files, e.threads, e.block_cells) == (
-        63_360, 30, 2, 90, 2, 63_360)
+        63_360, 30, 2, 180, 2, 63_360)
     # the model of estimate_memory, worked out by hand for the demo: 4 regions overlapping
     # 3 deep; 366,324,096 B = 349.35 MiB
     assert e.parts == {

@@ -6,8 +6,8 @@ values, beside each check:
 
 * Python's standard library ``zlib`` (the reference inflater) gives the exact message of a
   damaged deflate stream; ``h5py`` gives the byte offset of a stored chunk (HDF5 chunk index).
-* The default ranges are those of ``euphotic.screen.DEFAULT_VALID_RANGE`` (bases written beside
-  them: chlorophyll 0.001-100 mg m-3 from common Level-3 products, from memory; SST above the
+* The default ranges are those of ``euphotic.screen.DEFAULT_VALID_RANGE``, taken from the role
+  catalogue ``euphotic.roles`` (bases written there: chlorophyll 0.001-100 mg m-3 from common Level-3 products, from memory; SST above the
   freezing point of sea water, about -1.9 degC at salinity 35, UNESCO 1983).
 * 0 degC = 273.15 K (SI definition of the Celsius scale).
 * Counts and percentages are worked out by hand from the cells written (stated beside each).

@@ -12,6 +12,7 @@ import click
 
 from euphotic import __version__
 from euphotic.errors import EuphoticError
+from euphotic.roles import ROLES
 
 
 def _fail(exc: BaseException, debug: bool) -> None:
@@ -251,7 +252,7 @@ def format_totals(rows: list[dict]) -> str:
 @click.option(
     "--as",
     "role",
-    type=click.Choice(["chl", "par", "sst", "day_length"]),
+    type=click.Choice(list(ROLES)),
     default=None,
     help="Which input the files are (default: try each).",
 )
@@ -264,7 +265,7 @@ def inspect(files: tuple[str, ...], role: str | None, variable: str | None, debu
     from euphotic.errors import InputFileError, VariableNotFoundError
     from euphotic.readers import InputSpec, grid_summary, open_input
 
-    roles = [role] if role else ["chl", "par", "sst", "day_length"]
+    roles = [role] if role else list(ROLES)
     last: Exception | None = None
     for r in roles:
         try:

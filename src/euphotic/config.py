@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 
-from euphotic import screen
+from euphotic import roles, screen
 from euphotic.errors import ConfigError, EuphoticError
 from euphotic.models import MODELS
 from euphotic.outputs import metadata_from_config
@@ -323,7 +323,14 @@ STEP_KEYS: dict[str, dict[str, Key]] = {
 
 _TOP_LEVEL = {"run", "inputs", "ocean", "regions", "metadata", "matchup", "models",
               *STEP_KEYS}
-_ROLES = ("chl", "par", "sst", "day_length")
+
+
+def input_roles(model_names) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """(required, optional) input roles of the models named, from their declarations
+    (:func:`euphotic.models.input_roles`)."""
+    from euphotic import models
+
+    return models.input_roles(list(model_names))
 
 
 @dataclass
@@ -360,6 +367,19 @@ class RunConfig:
     #: steps after the run: table name -> its checked keys, for the tables present
     #: ([compare], [figure_set], [report]; see euphotic.steps)
     steps: dict[str, dict] = field(default_factory=dict)
+
+    # the input roles the models need (properties, not fields: they follow ``models`` and stay
+    # out of the map fingerprints, which hold the model's name)
+    @property
+    def required_inputs(self) -> tuple[str, ...]:
+        """Roles every day of an estimate needs (the models' required inputs, catalogue
+        order): the days covered by all of them are the days of a month with an estimate."""
+        return tuple(roles.ordered(input_roles(self.models)[0]))
+
+    @property
+    def optional_inputs(self) -> tuple[str, ...]:
+        """Roles the models can use but do without (day length: computed when not given)."""
+        return tuple(roles.ordered(input_roles(self.models)[1]))
 
 
 def _model_settings(raw, models: list[str], regions: list, path: str, problems: list,
@@ -533,6 +553,84 @@ def _duplicate_notes(value) -> list[str]:
     return notes
 
 
+def _model_roles(models: list[str]) -> tuple[dict[str, tuple[str, ...]], set[str]]:
+    """Each model's required roles, and every role any of them uses; empty when a model name
+    is not known (that problem is reported for `models`)."""
+    try:
+        needs = {m: tuple(input_roles([m])[0]) for m in models}
+        used = set(input_roles(models)[0]) | set(input_roles(models)[1])
+    except (KeyError, ValueError):
+        return {}, set()
+    return needs, used
+
+
+def _inputs(raw: dict, path: Path, base: Path, run_raw: dict, models: list[str],
+            problems: list) -> tuple[dict[str, InputSpec], list[str]]:
+    """The ``[inputs.<role>]`` tables (any catalogued role) as :class:`InputSpec`, and the notes
+    about inputs no model uses; a model whose required inputs are not configured adds one
+    problem naming the model, the inputs it lacks and the tables to add."""
+    needs, used = _model_roles(models)
+    required = roles.ordered(r for m in needs.values() for r in m)
+    inputs: dict[str, InputSpec] = {}
+    inputs_raw = raw.get("inputs")
+    if not isinstance(inputs_raw, dict):
+        problems.append(ConfigError(
+            path, f"missing [inputs] with {roles.words(required or ['chl'], table=True)}"
+        ))
+        return inputs, []
+    extra = sorted(set(inputs_raw) - set(roles.ROLES))
+    if extra:
+        problems.append(ConfigError(
+            f"{path} [inputs]",
+            f"unknown input(s) {', '.join(extra)}; known inputs: {', '.join(roles.ROLES)}"))
+    for role in roles.ordered(inputs_raw):
+        where = f"{path} [inputs.{role}]"
+        table_raw = _table(inputs_raw, role, f"{path} [inputs]", problems,
+                           name=f"[inputs.{role}]")
+        table = check_table(table_raw, INPUT_KEYS, where, problems)
+        if "files" not in table_raw and isinstance(inputs_raw.get(role), dict):
+            problems.append(ConfigError(where, "missing `files` (a path or glob pattern)"))
+        if "files" not in table:
+            continue
+        try:  # duplicates, valid_range: euphotic.screen
+            screen_options = screen.input_options(table, role, where)
+        except ConfigError as exc:
+            problems.append(exc)
+            screen_options = {}
+        inputs[role] = InputSpec(
+            role=role,
+            files=table["files"],
+            variable=table.get("variable"),
+            units=table.get("units"),
+            date_pattern=table.get("date_pattern"),
+            date_format=table.get("date_format", "%Y%m%d"),
+            period=table.get("period"),
+            base_dir=base,
+            **screen_options,
+        )
+    if roles.GRID_ROLE not in inputs_raw and roles.GRID_ROLE not in required:
+        problems.append(ConfigError(path, f"missing [inputs.{roles.GRID_ROLE}]: its grid is "
+                                          "the grid of the run (every input is brought onto it)"))
+    key = "model" if "model" in run_raw and "models" not in run_raw else "models"
+    if "model" not in run_raw and "models" not in run_raw:
+        key = "models (not set, the default)"
+    for m, need in needs.items():
+        lacking = [r for r in need if r not in inputs_raw]
+        if lacking:
+            n = "input" if len(lacking) == 1 else "inputs"
+            problems.append(ConfigError(
+                f"{path} [run]",
+                f"{key}: {m} needs {n} {', '.join(lacking)}; add "
+                f"{roles.words(lacking, table=True)} or leave {m} out"))
+    notes = []
+    unused = [r for r in inputs if needs and r not in used]
+    if unused:
+        they = "it is" if len(unused) == 1 else "they are"
+        notes.append(f"{key}: no model listed uses {roles.words(unused, table=True)} "
+                     f"({', '.join(needs)}); {they} read and checked but not used")
+    return inputs, notes
+
+
 def _load(path: Path, problems: list) -> RunConfig | None:
     """The configuration, or None; every problem found is added to ``problems``."""
     try:
@@ -564,45 +662,8 @@ def _load(path: Path, problems: list) -> RunConfig | None:
         if key in run:
             notes = _duplicate_notes(run_raw[key])
 
-    inputs: dict[str, InputSpec] = {}
-    inputs_raw = raw.get("inputs")
-    if not isinstance(inputs_raw, dict):
-        problems.append(ConfigError(
-            path, "missing [inputs] with [inputs.chl], [inputs.par] and [inputs.sst]"
-        ))
-        inputs_raw = {}
-    extra = sorted(set(inputs_raw) - set(_ROLES))
-    if extra:
-        problems.append(ConfigError(f"{path} [inputs]", f"unknown input(s) {', '.join(extra)}"))
-    for role in _ROLES:
-        if role not in inputs_raw:
-            if role != "day_length" and "inputs" in raw:
-                problems.append(ConfigError(path, f"missing [inputs.{role}] with `files`"))
-            continue
-        where = f"{path} [inputs.{role}]"
-        table_raw = _table(inputs_raw, role, f"{path} [inputs]", problems,
-                           name=f"[inputs.{role}]")
-        table = check_table(table_raw, INPUT_KEYS, where, problems)
-        if "files" not in table_raw and isinstance(inputs_raw.get(role), dict):
-            problems.append(ConfigError(where, "missing `files` (a path or glob pattern)"))
-        if "files" not in table:
-            continue
-        try:  # duplicates, valid_range: euphotic.screen
-            screen_options = screen.input_options(table, role, where)
-        except ConfigError as exc:
-            problems.append(exc)
-            screen_options = {}
-        inputs[role] = InputSpec(
-            role=role,
-            files=table["files"],
-            variable=table.get("variable"),
-            units=table.get("units"),
-            date_pattern=table.get("date_pattern"),
-            date_format=table.get("date_format", "%Y%m%d"),
-            period=table.get("period"),
-            base_dir=base,
-            **screen_options,
-        )
+    inputs, input_notes = _inputs(raw, path, base, run_raw, models, problems)
+    notes += input_notes
 
     where_ocean = f"{path} [ocean]"
     ocean_raw = _table(raw, "ocean", str(path), problems, name="[ocean]")
@@ -611,6 +672,10 @@ def _load(path: Path, problems: list) -> RunConfig | None:
     source = ocean.get("source", "file" if land_mask else "package")
     if source == "file" and not land_mask and "land_mask" not in ocean_raw:
         problems.append(ConfigError(where_ocean, "source = 'file' needs `land_mask`"))
+    if source == "temperature" and isinstance(raw.get("inputs"), dict) \
+            and "sst" not in raw["inputs"]:
+        problems.append(ConfigError(where_ocean, "source = 'temperature' needs [inputs.sst] "
+                                                 "(the ocean is where temperature is valid)"))
 
     regions: list[Region] = []
     regions_raw = raw.get("regions", [])

@@ -35,6 +35,7 @@ from euphotic.aggregate import day_to_period
 from euphotic.errors import EuphoticError
 from euphotic.geo import day_length_from_declination, solar_declination
 from euphotic.models import get_model
+from euphotic.roles import GRID_ROLE
 from euphotic.stations import MatchupOptionError, StationTable
 
 log = logging.getLogger("euphotic")
@@ -93,14 +94,21 @@ class WindowOptions:
 
 @dataclass
 class DailyInputs:
-    """The run's inputs on the chlorophyll grid (lazy), as the models take them."""
+    """The run's inputs on the chlorophyll grid (lazy), as the models take them: ``inputs``
+    maps each configured role (:mod:`euphotic.roles`) to its field."""
 
-    chl: xr.DataArray
-    par: xr.DataArray
-    sst: xr.DataArray
+    inputs: dict[str, xr.DataArray]
     ocean: xr.DataArray  # bool (lat, lon), numpy- or dask-backed
-    day_length: xr.DataArray | None = None
     regions: object | None = None  # aggregate.RegionMasks: name -> (lat, lon) bool
+
+    @property
+    def chl(self) -> xr.DataArray:
+        """The input whose grid the others are on (:data:`euphotic.roles.GRID_ROLE`)."""
+        return self.inputs[GRID_ROLE]
+
+    @property
+    def day_length(self) -> xr.DataArray | None:
+        return self.inputs.get("day_length")
 
     @classmethod
     def from_config(cls, cfg) -> DailyInputs:
@@ -109,8 +117,15 @@ class DailyInputs:
         from euphotic.pipeline import prepare
 
         prep = prepare(cfg)
-        return cls(prep.chl, prep.par, prep.sst, prep.ocean, prep.day_length,
+        return cls(dict(prep.inputs), prep.ocean,
                    prep.region_masks if prep.region_masks.names else None)
+
+
+def model_inputs(model: str) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """(required, optional) input roles of a model, from its declaration."""
+    from euphotic.config import input_roles
+
+    return input_roles([model])
 
 
 # ---- the grid around a station ---------------------------------------------------------------
@@ -252,9 +267,19 @@ def extract(inputs: DailyInputs, lat, lon, day, models: list[str],
     d0 = np.asarray(day, "datetime64[D]")
     offs = np.arange(-opts.days, opts.days + 1)
     days = d0[:, None] + offs[None, :].astype("timedelta64[D]")
-    roles = {"chl": inputs.chl, "par": inputs.par, "sst": inputs.sst}
-    if inputs.day_length is not None:
-        roles["day_length"] = inputs.day_length
+    # every input a model uses (required, or optional and configured), read once for all
+    takes = {}
+    for m in models:
+        required, optional = model_inputs(m)
+        lacking = [r for r in required if r not in inputs.inputs]
+        if lacking:
+            raise MatchupConfigError(
+                f"model {m} needs input{'s' if len(lacking) > 1 else ''} {', '.join(lacking)}, "
+                "which the run's configuration does not give; leave the model out")
+        reads = (*required, *(r for r in optional if r in inputs.inputs))
+        takes[m] = (reads, "day_length" in (*required, *optional))
+    used = {r for reads, _ in takes.values() for r in reads} | {GRID_ROLE}
+    roles = {r: a for r, a in inputs.inputs.items() if r in used}
     idx = {r: _period_index(a, days) for r, a in roles.items()}
     covered = np.logical_and.reduce([i >= 0 for i in idx.values()])
     first = min(np.asarray(a["period_start"].values, "datetime64[D]").min() for a in roles.values())
@@ -273,18 +298,22 @@ def extract(inputs: DailyInputs, lat, lon, day, models: list[str],
     if "day_length" in got:
         dl_cells = np.asarray(got["day_length"], np.float64)
     else:
-        dl_cells = np.broadcast_to(dl[:, :, :, None], got["chl"].shape)
-    valid = (cells.ok[s_idx][:, None] & covered[s_idx][:, :, None, None]
-             & np.asarray(got["ocean"], bool)[:, None])
-    dark_cells = (dl_cells <= 0.0) & cells.ok[s_idx][:, None] & np.asarray(got["ocean"], bool)[:, None]
+        dl_cells = np.broadcast_to(dl[:, :, :, None], got[GRID_ROLE].shape)
+    on_ocean = cells.ok[s_idx][:, None] & np.asarray(got["ocean"], bool)[:, None]
+    dark_cells = (dl_cells <= 0.0) & on_ocean
     shape = (len(d0), len(offs), opts.window, opts.window)
     values = {}
     for m in models:
         out = np.full(shape, np.nan)
         if len(s_idx):
-            v = np.asarray(get_model(m)(np.asarray(got["chl"], np.float64),
-                                        np.asarray(got["par"], np.float64),
-                                        np.asarray(got["sst"], np.float64), dl_cells), np.float64)
+            reads, takes_day_length = takes[m]
+            # a day counts for a model when every input it reads covers it
+            own = np.logical_and.reduce([idx[r] >= 0 for r in reads])
+            valid = on_ocean & own[s_idx][:, :, None, None]
+            kwargs = {r: np.asarray(got[r], np.float64) for r in reads}
+            if takes_day_length:
+                kwargs["day_length"] = dl_cells  # computed from latitude and date if not given
+            v = np.asarray(get_model(m)(**kwargs), np.float64)
             # polar night: 0 on ocean cells even on a day without input (the run's rule)
             out[s_idx] = np.where(valid, v, np.where(dark_cells, 0.0, np.nan))
         values[m] = out
@@ -388,7 +417,7 @@ def match(table: StationTable, inputs: DailyInputs, models: list[str], *,
     ex = extract(inputs, st["lat"].to_numpy(float), st["lon"].to_numpy(float),
                  st["date"].to_numpy("datetime64[D]"), models, opts)
     cells = ex.cells
-    lat_axis, lon_axis = inputs.chl["lat"].values, inputs.chl["lon"].values
+    lat_axis, lon_axis = inputs.chl["lat"].values, inputs.chl["lon"].values  # the grid
     regions = _region_names(inputs.regions, cells.row, cells.col)
     monthly = _monthly_values(maps, models, cells, st["date"].to_numpy("datetime64[D]"))
     rows = []

@@ -21,6 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
+from euphotic import roles as _roles
 from euphotic.errors import EuphoticError
 
 #: Kind of the files in the run's manifest; a new set replaces the old one.
@@ -29,16 +30,11 @@ KIND = "methods"
 FILES = ("methods.md", "methods.txt", "references.txt", "references.bib")
 #: Libraries whose versions a run records (with euphotic's own).
 SOFTWARE = ("numpy", "xarray", "dask")
-#: Roles of the inputs, in the order the paragraph names them.
-ROLES = ("chl", "par", "sst", "day_length")
-_SHORT = {"chl": "chlorophyll", "par": "PAR", "sst": "sea surface temperature",
-          "day_length": "day length"}
-_ROLE_WORDS = {
-    "chl": "surface chlorophyll-a concentration",
-    "par": "daily photosynthetically available radiation (PAR)",
-    "sst": "sea surface temperature",
-    "day_length": "day length",
-}
+#: Roles of the inputs, in the order the paragraph names them (the role catalogue's).
+ROLES = tuple(_roles.ROLES)
+#: How the paragraph names each input, in lists and in full (from the role catalogue).
+_SHORT = {r.name: r.short_name for r in _roles.ROLES.values()}
+_ROLE_WORDS = {r.name: r.description for r in _roles.ROLES.values()}
 
 #: Model id -> (sentence, citation keys in the order the sentence cites them). The sentence
 #: holds ``{key}`` placeholders filled with author-year citations.
@@ -323,15 +319,15 @@ def methods_text(folder: str | os.PathLike) -> Methods:
         c, u = attrs.get(f"input_conversion_{role}"), attrs.get(f"input_units_{role}")
         if not c or not u or c in ("none", "unknown"):
             continue
-        if role == "par":
+        if _roles.ROLES[role].conversion == "light":
             try:
                 kind = units.par_factors(u)[1]
             except units.UnitError:
                 kind = None
             if kind == "energy":
-                conv.append(f"PAR given as an energy flux ({u}) was converted to a photon dose "
-                            f"in {TARGET_UNITS['par']} with 4.57 umol J-1 for daylight PAR "
-                            f"{cite('mccree1972', paren=True)} and 86,400 s d-1")
+                conv.append(f"{_SHORT[role]} given as an energy flux ({u}) was converted to a "
+                            f"photon dose in {TARGET_UNITS[role]} with 4.57 umol J-1 for "
+                            f"daylight PAR {cite('mccree1972', paren=True)} and 86,400 s d-1")
                 continue
         conv.append(f"{_SHORT[role]} was converted from {u} to {TARGET_UNITS[role]}")
     if conv:
@@ -418,7 +414,9 @@ def methods_text(folder: str | os.PathLike) -> Methods:
 
 def _regrid_clause(attrs: dict) -> str:
     done = []
-    for role in ("par", "sst", "day_length"):
+    for role in ROLES:
+        if role == _roles.GRID_ROLE:
+            continue
         r = attrs.get(f"input_regridding_{role}")
         if r and not r.startswith("none"):
             done.append(f"{_SHORT[role]}: {r}")

@@ -27,6 +27,7 @@ from euphotic.aggregate import MonthlyMaps
 from euphotic.constants import AUTHALIC_RADIUS_M, WGS84_A_M, WGS84_F
 from euphotic.errors import ConfigError
 from euphotic.models import CITATIONS, SPECS
+from euphotic.roles import ROLES
 
 CAUTION = (
     "Satellite net primary production models disagree with each other by about a factor of "
@@ -220,7 +221,7 @@ def provenance_attrs(cfg, input_files: Mapping[str, Sequence[str]]) -> dict[str,
     Parameters
     ----------
     cfg : euphotic.config.RunConfig
-    input_files : role (``chl``, ``par``, ``sst``, ``day_length``) -> paths read
+    input_files : role (any of :data:`euphotic.roles.ROLES`) -> paths read
     """
     config_path = Path(cfg.path)
     base = Path(os.path.abspath(config_path)).parent
@@ -232,7 +233,7 @@ def provenance_attrs(cfg, input_files: Mapping[str, Sequence[str]]) -> dict[str,
         raw = {}
     attrs = {
         f"input_files_{role}": ", ".join(_rel(p, base) for p in input_files[role])
-        for role in ("chl", "par", "sst", "day_length")
+        for role in ROLES
         if role in input_files
     }
     if cfg.ocean_source == "file":

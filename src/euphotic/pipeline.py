@@ -15,11 +15,11 @@ import dask
 import numpy as np
 import xarray as xr
 
-from euphotic import aggregate, methods, ocean, outputs, preflight, runfolder, screen
+from euphotic import aggregate, methods, ocean, outputs, preflight, roles, runfolder, screen
 from euphotic.config import RunConfig
 from euphotic.errors import ConfigError, NoValidDataError
 from euphotic.geo import cell_area
-from euphotic.models import model_parameter_attrs, parameter_settings
+from euphotic.models import SPECS, model_parameter_attrs, parameter_settings
 from euphotic.regions import region_masks
 
 log = logging.getLogger("euphotic")
@@ -27,12 +27,14 @@ log = logging.getLogger("euphotic")
 
 @dataclass
 class Prepared:
-    """Inputs opened lazily on the chlorophyll grid, with the months to produce."""
+    """Inputs opened lazily on the chlorophyll grid, with the months to produce.
 
-    chl: xr.DataArray
-    par: xr.DataArray
-    sst: xr.DataArray
-    day_length: xr.DataArray | None
+    ``inputs`` holds every configured input (role -> DataArray on the chlorophyll grid,
+    day length included when configured), in the role catalogue's order; ``.chl``, ``.par``,
+    ``.sst`` and ``.day_length`` read it for older callers.
+    """
+
+    inputs: dict[str, xr.DataArray]
     ocean: xr.DataArray  # bool (lat, lon); numpy-backed unless taken from temperature
     area_rows_m2: np.ndarray  # (lat,) area of one cell in each row
     months: list[np.datetime64]
@@ -40,6 +42,22 @@ class Prepared:
         default_factory=lambda: aggregate.RegionMasks([], None)
     )
     skipped_months: list[np.datetime64] = field(default_factory=list)
+
+    @property
+    def chl(self) -> xr.DataArray:
+        return self.inputs["chl"]
+
+    @property
+    def par(self) -> xr.DataArray | None:
+        return self.inputs.get("par")
+
+    @property
+    def sst(self) -> xr.DataArray | None:
+        return self.inputs.get("sst")
+
+    @property
+    def day_length(self) -> xr.DataArray | None:
+        return self.inputs.get("day_length")
 
 
 @dataclass
@@ -65,14 +83,16 @@ def prepare(cfg: RunConfig) -> Prepared:
     # the checks `euphotic check` makes too (euphotic.preflight): inputs, grids, months
     opened = preflight.open_inputs(cfg)
     opened.raise_first()
-    chl, par, sst = (opened.on_grid[r] for r in ("chl", "par", "sst"))
+    inputs = {r: opened.on_grid[r] for r in roles.ordered(opened.on_grid)}
+    chl = inputs[roles.GRID_ROLE]
     lat, lon = chl["lat"].values, chl["lon"].values
-    plan = preflight.plan_months(cfg, opened.on_grid)
+    plan = preflight.plan_months(cfg, inputs)
     if plan.error is not None:
         raise plan.error
     keep, skipped = plan.months, plan.skipped
     for m in skipped:
-        log.warning("skipping %s: no day of it is covered by all inputs (chl, par, sst)", m)
+        log.warning("skipping %s: no day of it is covered by all inputs (%s)", m,
+                    ", ".join(cfg.required_inputs))
 
     if cfg.ocean_source == "file":
         ocean_np = ocean.file_ocean_mask(str(cfg.land_mask), cfg.land_mask_variable, lat, lon)
@@ -80,15 +100,12 @@ def prepare(cfg: RunConfig) -> Prepared:
     elif cfg.ocean_source == "package":
         ocean_np = ocean.packaged_ocean_mask(lat, lon)
         ocean_da = xr.DataArray(ocean_np, dims=("lat", "lon"), coords={"lat": lat, "lon": lon})
-    else:
-        ocean_da = ocean.temperature_ocean_mask(sst)
+    else:  # source = "temperature": the cells with a valid sea surface temperature
+        ocean_da = ocean.temperature_ocean_mask(inputs["sst"])
     area_rows = cell_area(lat, lon[:2], earth=cfg.earth)[:, 0]  # regular grid: same along a row
     masks = region_masks(cfg.regions, lat, lon)
     return Prepared(
-        chl=chl,
-        par=par,
-        sst=sst,
-        day_length=opened.on_grid.get("day_length"),
+        inputs=inputs,
         ocean=ocean_da,
         area_rows_m2=area_rows,
         months=keep,
@@ -220,11 +237,7 @@ _NOT_IN_FINGERPRINT = {"path", "output_dir", "figures", "months_per_compute", "s
 
 
 def _input_files(prep: Prepared) -> dict[str, list[str]]:
-    out = {"chl": prep.chl.attrs["files"], "par": prep.par.attrs["files"],
-           "sst": prep.sst.attrs["files"]}
-    if prep.day_length is not None:
-        out["day_length"] = prep.day_length.attrs["files"]
-    return out
+    return {role: da.attrs["files"] for role, da in prep.inputs.items()}
 
 
 def _files_for_month(da: xr.DataArray, month: np.datetime64) -> list[str]:
@@ -250,7 +263,7 @@ def _item_fingerprints(cfg: RunConfig, prep: Prepared) -> dict[tuple[str, np.dat
     from euphotic import __version__
 
     conf = {f.name: getattr(cfg, f.name) for f in dataclasses.fields(cfg)
-            if f.name not in _NOT_IN_FINGERPRINT}
+            if f.name not in _NOT_IN_FINGERPRINT and f.name != "inputs"}
     base = Path(cfg.path).resolve().parent if cfg.path else None
     extra_files = [cfg.land_mask] if cfg.land_mask else []
     for r in cfg.regions:
@@ -258,16 +271,24 @@ def _item_fingerprints(cfg: RunConfig, prep: Prepared) -> dict[tuple[str, np.dat
             extra_files.append(r.mask_file)
     conf_fp = runfolder.config_fingerprint(conf)
     aux = [runfolder.file_stat(p, base) for p in extra_files]
-    roles = {"chl": prep.chl, "par": prep.par, "sst": prep.sst}
-    if prep.day_length is not None:
-        roles["day_length"] = prep.day_length
+    # each map depends on the inputs its model declares, the grid's (chl) and, for an ocean
+    # taken from temperature, sst: an input added for another model leaves it unchanged
+    used = {}
+    for model_name in cfg.models:
+        roles = {"chl", *SPECS[model_name].roles}
+        if cfg.ocean_source == "temperature":
+            roles.add("sst")
+        used[model_name] = [r for r in prep.inputs if r in roles]
+    specs = {r: runfolder.config_fingerprint(cfg.inputs[r]) for r in prep.inputs if r in cfg.inputs}
     out = {}
     for month in prep.months:
         files = {role: [runfolder.file_stat(p, base) for p in _files_for_month(da, month)]
-                 for role, da in roles.items()}
+                 for role, da in prep.inputs.items()}
         for model_name in cfg.models:
+            mine = used[model_name]
             out[(model_name, month)] = runfolder.config_fingerprint(
-                [__version__, MAP_FORMAT, model_name, str(month), conf_fp, aux, files,
+                [__version__, MAP_FORMAT, model_name, str(month), conf_fp, aux,
+                 {r: files[r] for r in mine}, {r: specs.get(r) for r in mine},
                  cfg.model_settings.get(model_name, {})]
             )
     return out
@@ -308,13 +329,7 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_
 
 def _prep_inputs(prep: Prepared) -> dict[str, xr.DataArray]:
     """Role -> input on the grid (day length only when it is an input)."""
-    got = getattr(prep, "inputs", None)
-    if got:
-        return dict(got)
-    out = {"chl": prep.chl, "par": prep.par, "sst": prep.sst}
-    if prep.day_length is not None:
-        out["day_length"] = prep.day_length
-    return out
+    return dict(prep.inputs)
 
 
 def _rows_to_json(rows: list[dict]) -> list[dict]:
@@ -369,11 +384,9 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
     input_files = _input_files(prep)
     provenance = outputs.provenance_attrs(cfg, input_files)  # once per run
     # units, conversions, periods, regridding and library versions, for `euphotic methods`
-    provenance.update(methods.run_record({"chl": prep.chl, "par": prep.par, "sst": prep.sst,
-                                          "day_length": prep.day_length}))
+    provenance.update(methods.run_record(prep.inputs))
     # input screening (euphotic.screen): ranges known now, counts computed with each batch
-    report = screen.Report({"chl": prep.chl, "par": prep.par, "sst": prep.sst,
-                            "day_length": prep.day_length})
+    report = screen.Report(prep.inputs)
     fps = _item_fingerprints(cfg, prep)
     suffix = "zarr" if cfg.output_format == "zarr" else "nc"
 

@@ -23,7 +23,7 @@ from typing import Literal
 import numpy as np
 import xarray as xr
 
-from euphotic import aggregate
+from euphotic import aggregate, roles
 from euphotic.config import RunConfig
 from euphotic.errors import EuphoticError, NoOverlapError
 from euphotic.readers import (
@@ -34,10 +34,10 @@ from euphotic.readers import (
 )
 from euphotic.regrid import COORD_RTOL, axis_step, same_axis
 
-#: Inputs in the order they are opened and reported.
-ROLES = ("chl", "par", "sst", "day_length")
-#: Inputs whose periods decide which days of a month get an estimate (as in the run).
-COVERAGE_ROLES = ("chl", "par", "sst")
+#: Inputs in the order they are opened and reported (the role catalogue's order). Which of
+#: them decide the days of a month with an estimate is the configured models' business:
+#: ``cfg.required_inputs`` (see :func:`plan_months`).
+ROLES = tuple(roles.ROLES)
 
 # ---- memory model (see estimate_memory; the measurements are in the README) ---------------
 # Measured with benchmarks/scale_month.py's run_measured (peak RSS of the process tree,
@@ -95,7 +95,7 @@ class OpenedInputs:
     errors: dict[str, Exception] = field(default_factory=dict)
 
     def raise_first(self) -> None:
-        """Raise the first input's error (in the order chl, par, sst, day_length)."""
+        """Raise the first input's error (in the catalogue's order: chl, par, sst, ...)."""
         for role in ROLES:
             if role in self.errors:
                 raise self.errors[role]
@@ -115,11 +115,11 @@ def open_inputs(cfg: RunConfig) -> OpenedInputs:
             out.raw[role] = open_input(cfg.inputs[role])
         except (EuphoticError, OSError) as exc:
             out.errors[role] = exc
-    chl = out.raw.get("chl")
+    chl = out.raw.get(roles.GRID_ROLE)
     if chl is not None:
-        out.on_grid["chl"] = chl
+        out.on_grid[roles.GRID_ROLE] = chl
     for role, da in out.raw.items():
-        if role == "chl" or chl is None:
+        if role == roles.GRID_ROLE or chl is None:
             continue
         try:
             matched = match_grid(da, chl, da.attrs["files"][0])
@@ -148,7 +148,7 @@ class MonthRow:
 
     month: np.datetime64  # datetime64[M]
     n_days: int
-    all_inputs: int  # days covered by every input of COVERAGE_ROLES
+    all_inputs: int  # days covered by every required input (cfg.required_inputs)
     by_input: dict[str, int]
     #: of ``all_inputs``, days a day-length input (when given) does not cover: no estimate
     without_day_length: int = 0
@@ -165,9 +165,11 @@ class MonthPlan:
 
 
 def plan_months(cfg: RunConfig, inputs: dict[str, xr.DataArray]) -> MonthPlan:
-    """Months the chlorophyll touches within [start, end]; those with no day covered by
-    chlorophyll, PAR and temperature together are skipped (as the run does)."""
-    chl = inputs["chl"]
+    """Months the chlorophyll touches within [start, end]; those with no day covered by every
+    input the models require (``cfg.required_inputs``, e.g. chlorophyll, PAR and temperature)
+    together are skipped (as the run does)."""
+    chl = inputs[roles.GRID_ROLE]
+    required = cfg.required_inputs
     months = aggregate.months_touched(chl["period_start"].values, chl["period_end"].values)
     if cfg.start is not None:
         months = [m for m in months if m >= cfg.start.astype("datetime64[M]")]
@@ -187,7 +189,7 @@ def plan_months(cfg: RunConfig, inputs: dict[str, xr.DataArray]) -> MonthPlan:
             for role, da in inputs.items()
         }
         together = np.ones(len(days), bool)
-        for role in COVERAGE_ROLES:
+        for role in required:
             together &= covered.get(role, np.zeros(len(days), bool))
         no_dl = int((together & ~covered["day_length"]).sum()) if "day_length" in covered else 0
         table.append(MonthRow(m, len(days), int(together.sum()),
@@ -197,7 +199,7 @@ def plan_months(cfg: RunConfig, inputs: dict[str, xr.DataArray]) -> MonthPlan:
     if not keep:
         parts = ", ".join(
             f"{r} {span(inputs[r])} ({inputs[r].attrs['files'][0]})"
-            for r in COVERAGE_ROLES if r in inputs
+            for r in required if r in inputs
         )
         error = NoOverlapError(f"no day is covered by all inputs: {parts}")
     return MonthPlan(keep, skipped, table, error)
@@ -324,8 +326,8 @@ def _input_report(role: str, spec: InputSpec, opened: OpenedInputs) -> InputRepo
     rep.file_lat_order = da.attrs.get("file_lat_order")
     rep.file_lon_convention = da.attrs.get("file_lon_convention")
     rep.grid = grid_summary(da)
-    chl = opened.raw.get("chl")
-    if role == "chl":
+    chl = opened.raw.get(roles.GRID_ROLE)
+    if role == roles.GRID_ROLE:
         rep.regrid = "none (this is the target grid)"
     elif chl is None:
         rep.regrid = "not checked (the chlorophyll input, whose grid is the target, did not open)"
@@ -455,6 +457,8 @@ class Report:
     ocean_source: str
     estimate: Estimate | None
     problems: list[Problem]
+    #: the inputs whose days together make the 'all' column (the models' required inputs)
+    required: tuple[str, ...] = ()
 
     @property
     def errors(self) -> list[Problem]:
@@ -507,7 +511,8 @@ def check(cfg: RunConfig) -> Report:
                            f"{shown}{more}; on shared days the shortest period is used"))
 
     plan = None
-    if all(r in opened.on_grid for r in COVERAGE_ROLES):
+    if roles.GRID_ROLE in opened.on_grid and all(
+            r in opened.on_grid for r in cfg.required_inputs):
         plan = plan_months(cfg, opened.on_grid)
         if plan.error is not None:
             problems.append(Problem("error", str(plan.error)))
@@ -518,12 +523,12 @@ def check(cfg: RunConfig) -> Report:
             if row.without_day_length and row.month in plan.months:
                 problems.append(Problem(
                     "warning", f"{cfg.path} [inputs.day_length]: {row.without_day_length} day(s) "
-                               f"of {row.month} with chl, par and sst have no day length: no "
-                               "estimate on those days"))
+                               f"of {row.month} with {roles.words(cfg.required_inputs)} have no "
+                               "day length: no estimate on those days"))
 
     regions: list[RegionReport] = []
     estimate = None
-    chl = opened.raw.get("chl")
+    chl = opened.raw.get(roles.GRID_ROLE)
     if chl is not None:
         lat, lon = chl["lat"].values, chl["lon"].values
         try:
@@ -566,6 +571,7 @@ def check(cfg: RunConfig) -> Report:
         ocean_source=cfg.ocean_source,
         estimate=estimate,
         problems=problems,
+        required=cfg.required_inputs,
     )
 
 
@@ -591,7 +597,7 @@ def _output_problems(cfg: RunConfig) -> list[Problem]:
 
 def _estimate(cfg, opened: OpenedInputs, reports, plan, overlap_depth: int | None = None
               ) -> Estimate:
-    chl = opened.raw["chl"]
+    chl = opened.raw[roles.GRID_ROLE]
     cells = int(chl.sizes["lat"] * chl.sizes["lon"])
     chunk = getattr(chl.data, "chunksize", chl.shape)
     block = int(chunk[1] * chunk[2])
@@ -639,7 +645,7 @@ def format_report(rep: Report) -> str:
         out.append(f"  grid:        {r.grid}")
         out.append(f"  in the file: latitude {r.file_lat_order or 'unknown'}, longitude "
                    f"{r.file_lon_convention or 'unknown'}")
-        if r.role in ("par", "sst", "day_length"):
+        if r.role != roles.GRID_ROLE:
             out.append(f"  regridding:  {r.regrid or 'not possible (see the problems below)'}")
         lengths = ", ".join(str(n) for n in r.period_lengths)
         out.append(f"  periods:     {r.n_periods}, {lengths} day(s) long, "
@@ -654,15 +660,16 @@ def format_report(rep: Report) -> str:
         out.append("")
 
     if rep.months:
-        roles = [r.role for r in rep.inputs if r.variable is not None]
-        out.append("Months (days covered / days in the month; 'all': chl, par and sst together)")
-        head = ["month", "all", *roles, ""]
+        opened_roles = [r.role for r in rep.inputs if r.variable is not None]
+        out.append(f"Months (days covered / days in the month; 'all': "
+                   f"{roles.words(rep.required)} together)")
+        head = ["month", "all", *opened_roles, ""]
         rows = [head]
         for m in rep.months:
             note = "skipped" if m.month in rep.skipped else (
                 "" if m.all_inputs == m.n_days else "partial")
             rows.append([str(m.month), f"{m.all_inputs}/{m.n_days}",
-                         *[f"{m.by_input.get(x, 0)}/{m.n_days}" for x in roles], note])
+                         *[f"{m.by_input.get(x, 0)}/{m.n_days}" for x in opened_roles], note])
         widths = [max(len(row[i]) for row in rows) for i in range(len(head))]
         for row in rows:
             out.append("  " + "  ".join(c.ljust(w) for c, w in zip(row, widths, strict=True))

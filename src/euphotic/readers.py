@@ -1,6 +1,7 @@
 """Open gridded input files lazily and put them in a common form.
 
-Each input (chlorophyll, PAR, temperature, optionally day length) becomes one dask-backed
+Each input (any role of :mod:`euphotic.roles`: chlorophyll, PAR, temperature, day length,
+backscattering, attenuation, mixed-layer depth) becomes one dask-backed
 ``xarray.DataArray`` with dims ``("time", "lat", "lon")``: latitude ascending, longitude in
 [-180, 180) (or [0, 360) for a grid that is only contiguous that way), values decoded and
 converted to the model's units, and two coordinates along ``time`` giving each period's first
@@ -16,7 +17,6 @@ import re
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Literal
 
 import cftime
 import numpy as np
@@ -25,44 +25,18 @@ import xarray as xr
 from euphotic import chunkread, screen, units
 from euphotic.errors import EuphoticError, GridMismatchError, InputFileError, VariableNotFoundError
 from euphotic.regrid import axis_step, is_regular, regrid_like, same_axis
+from euphotic.roles import ROLES, role
 
-Role = Literal["chl", "par", "sst", "day_length"]
+#: An input role: a key of :data:`euphotic.roles.ROLES` (chl, par, sst, day_length, bbp, ...).
+Role = str
 
-#: CF standard names that identify each input, in order of preference.
-STANDARD_NAMES: dict[str, tuple[str, ...]] = {
-    "chl": (
-        "mass_concentration_of_chlorophyll_a_in_sea_water",
-        "mass_concentration_of_chlorophyll_in_sea_water",
-    ),
-    "par": (
-        "surface_downwelling_photosynthetic_photon_flux_in_air",
-        "surface_downwelling_photosynthetic_radiative_flux_in_air",
-        "downwelling_photosynthetic_photon_flux_in_sea_water",
-        "downwelling_photosynthetic_radiative_flux_in_sea_water",
-    ),
-    "sst": (
-        "sea_surface_temperature",
-        "sea_surface_skin_temperature",
-        "sea_surface_subskin_temperature",
-        "sea_surface_foundation_temperature",
-    ),
-    "day_length": ("day_length",),
-}
+#: CF standard names that identify each input, in order of preference (from the catalogue).
+STANDARD_NAMES: dict[str, tuple[str, ...]] = {r.name: r.standard_names for r in ROLES.values()}
 
-#: Units each input is converted to.
-TARGET_UNITS: dict[str, str] = {
-    "chl": units.CHL_UNITS,
-    "par": units.PAR_UNITS,
-    "sst": units.SST_UNITS,
-    "day_length": units.DAY_LENGTH_UNITS,
-}
+#: Units each input is converted to (from the catalogue).
+TARGET_UNITS: dict[str, str] = {r.name: r.units for r in ROLES.values()}
 
-LONG_NAMES = {
-    "chl": "surface chlorophyll-a concentration",
-    "par": "daily photosynthetically active radiation at the surface",
-    "sst": "sea surface temperature",
-    "day_length": "day length",
-}
+LONG_NAMES = {r.name: r.long_name for r in ROLES.values()}
 
 #: netCDF-C chunk cache per variable, bytes. The library default (64 MiB per variable) grows
 #: memory with every open file; inputs are read chunk by chunk once, so a small cache suffices.
@@ -256,22 +230,34 @@ class _Piece:
     grid_dims: tuple = ()  # the file's (lat, lon) dimension names
 
 
-def _find_variable(ds: xr.Dataset, spec: InputSpec, path: str) -> str:
+def _find_variable(ds: xr.Dataset, spec: InputSpec, path: str) -> tuple[str, str]:
+    """The variable holding ``spec.role`` and how it was identified: the configured name, a CF
+    standard name of the role (in the catalogue's order of preference), else one of the role's
+    plain variable names."""
     if spec.variable:
         if spec.variable not in ds.data_vars:
             raise VariableNotFoundError(
                 path,
                 f"no variable {spec.variable!r} (data variables: {', '.join(ds.data_vars) or 'none'})",
             )
-        return spec.variable
-    for std in STANDARD_NAMES[spec.role]:
+        return spec.variable, f"config variable {spec.variable!r}"
+    facts = role(spec.role)
+    for std in facts.standard_names:
         hits = [v for v in ds.data_vars if ds[v].attrs.get("standard_name") == std]
         if hits:
-            return hits[0]
+            return hits[0], f"standard_name {std!r}"
+    for name in facts.variable_names:
+        if name in ds.data_vars:
+            return name, f"variable name {name!r}"
+    looked = []
+    if facts.standard_names:
+        looked.append("has standard_name "
+                      + " or ".join(repr(s) for s in facts.standard_names[:2]))
+    if facts.variable_names:
+        looked.append("is named " + " or ".join(repr(n) for n in facts.variable_names))
     raise VariableNotFoundError(
         path,
-        f"no {spec.role} variable: none has standard_name "
-        f"{' or '.join(repr(s) for s in STANDARD_NAMES[spec.role][:2])} "
+        f"no {spec.role} variable: none {' or '.join(looked)} "
         f"(data variables: {', '.join(ds.data_vars) or 'none'}); name it with `variable` in the config",
     )
 
@@ -338,7 +324,7 @@ def _convert_units(da: xr.DataArray, spec: InputSpec, path: str, name: str) -> x
             path, f"variable {name!r} has no units attribute; set `units` in the config"
         )
     try:
-        if spec.role == "par":
+        if role(spec.role).conversion == "light":
             factor, _kind = units.par_factors(given)
             out = da * factor if factor != 1.0 else da
         else:
@@ -360,7 +346,7 @@ def _conversion_text(spec: InputSpec, given: str) -> str:
     """How values are converted, e.g. ``"K -> degC (- 273.15)"`` or ``"none"``."""
     target = TARGET_UNITS[spec.role]
     try:
-        if spec.role == "par":
+        if role(spec.role).conversion == "light":
             (a, kind), b = units.par_factors(given), 0.0
             if kind == "energy":
                 return (f"{given} -> {target} (x {a:g}: 4.57 umol J-1 for daylight PAR, "
@@ -478,8 +464,9 @@ def _decoded_sample(raw: np.ndarray, dims, name: str, enc: dict, attrs: dict) ->
 
 def _check_sample(spec: InputSpec, path: str, values: np.ndarray, whole: bool, n_steps: int,
                   units_used: str, what: str, empty: list) -> None:
-    """Open-time checks on a sample of a temperature file: a kelvin field labelled Celsius is
-    an error; a sample that covers the whole (single) time step and holds no value is noted."""
+    """Open-time checks on a sample of a temperature file (a role with ``kelvin_check``): a
+    kelvin field labelled Celsius is an error; a sample that covers the whole (single) time
+    step and holds no value is noted."""
     screen.check_kelvin_label(values, units_used, path=path, what=what, role=spec.role)
     if whole and n_steps == 1 and not np.isfinite(values).any():
         screen.log.warning("%s: %s has no valid value: every value is missing", path, spec.role)
@@ -582,7 +569,7 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
         raise InputFileError(
             path, f"cannot be opened as NetCDF ({exc.__class__.__name__}: {exc})"
         ) from None
-    name = _find_variable(ds, spec, path)
+    name, identified_by = _find_variable(ds, spec, path)
     da = ds[name]
     enc = dict(da.encoding)
     file_dims = tuple(da.dims)
@@ -593,8 +580,7 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
     lat_raw = np.asarray(ds[lat_d].values, dtype=np.float64)
     lon_raw = np.asarray(ds[lon_d].values, dtype=np.float64)
     info = {
-        "identified_by": (f"config variable {name!r}" if spec.variable
-                          else f"standard_name {std_name!r}"),
+        "identified_by": identified_by,
         "units_in_file": str(units_used),
         "conversion": _conversion_text(spec, str(units_used)) if units_used else "unknown",
         "file_lat_order": "descending" if lat_raw.size > 1 and lat_raw[1] < lat_raw[0]
@@ -627,7 +613,7 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
     # --- a look at a few values (temperature only): one stored chunk, no dask
     empty: list[str] = []
     sample_attrs = dict(da.attrs)
-    if spec.role == "sst" and units_used and stack is None:
+    if role(spec.role).kelvin_check and units_used and stack is None:
         index, whole = _sample_index(da.shape, file_dims, enc.get("chunksizes"), lat_d, lon_d)
         try:
             decoded = ds[name].variable[index]  # read (and CF-decoded) by the netCDF library
@@ -779,7 +765,8 @@ def _like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
             ds = _h5_time_dataset(f, spec, first.time_dim, n_time)
         except (KeyError, OSError, ValueError, TypeError):
             return None  # anything unexpected: the full open reports it properly
-        if spec.role == "sst" and first.info.get("units_in_file") not in (None, "None"):
+        if (role(spec.role).kelvin_check
+                and first.info.get("units_in_file") not in (None, "None")):
             lat_d, lon_d = first.grid_dims
             index, whole = _sample_index(var.shape, first.file_dims, var.chunks, lat_d, lon_d)
             try:

@@ -20,6 +20,7 @@ import xarray as xr
 
 from euphotic import units
 from euphotic.errors import ConfigError, DuplicatePeriodError, InputFileError
+from euphotic.roles import ROLES
 
 log = logging.getLogger("euphotic")
 
@@ -27,23 +28,11 @@ DuplicateRule = Literal["error", "first", "last"]
 DUPLICATE_RULES: tuple[str, ...] = ("error", "first", "last")
 
 #: Plausible range of each input, in the units the models use (inclusive bounds). Values
-#: outside are masked and counted. Override per input with ``valid_range = [lo, hi]``.
+#: outside are masked and counted. Override per input with ``valid_range = [lo, hi]``. The
+#: ranges and their bases are those of the role catalogue (:data:`euphotic.roles.ROLES`,
+#: ``valid_range`` and ``range_basis``).
 DEFAULT_VALID_RANGE: dict[str, tuple[float, float]] = {
-    # mg m-3. From memory: the valid range written in common ocean-colour Level-3 chlorophyll
-    # products (0.001-100 mg m-3); open-ocean gyres reach about 0.02, eutrophic coastal waters
-    # rarely exceed 50-100.
-    "chl": (0.001, 100.0),
-    # mol photons m-2 d-1. From memory / common practice: the clear-sky daily PAR dose at the
-    # sea surface peaks at about 65-70 (summer subtropics); 130 is about twice that, so only
-    # impossible values (and a mislabelled W m-2 or umol m-2 s-1 field) are caught. Negative
-    # doses are impossible.
-    "par": (0.0, 130.0),
-    # degC. Sea water of salinity 35 freezes near -1.9 degC at the surface (UNESCO 1983
-    # freezing-point formula, Fofonoff & Millard, UNESCO technical paper 44); the warmest open
-    # sea surfaces (Persian Gulf, Red Sea in summer) stay below about 36 degC (from memory).
-    "sst": (-2.5, 40.0),
-    # h: a day has 24 hours (definition).
-    "day_length": (0.0, 24.0),
+    r.name: r.valid_range for r in ROLES.values()
 }
 
 #: Kelvin window: temperatures of the sea surface written in kelvin lie in about 271-313 K;
@@ -97,12 +86,7 @@ def input_options(table: Mapping, role: str, where: str) -> dict:
 
 
 def _units(role: str) -> str:
-    return {
-        "chl": units.CHL_UNITS,
-        "par": units.PAR_UNITS,
-        "sst": units.SST_UNITS,
-        "day_length": units.DAY_LENGTH_UNITS,
-    }[role]
+    return ROLES[role].units
 
 
 def valid_range(role: str, configured: tuple[float, float] | None = None) -> tuple[float, float]:

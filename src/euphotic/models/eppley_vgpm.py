@@ -45,8 +45,11 @@ def eppley_vgpm_kernel(chl, par, sst, day_length, *, euphotic_depth: str = EUPHO
 
 @jit_point
 def pb_opt_eppley_point(t: float) -> float:
-    """:func:`pb_opt_eppley` for one value (compiled)."""
-    return EPPLEY_A * 10.0 ** (EPPLEY_B * t - EPPLEY_C)
+    """:func:`pb_opt_eppley` for one value (compiled; 10^x as exp(x ln 10), one exp)."""
+    return EPPLEY_A * np.exp(_LN10 * (EPPLEY_B * t - EPPLEY_C))
+
+
+_LN10 = float(np.log(10.0))
 
 
 @jit_point
