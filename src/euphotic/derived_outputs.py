@@ -16,6 +16,7 @@ chlorophyll (:func:`euphotic.preflight.open_inputs`, one month at a time through
 from __future__ import annotations
 
 import csv
+import dataclasses
 import functools
 import io
 import json
@@ -466,7 +467,9 @@ def write_derived(folder: str | Path | None = None, *, cfg, export=None, quotien
     qs = dv.quantities(opts.export, opts.quotient)
     needs = {"sst"} | ({"chl"} if any("zeu" in dv.EXPORT_METHODS[e].needs for e in opts.export)
                        else set())
-    inputs = open_inputs(config)
+    # only the inputs the formulas need (chlorophyll also gives the grid)
+    inputs = open_inputs(dataclasses.replace(
+        config, inputs={r: spec for r, spec in config.inputs.items() if r in ("chl", "sst")}))
     for role in ("chl", "sst"):  # chlorophyll gives the grid: needed in any case
         if role in inputs.errors:
             raise inputs.errors[role]
