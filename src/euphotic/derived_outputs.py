@@ -184,10 +184,9 @@ def file_name(model: str, month) -> str:
 def _references(keys: tuple[str, ...]) -> str:
     """The works cited, as text, from ``references.bib`` (rendered once per set of keys: each
     rendering looks up pybtex's plugins, about 0.3 s)."""
-    from euphotic.methods import _bibliography, reference_text
+    from euphotic.methods import reference_text_for
 
-    bib = _bibliography()
-    return " ".join(reference_text(bib.entries[k]) for k in dict.fromkeys(keys))
+    return " ".join(reference_text_for(k) for k in dict.fromkeys(keys))
 
 
 def _bounds(centres: np.ndarray) -> np.ndarray:

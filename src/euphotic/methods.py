@@ -125,17 +125,22 @@ def _bibliography():
 
 
 _BIB = None
+_TEXT: dict[str, str] = {}
 
 
 def reference_text_for(key: str) -> str:
-    """The reference text of one ``references.bib`` key (:func:`reference_text`)."""
+    """The reference text of one ``references.bib`` key (:func:`reference_text`; rendered
+    once per process: pybtex takes a few tenths of a second per entry)."""
     global _BIB
+    if key in _TEXT:
+        return _TEXT[key]
     if _BIB is None:
         _BIB = _bibliography()
     try:
-        return reference_text(_BIB.entries[key])
+        _TEXT[key] = reference_text(_BIB.entries[key])
     except KeyError:
         raise MethodsError(f"references.bib: no entry {key!r}") from None
+    return _TEXT[key]
 
 
 def _plain(latex: str) -> str:
