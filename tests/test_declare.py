@@ -218,7 +218,7 @@ def _error(path) -> str:
 def test_config_model_parameters_are_checked(tmp_path, toy):
     p = _cfg(tmp_path, '[models.vgpm]\neuphotic_depth = "secchi"\n')
     assert _error(p) == (f"{p} [models.vgpm]: euphotic_depth must be one of "
-                         "'morel_berthon_1989', not 'secchi'")
+                         "'morel_berthon_1989', 'morel_maritorena_2001', not 'secchi'")
     p = _cfg(tmp_path, "[models.vgpm]\nalpha = 1\n")
     assert _error(p) == (f"{p} [models.vgpm]: unknown parameter 'alpha' of vgpm "
                          "(its parameters: euphotic_depth)")

@@ -502,3 +502,29 @@ def test_broadcasting_a_day_length_by_latitude_and_scalars_stays_allowed():
     assert out.dims == ("time", "lat", "lon")
     np.testing.assert_allclose(out.values[:, 0, :], VGPM_HAND, rtol=1e-6)
     np.testing.assert_allclose(out.values[:, 1, :], VGPM_HAND / 2, rtol=1e-6)
+
+
+# Morel & Maritorena (2001) euphotic depth, Z_eu = 34.0 Chl^-0.39 (coefficients from memory of
+# their eq. 10; the values below are worked by hand from that power law):
+#  chl 1: 34.0 m; chl 0.03: 0.03^-0.39 = exp(0.39 x 3.506558) = 3.925751, 133.4755 m;
+#  chl 5: 5^-0.39 = exp(-0.39 x 1.609438) = 0.5338284, 18.15017 m.
+@pytest.mark.parametrize("chl, expected", [(1.0, 34.0), (0.03, 133.4755), (5.0, 18.15017)])
+def test_euphotic_depth_morel_maritorena_hand_values(chl, expected):
+    from euphotic.models.zeu import euphotic_depth_by, zeu_point
+
+    assert euphotic_depth_by(chl, "morel_maritorena_2001") == pytest.approx(expected, rel=1e-6)
+    assert zeu_point(chl, 1.0) == pytest.approx(expected, rel=1e-6)
+    # the default stays Morel & Berthon (1989)
+    assert euphotic_depth_by(chl) == pytest.approx(float(euphotic_depth(chl)), rel=1e-12)
+
+
+def test_vgpm_with_morel_maritorena_scales_by_the_depth_ratio():
+    # The VGPM is linear in Z_eu (Behrenfeld & Falkowski 1997, eq. 10), so switching the relation
+    # scales the result by the ratio of the two depths.
+    from euphotic.models.zeu import euphotic_depth_by
+
+    chl, par, sst, dl = 0.5, 40.0, 20.0, 12.0
+    base = vgpm(chl, par, sst, dl)
+    mm = vgpm(chl, par, sst, dl, euphotic_depth="morel_maritorena_2001")
+    ratio = euphotic_depth_by(chl, "morel_maritorena_2001") / euphotic_depth_by(chl)
+    assert float(mm) == pytest.approx(float(base) * float(ratio), rel=1e-9)

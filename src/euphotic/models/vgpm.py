@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from euphotic.models import euphotic_depth as zeu
+from euphotic.models import zeu
 from euphotic.models._compiled import jit_point
 from euphotic.models._declare import NPP_ATTRS, Choice, Input, ModelSpec, build
 
