@@ -27,6 +27,7 @@ import inspect
 import os
 import sys
 import tempfile
+import threading
 from collections.abc import Callable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -204,11 +205,19 @@ def kernel_cache_dir() -> Path:
 
 
 _DIGEST: str | None = None
+#: One thread at a time loads generated loops: dask's threads ask for the same model at once,
+#: and a module must not be seen before its compiled loops are attached.
+_LOAD_LOCK = threading.Lock()
 
 
 def _load_generated(spec: ModelSpec):
     """Import the generated loops of ``spec`` (written once into the cache folder; compiled
     in memory without the on-disk cache if that folder cannot be written)."""
+    with _LOAD_LOCK:
+        return _load_generated_locked(spec)
+
+
+def _load_generated_locked(spec: ModelSpec):
     global _DIGEST
     import numba
 
@@ -231,15 +240,14 @@ def _load_generated(spec: ModelSpec):
                 os.replace(tmp, path)
             mspec = importlib.util.spec_from_file_location(modname, path)
             mod = importlib.util.module_from_spec(mspec)
-            sys.modules[modname] = mod
             mspec.loader.exec_module(mod)
         except OSError:  # read-only home: compile in memory each run
             cache = False
             mod = type(sys)(modname)
             exec(compile(src, f"<{modname}>", "exec"), mod.__dict__)
-            sys.modules[modname] = mod
         mod.block_jit = numba.njit(nogil=True, cache=cache)(mod.block_loop)
         mod.month_jit = numba.njit(nogil=True, cache=cache)(mod.month_accumulate)
+        sys.modules[modname] = mod  # registered only once complete
     return mod
 
 
