@@ -21,7 +21,7 @@ from euphotic.cli import main
 from euphotic.config import load_config, matchup_table
 from euphotic.errors import ConfigError
 from euphotic.matchup import DailyInputs, WindowOptions, extract, match, station_cells
-from euphotic.models import ModelSpec
+from euphotic.models import ModelSpec, Parameter
 from euphotic.models._compiled import jit_point
 from euphotic.stations import MatchupOptionError, read_stations
 
@@ -89,6 +89,40 @@ def test_interior_window_median_is_the_centre(ident):
     np.testing.assert_array_equal(v, expected)
     assert np.median(v) == f(i, j, 2)  # linear in i and j: the median is the centre
     assert not ex.cells.wraps[0] and not ex.cells.clipped[0]
+
+
+@jit_point
+def _scaled_point(chl, par, sst, day_length, k):
+    return 0.0 if day_length <= 0.0 else chl * k
+
+
+def _scaled_reference(chl, par, sst, day_length, k=1.0):
+    return np.where(np.asarray(day_length) <= 0, 0.0, np.asarray(chl) * k)
+
+
+def test_matchups_use_the_runs_parameters_per_region(monkeypatch):
+    # A model with a per-region parameter k (chlorophyll x k): the match-up evaluates each
+    # window cell with the value the run's [models.scaled] settings give that cell, as the maps
+    # were made (euphotic.models.parameter_settings), not with the declared default.
+    spec = ModelSpec(name="scaled", label="scaled", published_name="chlorophyll x k (tests)",
+                     citation_keys=(), inputs=models.SPECS["vgpm"].inputs,
+                     parameters=(Parameter("k", 1.0, "1", "test", per_region=True),),
+                     point=_scaled_point, reference=_scaled_reference)
+    monkeypatch.setitem(models.SPECS, "scaled", spec)
+    monkeypatch.delitem(models._BUILT, "scaled", raising=False)
+    east = np.broadcast_to(LON[None, :] >= 20.0, (len(LAT), len(LON)))
+    inputs = _inputs()
+    inputs.regions = {"East": east}
+    inputs.settings = {"scaled": {"values": {"k": 2.0}, "regions": {"East": {"k": 3.0}}}}
+    try:
+        ex = extract(inputs, *_at(10.2, 20.3, "2025-06-03"), ["scaled"])
+    finally:
+        models._BUILT.pop("scaled", None)
+    i, j = int(np.argmin(abs(LAT - 10.2))), int(np.argmin(abs(LON - 20.3)))
+    cols = np.arange(j - 1, j + 2)
+    expected = f(np.arange(i - 1, i + 2)[:, None], cols[None, :], 2) * np.where(
+        LON[cols] >= 20.0, 3.0, 2.0)[None, :]  # columns 19.5 (k 2), 20.5 and 21.5 (k 3)
+    np.testing.assert_allclose(ex.values["scaled"][0, 0], expected, rtol=1e-12)
 
 
 def test_only_the_chunks_holding_stations_are_read(ident):

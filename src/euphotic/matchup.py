@@ -34,7 +34,7 @@ from euphotic import skill as sk
 from euphotic.aggregate import day_to_period
 from euphotic.errors import EuphoticError
 from euphotic.geo import day_length_from_declination, solar_declination
-from euphotic.models import get_model
+from euphotic.models import get_model, parameter_settings
 from euphotic.roles import GRID_ROLE
 from euphotic.stations import MatchupOptionError, StationTable
 
@@ -100,6 +100,9 @@ class DailyInputs:
     inputs: dict[str, xr.DataArray]
     ocean: xr.DataArray  # bool (lat, lon), numpy- or dask-backed
     regions: object | None = None  # aggregate.RegionMasks: name -> (lat, lon) bool
+    #: the run's ``[models.<name>]`` settings (see :func:`euphotic.models.parameter_settings`):
+    #: match-ups evaluate each model with the parameters its maps were made with
+    settings: dict = field(default_factory=dict)
 
     @property
     def chl(self) -> xr.DataArray:
@@ -118,7 +121,13 @@ class DailyInputs:
 
         prep = prepare(cfg)
         return cls(dict(prep.inputs), prep.ocean,
-                   prep.region_masks if prep.region_masks.names else None)
+                   prep.region_masks if prep.region_masks.names else None,
+                   dict(cfg.model_settings))
+
+    def parameters(self, model: str) -> dict:
+        """Parameter name -> value (a number, a choice's name, or a (lat, lon) array where
+        regions set their own) of ``model`` in this run."""
+        return parameter_settings(model, self.settings.get(model), self.regions)
 
 
 def model_inputs(model: str) -> tuple[tuple[str, ...], tuple[str, ...]]:
@@ -313,6 +322,10 @@ def extract(inputs: DailyInputs, lat, lon, day, models: list[str],
             kwargs = {r: np.asarray(got[r], np.float64) for r in reads}
             if takes_day_length:
                 kwargs["day_length"] = dl_cells  # computed from latitude and date if not given
+            for name, v in inputs.parameters(m).items():
+                # a per-region map: each window cell takes its own cell's value (s, 1, w, w)
+                kwargs[name] = (np.asarray(v)[rows[:, :, None], cols[:, None, :]][:, None]
+                                if np.ndim(v) == 2 else v)
             v = np.asarray(get_model(m)(**kwargs), np.float64)
             # polar night: 0 on ocean cells even on a day without input (the run's rule)
             out[s_idx] = np.where(valid, v, np.where(dark_cells, 0.0, np.nan))
