@@ -81,6 +81,8 @@ def test_demo_paragraph_names_models_inputs_earth_and_caution(demo_run):
     assert "seventh-order polynomial of their eq. 11" in flat
     assert "euphotic depth Z_eu from surface chlorophyll after Morel and Berthon (1989)" in flat
     assert "exponential temperature function of Eppley (1972)" in flat
+    assert ("Model parameters as run: VGPM, euphotic_depth = morel_berthon_1989 (Morel and "
+            "Berthon, 1989) (default);") in flat
     assert "estimated for 2025-04 with euphotic" in flat
     # inputs: 30 daily files each over April 2025 (the bundled sample grids)
     for words in ("surface chlorophyll-a concentration", "sea surface temperature",
@@ -267,3 +269,20 @@ def test_reused_maps_do_not_hide_the_later_runs_inputs(tmp_path):
     assert "estimated for the 3 months 2023-01 to 2023-03" in flat
     # screening counts summed over the three months' files, 400 cells each (hand count)
     assert "chlorophyll 0.001 to 100 mg m-3 (0 of 1,200 values masked: 0 below, 0 above)" in flat
+
+
+def test_the_chosen_euphotic_depth_relation_is_named_and_cited(tmp_path):
+    # A run choosing Morel & Maritorena (2001) for the VGPM's euphotic depth: the methods
+    # paragraph names and cites that relation (and not Morel & Berthon 1989, which this run did
+    # not use), and states the parameters the maps record.
+    cfg = monthly_case(tmp_path, 1, res=1.0)
+    cfg.write_text(cfg.read_text() + '\n[models.vgpm]\neuphotic_depth = "morel_maritorena_2001"\n')
+    run(load_config(cfg))
+    m = methods_text(tmp_path / "out")
+    flat = " ".join(m.text.split())
+    assert ("euphotic depth Z_eu from surface chlorophyll after Morel and Maritorena (2001)"
+            in flat)
+    assert ("Model parameters as run: VGPM, euphotic_depth = morel_maritorena_2001 "
+            "(Morel and Maritorena, 2001).") in flat
+    assert "morel2001" in m.keys and "morel1989" not in m.keys
+    assert "Berthon" not in flat

@@ -235,6 +235,39 @@ def _first_map_attrs(folder: Path, manifest: dict) -> tuple[dict, list[dict]]:
     return max(all_attrs, key=lambda a: (own(a), str(a.get("date_created", "")))), all_attrs
 
 
+def _model_parameters(folder: Path, manifest: dict) -> dict[str, str]:
+    """Model -> the ``model_parameters`` attribute of its first month map (the values it ran
+    with; every month of a run has the same)."""
+    import xarray as xr
+
+    out: dict[str, str] = {}
+    maps = sorted((e.get("month", ""), n, e.get("model")) for n, e in manifest["outputs"].items()
+                  if e.get("kind") == "map")
+    for _, name, model in maps:
+        if model in out:
+            continue
+        path = folder / name
+        kw = {"engine": "zarr", "consolidated": True} if path.is_dir() else {"engine": "netcdf4"}
+        try:
+            with xr.open_dataset(path, decode_times=False, **kw) as ds:
+                out[model] = str(ds.attrs.get("model_parameters", ""))
+        except (OSError, ValueError, KeyError) as exc:
+            raise MethodsError(f"{path}: cannot read its attributes ({exc.__class__.__name__})"
+                               ) from None
+    return out
+
+
+def _parameter_values(text: str) -> dict[str, str]:
+    """Run-wide ``name = value`` pairs of a ``model_parameters`` attribute (region-specific
+    values, ``name = value in Region``, are left out)."""
+    out = {}
+    for part in filter(None, (p.strip() for p in text.split(";"))):
+        name, _, rest = part.partition(" = ")
+        if rest and " in " not in rest:
+            out[name] = rest.split()[0]
+    return out
+
+
 def _months_phrase(months: list[str]) -> str:
     if not months:
         return ""
@@ -281,24 +314,43 @@ def methods_text(folder: str | os.PathLike) -> Methods:
     version = manifest.get("version") or attrs.get("product_version")
     months = list(manifest.get("months") or [])
 
-    # models
-    parts = []
+    # models, with the published alternative each chose (e.g. the euphotic-depth relation)
+    parts, param_parts = [], []
+    ran_with = _model_parameters(path, manifest)
     for m in manifest.get("models", []):
         spec = SPECS.get(m)
         if spec is None:  # a model this version does not know
             parts.append(f"{PUBLISHED_NAMES.get(m, m)} (euphotic model {m!r})")
             continue
+        values = _parameter_values(ran_with.get(m, ""))
+        chosen, unchosen = {}, set()
+        for p in spec.parameters:
+            if getattr(p, "citations", ()):
+                pick = values.get(p.name, p.default)
+                i = p.choices.index(pick) if pick in p.choices else p.choices.index(p.default)
+                chosen[p.name] = p.citations[i]
+                unchosen |= set(p.citations) - {p.citations[i]}
         tmpl = spec.methods or (spec.published_name + " (" + ", ".join(
             "{" + k + "}" for k in spec.citation_keys) + ")")
-        parts.append(tmpl.format(**{k: cite(k) for k in spec.citation_keys
-                                    if "{" + k + "}" in tmpl}))
-        for k in spec.citation_keys:
-            cite(k)
+        fills = {k: cite(k) for k in spec.citation_keys if "{" + k + "}" in tmpl}
+        fills.update({n: cite(k) for n, k in chosen.items() if "{" + n + "}" in tmpl})
+        parts.append(tmpl.format(**fills))
+        for k in (*spec.citation_keys, *chosen.values()):
+            if k not in unchosen:
+                cite(k)
+        if ran_with.get(m):
+            text = ran_with[m]
+            for n, k in chosen.items():  # name the chosen relation's source
+                text = text.replace(f"{n} = {values.get(n, '')}",
+                                    f"{n} = {values.get(n, '')} {cite(k, paren=True)}", 1)
+            param_parts.append(f"{spec.label}, {text}")
     models_txt = parts[0] if len(parts) == 1 else "; and ".join(["; ".join(parts[:-1]), parts[-1]])
     sentences.append(
         f"Monthly net primary production (NPP, mg C m-2 d-1) was estimated "
         f"{_months_phrase(months)} with euphotic {version} using "
         f"{'the model' if len(parts) == 1 else f'{len(parts)} models'}: {models_txt}.")
+    if param_parts:
+        sentences.append("Model parameters as run: " + "; ".join(param_parts) + ".")
 
     # inputs: variables, files, periods, units and conversions
     inputs = manifest.get("inputs") or {}

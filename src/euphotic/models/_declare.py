@@ -98,6 +98,9 @@ class Choice:
     source: str
     per_region: bool = False
     units: str = "1"
+    #: the ``references.bib`` key of each choice, in the order of ``choices`` (the methods
+    #: paragraph cites the one a run chose)
+    citations: tuple[str, ...] = ()
 
     def check(self, value) -> float:
         """The index of the chosen name as a float (an index is accepted as it is)."""

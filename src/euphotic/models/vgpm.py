@@ -37,7 +37,8 @@ _OUTPUT_ATTRS = NPP_ATTRS
 INPUTS = (Input("chl", "mg m-3"), Input("par", "mol m-2 d-1"), Input("sst", "degC"),
           Input("day_length", "h"))
 #: The euphotic-depth relation (Behrenfeld & Falkowski 1997 used Morel & Berthon 1989).
-EUPHOTIC_DEPTH = Choice("euphotic_depth", zeu.CHOICES, default=zeu.DEFAULT, source=zeu.SOURCE)
+EUPHOTIC_DEPTH = Choice("euphotic_depth", zeu.CHOICES, default=zeu.DEFAULT, source=zeu.SOURCE,
+                        citations=zeu.CITATIONS)
 
 
 def pb_opt_behrenfeld_falkowski(sst) -> np.ndarray:
@@ -127,7 +128,7 @@ SPEC = ModelSpec(
     methods=("the Vertically Generalized Production Model (VGPM) of {behrenfeld1997}, eq. 10, "
              "with the optimal assimilation number P^B_opt from sea surface temperature by the "
              "seventh-order polynomial of their eq. 11 and the euphotic depth Z_eu from surface "
-             "chlorophyll after {morel1989}"),
+             "chlorophyll after {euphotic_depth}"),
     summary=("Vertically Generalized Production Model: chlorophyll-specific optimal rate "
              "P^B_opt(T) from the seventh-order polynomial of temperature, a light term "
              "E0 / (E0 + 4.1), euphotic depth, chlorophyll and day length."),

@@ -13,6 +13,8 @@ from euphotic.models.morel_berthon import euphotic_depth, euphotic_depth_point
 
 #: Names of the euphotic-depth relations, in the order of their index.
 CHOICES: tuple[str, ...] = ("morel_berthon_1989", "morel_maritorena_2001")
+#: The ``references.bib`` key of each relation, in the order of :data:`CHOICES`.
+CITATIONS: tuple[str, ...] = ("morel1989", "morel2001")
 #: The relation used unless a model's configuration chooses another.
 DEFAULT = "morel_berthon_1989"
 #: What the choice means, for the declaration's documentation.
