@@ -26,7 +26,7 @@ from euphotic.cli import main
 from euphotic.config import load_config
 from euphotic.pipeline import run
 
-from ._grids import monthly_case
+from ._grids import grid, monthly_case, write_field
 from .conftest import ROOT, folder_bytes, run_killed_mid_commit
 
 N_MONTHS = 6
@@ -272,6 +272,34 @@ def test_rerun_reuses_unchanged_months_and_force_recomputes(tmp_path):
     assert "reused" not in res.output
     assert all(_ident(out / n) != i for n, i in ino.items())
     _consistent(out)
+
+
+def test_an_input_for_another_model_leaves_these_maps_reused(tmp_path):
+    # Each map's fingerprint covers its own model's inputs: configuring an input the VGPM does
+    # not read (a mixed-layer depth, for a model that needs one) reuses the VGPM maps; changing
+    # an input it reads recomputes them.
+    cfg_path = _months_case(tmp_path, 2)
+    out = tmp_path / "out"
+    assert CliRunner().invoke(main, ["run", str(cfg_path)]).exit_code == 0
+    ino = {p.name: _ident(p) for p in out.glob("npp_*.nc")}
+    lat, lon = grid(40.0, 50.0, -30.0, -20.0, 0.25)
+    for m in range(2):
+        a = np.datetime64("2023-01") + m
+        write_field(tmp_path / "mld" / f"m{m:02d}.nc", "mld", "ocean_mixed_layer_thickness", "m",
+                    np.full((len(lat), len(lon)), 30.0), lat, lon,
+                    time_bounds=(str(a.astype("datetime64[D]")),
+                                 str((a + 1).astype("datetime64[D]"))))
+    text = cfg_path.read_text()
+    cfg_path.write_text(text.replace("[ocean]", '[inputs.mld]\nfiles = "mld/*.nc"\n\n[ocean]'))
+    res = CliRunner().invoke(main, ["run", str(cfg_path)])
+    assert res.exit_code == 0, res.output
+    assert "reused 2 unchanged month map(s)" in res.output
+    assert {p.name: _ident(p) for p in out.glob("npp_*.nc")} == ino
+    sst = tmp_path / "sst" / "s00.nc"
+    os.utime(sst, ns=(sst.stat().st_atime_ns, sst.stat().st_mtime_ns + 10**9))
+    res = CliRunner().invoke(main, ["run", str(cfg_path)])
+    assert "reused 1 unchanged month map(s)" in res.output
+    assert _ident(out / "npp_vgpm_2023-01.nc") != ino["npp_vgpm_2023-01.nc"]
 
 
 def test_changed_config_recomputes(tmp_path):

@@ -233,7 +233,7 @@ FIGURE_FORMAT = 2
 REGIONS_FORMAT = 2
 #: RunConfig fields that do not change what a month's map or totals contain.
 _NOT_IN_FINGERPRINT = {"path", "output_dir", "figures", "months_per_compute", "start", "end",
-                       "models", "steps", "model_settings"}
+                       "models", "steps", "model_settings", "notes"}
 
 
 def _input_files(prep: Prepared) -> dict[str, list[str]]:
