@@ -35,10 +35,10 @@ from euphotic.outputs import (
     PUBLISHED_NAMES,
     STANDARD_NAME_VOCABULARY,
     crs_attrs,
-    geospatial_attrs,
     iso_utc,
     metadata_attrs,
     model_label,
+    month_file_attrs,
 )
 
 log = logging.getLogger("euphotic")
@@ -264,19 +264,8 @@ def month_dataset(values: dict, qs: list[dv.Quantity], opts: Options, *, model: 
         "photosynthetic_quotient": float(opts.quotient),
         "references": _references(tuple(keys)),
         "caution": DERIVED_CAUTION,
-        "time_coverage_start": f"{start}T00:00:00Z",
-        "time_coverage_end": f"{end}T00:00:00Z",
-        "time_coverage_duration": f"P{n_days}D",
-        "time_coverage_resolution": "P1M",
-        **geospatial_attrs(lat, lon),
-        "date_created": now,
-        "date_modified": now,
-        "date_issued": now,
-        "date_metadata_modified": now,
-        "history": f"{now} {command} (euphotic {__version__})",
-        "source": "euphotic " + __version__,
-        "product_version": __version__,
-        "processing_level": "L4 model output (derived)",
+        **month_file_attrs(f"{start}T00:00:00Z", f"{end}T00:00:00Z", n_days, lat, lon,
+                           now=now, command=command, level="L4 model output (derived)"),
         **metadata_attrs(metadata, stem),
         **{f"input_files_{r}": v for r, v in input_files.items()},
     }

@@ -319,6 +319,38 @@ def _num(v: float, decimals: int) -> str:
     return "0" if s in ("-0", "") else s
 
 
+def _input_words(model: str) -> str:
+    """The gridded inputs a model reads, as words ("surface chlorophyll, PAR and ...")."""
+    from euphotic import roles
+    from euphotic.models import SPECS
+
+    spec = SPECS.get(model)
+    names = [r for r in (spec.roles if spec else ("chl", "par", "sst")) if r != "day_length"]
+    words = [roles.ROLES[r].short_name for r in roles.ordered(names)]
+    return words[0] if len(words) == 1 else ", ".join(words[:-1]) + " and " + words[-1]
+
+
+def month_file_attrs(start: str, end: str, n_days: int, lat: np.ndarray, lon: np.ndarray, *,
+                     now: str, command: str, level: str) -> dict:
+    """ACDD attributes every monthly file shares: its time coverage (ISO 8601 start and end,
+    ``n_days`` long), its bounding box, its creation and the software that made it."""
+    return {
+        "time_coverage_start": start,
+        "time_coverage_end": end,
+        "time_coverage_duration": f"P{n_days}D",
+        "time_coverage_resolution": "P1M",
+        **geospatial_attrs(lat, lon),
+        "date_created": now,
+        "date_modified": now,
+        "date_issued": now,
+        "date_metadata_modified": now,
+        "history": f"{now} {command} (euphotic {__version__})",
+        "source": "euphotic " + __version__,
+        "product_version": __version__,
+        "processing_level": level,
+    }
+
+
 def geospatial_attrs(lat: np.ndarray, lon: np.ndarray) -> dict:
     """ACDD extents (cell edges), resolutions and WKT bounds of a regular grid, rounded to
     what the grid's spacing justifies (1/1000 of a cell) so no float noise shows."""
@@ -452,8 +484,8 @@ def month_dataset(
         "title": f"{title}: {name}, monthly mean net primary production, {maps.month}",
         "summary": (
             f"Monthly mean daily net primary production (mg C m-2 d-1) from the {name} model "
-            f"(euphotic id {maps.model!r}), evaluated day by day from surface chlorophyll, PAR "
-            "and sea surface temperature with day length from latitude and date. " + CAUTION
+            f"(euphotic id {maps.model!r}), evaluated day by day from {_input_words(maps.model)}"
+            " with day length from latitude and date. " + CAUTION
         ),
         "comment": "Ocean cells only (land and cells without any valid day are missing). "
         "coverage and n_valid_days give the days behind each monthly mean.",
@@ -466,19 +498,8 @@ def month_dataset(
         "references": CITATIONS[maps.model]
         + " Day length: Forsythe et al. (1995), Ecological Modelling 80:87-95.",
         "caution": CAUTION,
-        "time_coverage_start": _day_iso(start),
-        "time_coverage_end": _day_iso(end),
-        "time_coverage_duration": f"P{n_days}D",
-        "time_coverage_resolution": "P1M",
-        **geospatial_attrs(lat, lon),
-        "date_created": now,
-        "date_modified": now,
-        "date_issued": now,
-        "date_metadata_modified": now,
-        "history": f"{now} {command} (euphotic {__version__})",
-        "source": "euphotic " + __version__,
-        "product_version": __version__,
-        "processing_level": "L4 model output",
+        **month_file_attrs(_day_iso(start), _day_iso(end), n_days, lat, lon, now=now,
+                           command=command, level="L4 model output"),
         **metadata_attrs(metadata, stem),
         **provenance,
     }
