@@ -409,3 +409,34 @@ def test_models_command_lists_it_with_its_references():
            "remote sensing at local and regional scales. Science 241, 1613-1620." in res.output
     assert "Ravindran, P. (1990)" in res.output
     assert "Journal of Marine Research 38, 687-701." in res.output
+
+
+def test_a_run_with_pi_platt_writes_maps_totals_and_its_methods(tmp_path):
+    """A whole run (two monthly composites, 0.5 degree) with the VGPM and pi_platt, pb_max set
+    for one region in the config: maps of both models, the region's totals, and a methods
+    paragraph citing the P-I model's references from references.bib."""
+    from euphotic.config import load_config
+    from euphotic.methods import methods_text
+    from euphotic.pipeline import run
+
+    from ._grids import monthly_case
+
+    cfg = monthly_case(tmp_path, 2, res=0.5, seed=3, models=("vgpm", "pi_platt"),
+                       regions=(("Box", [-30.0, 40.0, -20.0, 50.0]),
+                                ("North", [-30.0, 45.0, -20.0, 50.0])))
+    cfg.write_text(cfg.read_text() + '\n[models.pi_platt.regions."North"]\npb_max = 6.0\n')
+    run(load_config(cfg), progress=False)
+    out = tmp_path / "out"
+    assert (out / "npp_pi_platt_2023-01.nc").exists() and (out / "npp_pi_platt_2023-02.nc").exists()
+    with xr.open_dataset(out / "npp_pi_platt_2023-01.nc") as ds:
+        npp = ds["npp"].load()
+        assert "pb_max = 6.0 in North" in ds.attrs["model_parameters"]
+    assert np.isfinite(npp.values).any() and (npp.values[np.isfinite(npp.values)] > 0).all()
+    rows = (out / "regional_totals.csv").read_text().splitlines()
+    assert sum(",pi_platt," in r for r in rows) == 4  # 2 regions x 2 months
+    flat = " ".join(methods_text(out).text.split())
+    assert "depth- and day-integrated analytic P-I model of Platt and Sathyendranath (1988)" \
+        in flat
+    assert "our own least-squares fit to the exact integral" in flat
+    keys = set(methods_text(out).keys)
+    assert {"platt1988", "platt1990", "platt1980", "morel1989", "behrenfeld1997"} <= keys
