@@ -202,10 +202,13 @@ def point(chl: float, par: float, day_length: float, alpha_b: float, pb_max: flo
         return 0.0  # no light, no production
     if not (chl > 0.0 and chl < np.inf) or not (par >= 0.0):
         return np.nan
-    x = PAR_TO_NOON * par / day_length * alpha_b / pb_max
-    # B P^B_m D_h / K f(x), K = ln(100) / Z_eu
-    return (chl * pb_max * day_length * zeu.zeu_point(chl, zeu_method) / LN100
+    x = PAR_TO_NOON * par * alpha_b / (day_length * pb_max)  # I*_m, one division
+    # B P^B_m D_h / K f(x), 1/K = Z_eu / ln(100)
+    return (chl * pb_max * day_length * zeu.zeu_point(chl, zeu_method) * _INV_LN100
             * daily_integral_point(x))
+
+
+_INV_LN100 = 1.0 / LN100
 
 
 SPEC = ModelSpec(
