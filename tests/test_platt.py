@@ -32,6 +32,8 @@ import numpy as np
 import pytest
 import xarray as xr
 from click.testing import CliRunner
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import integrate, special
 
 from euphotic.cli import main
@@ -45,6 +47,7 @@ from euphotic.models.platt import (
     daily_integral_point,
     platt_kernel,
 )
+from euphotic.models.zeu import euphotic_depth_by
 
 from .conftest import NoCompute
 
@@ -95,8 +98,6 @@ def test_model_equals_double_integral_of_the_pi_curve(chl, par, dl, alpha, pbm):
     """P&S88: P = B integral_day integral_depth P^B_m (1 - exp(-I(z,t)/I_k)) dz dt, with
     I(z,t) = I0_m sin(pi t/D) exp(-Kz), I0_m = pi PAR / (2D), K = ln(100)/Z_eu. Integrated
     numerically (scipy dblquad, t in h, z in m), independent of the analytic reduction to f."""
-    from euphotic.models.zeu import euphotic_depth_by
-
     k = np.log(100.0) / float(euphotic_depth_by(chl))
     i0m = np.pi * par * 1e6 / (2.0 * dl * 3600.0)  # umol m-2 s-1
     ik = pbm / alpha
@@ -440,3 +441,36 @@ def test_a_run_with_pi_platt_writes_maps_totals_and_its_methods(tmp_path):
     assert "our own least-squares fit to the exact integral" in flat
     keys = set(methods_text(out).keys)
     assert {"platt1988", "platt1990", "platt1980", "morel1989", "behrenfeld1997"} <= keys
+
+
+# --------------------------------------------------------------------------------------
+# Properties for every valid input (hypothesis), from the equations rather than our numbers
+# --------------------------------------------------------------------------------------
+
+_CHL_P = st.floats(0.01, 100.0)
+_PAR_P = st.floats(0.0, 100.0)
+_DL_P = st.floats(0.5, 24.0)
+_ALPHA_P = st.floats(0.001, 1.0)
+_PBM_P = st.floats(0.1, 30.0)
+_SETTINGS = settings(max_examples=60, deadline=None, derandomize=True)
+
+
+@pytest.mark.parametrize("fn", [pi_platt, platt_kernel], ids=["compiled", "numpy"])
+@_SETTINGS
+@given(chl=_CHL_P, par=_PAR_P, par2=_PAR_P, dl=_DL_P, alpha=_ALPHA_P, pbm=_PBM_P)
+def test_properties(fn, chl, par, par2, dl, alpha, pbm):
+    lo, hi = sorted((par, par2))
+    p_lo = float(fn(chl, lo, dl, alpha_b=alpha, pb_max=pbm))
+    p_hi = float(fn(chl, hi, dl, alpha_b=alpha, pb_max=pbm))
+    # finite, non-negative, non-decreasing in PAR (1 - exp(-I/I_k) increases with I)
+    assert np.isfinite(p_lo) and 0.0 <= p_lo <= p_hi
+    # Ein is concave with slope 1 at 0, so f(x) <= (2/pi) x: never above the light-limited
+    # line B alpha^B I0_m (2/pi) D_h / K (P&S88's low-light limit)
+    zeu = float(euphotic_depth_by(chl))
+    i0m = np.pi * hi * 1e6 / (2.0 * dl * 3600.0)
+    line = chl * alpha * i0m * 2.0 / np.pi * dl * zeu / np.log(100.0)
+    assert p_hi <= line * (1.0 + 1e-12) + 1e-300  # (+1e-300: subnormal PAR values)
+    # more P^B_m, more production (f concave and f(0) = 0, so f(x) >= x f'(x)); rel 1e-12 for
+    # rounding where light is so low that P is linear in alpha^B alone
+    more = float(fn(chl, hi, dl, alpha_b=alpha, pb_max=min(pbm * 1.5, 30.0)))
+    assert more >= p_hi * (1.0 - 1e-12) - 1e-300

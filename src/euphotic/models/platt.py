@@ -138,11 +138,11 @@ def daily_integral(x) -> np.ndarray:
     x = np.asarray(x, dtype=np.float64)
     o1, o2, o3, o4, o5 = OMEGA
     near = x * (o1 + x * (o2 + x * (o3 + x * (o4 + x * o5))))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        r = 1.0 / x
-        r2 = r * r
-        far = np.log(x) + FAR_CONST + r * (TWO_OVER_PI + r2 * (FAR_C3 + r2 * FAR_C5))
-    return np.where(x <= X_SPLIT, near, far)
+    xf = np.where(x > X_SPLIT, x, X_SPLIT)  # the large-x piece only where it is used
+    r = 1.0 / xf
+    r2 = r * r
+    far = np.log(xf) + FAR_CONST + r * (TWO_OVER_PI + r2 * (FAR_C3 + r2 * FAR_C5))
+    return np.where(x > X_SPLIT, far, near)  # NaN stays NaN (through `near`)
 
 
 @jit_point
