@@ -91,8 +91,8 @@ def test_depth_integral_is_ein_over_k(y, k):
 @pytest.mark.parametrize(("chl", "par", "dl", "alpha", "pbm"), [
     (0.5, 40.0, 12.0, 0.03, 3.0),   # saturating (I*_m = 14.5)
     (1.0, 2.0, 10.0, 0.03, 3.0),    # light-limited (I*_m = 0.87)
-    (3.0, 15.0, 16.0, 0.05, 2.0),   # I*_m = 6.8, beyond the polynomial
-    (0.05, 25.0, 8.0, 0.02, 6.0),   # deep Z_eu branch, I*_m = 2.9
+    (3.0, 15.0, 16.0, 0.05, 2.0),   # I*_m = 10.2, beyond the polynomial
+    (0.05, 25.0, 8.0, 0.02, 9.0),   # deep Z_eu branch, I*_m = 3.03 (polynomial)
 ])
 def test_model_equals_double_integral_of_the_pi_curve(chl, par, dl, alpha, pbm):
     """P&S88: P = B integral_day integral_depth P^B_m (1 - exp(-I(z,t)/I_k)) dz dt, with
