@@ -474,3 +474,23 @@ def test_properties(fn, chl, par, par2, dl, alpha, pbm):
     # rounding where light is so low that P is linear in alpha^B alone
     more = float(fn(chl, hi, dl, alpha_b=alpha, pb_max=min(pbm * 1.5, 30.0)))
     assert more >= p_hi * (1.0 - 1e-12) - 1e-300
+
+
+def test_a_run_needs_no_sst(tmp_path):
+    """pi_platt takes chlorophyll and PAR only: a run without [inputs.sst] (ocean from the
+    packaged land mask) writes its map and totals."""
+    from euphotic.config import load_config
+    from euphotic.pipeline import run
+
+    from ._grids import monthly_case
+
+    cfg = monthly_case(tmp_path, 1, res=0.5, models=("pi_platt",))
+    text = cfg.read_text()
+    assert '[inputs.sst]\nfiles = "sst/*.nc"\n' in text and 'source = "temperature"' in text
+    cfg.write_text(text.replace('[inputs.sst]\nfiles = "sst/*.nc"\n', "")
+                   .replace('source = "temperature"', 'source = "package"'))
+    run(load_config(cfg), progress=False)
+    rows = (tmp_path / "out" / "regional_totals.csv").read_text().splitlines()
+    assert len(rows) == 2 and rows[1].startswith("Box,2023-01,pi_platt,")
+    mean = float(rows[1].split(",")[3])
+    assert np.isfinite(mean) and mean > 0.0
