@@ -249,3 +249,11 @@ def test_models_command_lists_inputs_parameters_and_references():
     # the references come from references.bib (pybtex), not from strings in the code
     assert "Eppley, R. W. (1972). Temperature and phytoplankton growth in the sea. Fishery " \
            "Bulletin 70, 1063-1085." in res.output
+    # every registered model, in SPECS order, the P-I (Platt) model after the Eppley-VGPM
+    heads = [line.split("  (")[0] for line in res.output.splitlines()
+             if line and not line.startswith(" ")]
+    assert heads == ["vgpm", "eppley_vgpm", "pi_platt"]
+    assert "    inputs: chl [mg m-3], par [mol m-2 d-1], day_length [h]" in res.output
+    assert "Platt, T., Sathyendranath, S. and Ravindran, P. (1990). Primary production by " \
+           "phytoplankton: analytic solutions for daily rates per unit area of water surface." \
+           in res.output

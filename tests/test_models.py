@@ -32,10 +32,20 @@ from euphotic.models import (
     euphotic_depth,
     pb_opt_behrenfeld_falkowski,
     pb_opt_eppley,
+    pi_platt,
     vgpm,
 )
 
 from .conftest import NoCompute
+
+#: Every registered model (pi_platt: tests/test_platt.py has its own published checks).
+ALL_MODELS = [vgpm, eppley_vgpm, pi_platt]
+
+
+def _by_role(model, chl, par, sst, dl):
+    """The inputs a model takes, in its declared order (pi_platt takes no SST)."""
+    given = {"chl": chl, "par": par, "sst": sst, "day_length": dl}
+    return [given[r] for r in model.spec.roles]
 
 # --------------------------------------------------------------------------------------
 # P^B_opt(T), B&F97 eq. 11
@@ -168,18 +178,23 @@ def test_eppley_over_vgpm_is_ratio_of_pb_opt(sst):
     assert ratio == pytest.approx(expected, rel=1e-12)
 
 
-@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+@pytest.mark.parametrize("model", ALL_MODELS)
 def test_missing_and_dark_values(model):
-    # chl <= 0, NaN or inf is missing chlorophyll -> NaN; NaN PAR or SST -> NaN.
+    # chl <= 0, NaN or inf is missing chlorophyll -> NaN; NaN PAR or SST -> NaN (a model
+    # without SST, pi_platt, gives a value there).
     # Day length 0 (polar night): no light, no production -> exactly 0, even with NaN chl.
     chl = np.array([0.5, 0.0, -0.1, np.nan, np.inf, 0.5, 0.5, np.nan, 0.0])
     par = np.array([40.0, 40.0, 40.0, 40.0, 40.0, np.nan, 40.0, 40.0, 40.0])
     sst = np.array([20.0, 20.0, 20.0, 20.0, 20.0, 20.0, np.nan, 20.0, 20.0])
     dl = np.array([12.0, 12.0, 12.0, 12.0, 12.0, 12.0, 12.0, 0.0, 0.0])
-    out = model(chl, par, sst, dl)
+    out = model(*_by_role(model, chl, par, sst, dl))
     assert out.dtype == np.float64
     assert np.isfinite(out[0]) and out[0] > 0
-    assert np.isnan(out[1:7]).all()
+    assert np.isnan(out[1:6]).all()
+    if "sst" in model.spec.roles:
+        assert np.isnan(out[6])
+    else:
+        assert out[6] == out[0]
     assert (out[7:] == 0.0).all()
 
 
@@ -226,14 +241,15 @@ def array_type(request):
     return convert
 
 
-@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+@pytest.mark.parametrize("model", ALL_MODELS)
 def test_array_types_give_the_same_numbers(array_type, model):
-    expected = model(_CHL, _PAR, _SST, _DL)  # numpy reference
+    expected = model(*_by_role(model, _CHL, _PAR, _SST, _DL))  # numpy reference
     # The hand value sits in cell [0, 0] (rel 1e-6 as above); the polar night cell is 0.
     if model is vgpm:
         assert expected[0, 0] == pytest.approx(VGPM_HAND, rel=1e-6)
     assert expected[1, 2] == 0.0
-    args = (
+    args = _by_role(
+        model,
         array_type(_CHL, "mg m-3"),
         array_type(_PAR, "mol m-2 d-1"),
         array_type(_SST, "degC"),
@@ -267,15 +283,16 @@ def test_no_compute_callback_catches_a_compute():
         arr.compute()
 
 
-@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+@pytest.mark.parametrize("model", ALL_MODELS)
 def test_plain_dask_arrays_stay_lazy(model):
     chunks = (1, 2)
-    args = [da.from_array(a, chunks=chunks) for a in (_CHL, _PAR, _SST, _DL)]
+    args = [da.from_array(a, chunks=chunks) for a in _by_role(model, _CHL, _PAR, _SST, _DL)]
     with NoCompute():
         out = model(*args)
     assert isinstance(out, da.Array)
     with dask.config.set(scheduler="sync"):
-        np.testing.assert_array_equal(out.compute(), model(_CHL, _PAR, _SST, _DL))
+        np.testing.assert_array_equal(out.compute(), model(*_by_role(model, _CHL, _PAR, _SST,
+                                                                     _DL)))
 
 
 def test_dask_array_mixed_with_numpy_array():
@@ -291,19 +308,21 @@ def test_dask_array_mixed_with_numpy_array():
 # --------------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+@pytest.mark.parametrize("model", ALL_MODELS)
 def test_units_are_converted(array_type, model):
     if array_type.kind == "numpy":
         pytest.skip("bare numpy arrays carry no units")
-    canonical = model(
+    canonical = model(*_by_role(
+        model,
         array_type(_CHL, "mg m-3"),
         array_type(_PAR, "mol m-2 d-1"),
         array_type(_SST, "degC"),
         array_type(_DL, "h"),
-    )
+    ))
     # Handbook conversions: T(K) = T(degC) + 273.15; 1 ug L-1 = 1e-6 g / 1e-3 m3 = 1 mg m-3;
     # 1 h = 60 min; 1 einstein = 1 mol photons.
-    converted_args = (
+    converted_args = _by_role(
+        model,
         array_type(_CHL, "ug L-1"),
         array_type(_PAR, "einstein m-2 day-1"),
         array_type(_SST + 273.15, "K"),
@@ -338,16 +357,22 @@ def test_incompatible_units_are_rejected():
 # --------------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("name", ["vgpm", "eppley_vgpm"])
+@pytest.mark.parametrize("name", ["vgpm", "eppley_vgpm", "pi_platt"])
 def test_compiled_kernel_matches_numpy_formula(name):
     from euphotic.models import SPECS, get_model
     from euphotic.models._compiled import HAVE_NUMBA
 
     model = get_model(name)
-    reference = SPECS[name].reference
+    spec = SPECS[name]
+    # the parameters' defaults in declared order (the euphotic-depth choice's index 0.0:
+    # Morel & Berthon)
+    defaults = list(spec.default_values().values())
 
-    def block(*a):
-        return model.block(*a, 0.0)  # the euphotic-depth choice's index: Morel & Berthon
+    def block(chl, par, sst, dl):
+        return model.block(*_by_role(model, chl, par, sst, dl), *defaults)
+
+    def reference(chl, par, sst, dl):
+        return spec.reference(*_by_role(model, chl, par, sst, dl))
 
     if not HAVE_NUMBA:
         pytest.skip("numba not installed")
@@ -402,7 +427,7 @@ def _field(values, dims=("lat", "lon"), units=None, **coords):
                         attrs={"units": units} if units else {})
 
 
-@pytest.mark.parametrize("model", [vgpm, eppley_vgpm])
+@pytest.mark.parametrize("model", ALL_MODELS)
 @pytest.mark.parametrize(
     ("par_units", "per_mol_d"),
     [("W m-2", W_M2_TO_MOL_M2_D), ("W/m^2", W_M2_TO_MOL_M2_D),
@@ -412,8 +437,8 @@ def test_par_dataarray_in_any_reader_unit(model, par_units, per_mol_d):
     # 40 mol m-2 d-1 given in another unit gives the hand-worked VGPM value (rel 1e-12: one
     # multiplication by a factor pint works out in float64).
     par = _field([[40.0 / per_mol_d]], units=par_units)
-    canonical = model(0.5, 40.0, 20.0, 12.0)
-    out = model(_field([[0.5]], units="mg m-3"), par, 20.0, 12.0)
+    canonical = model(*_by_role(model, 0.5, 40.0, 20.0, 12.0))
+    out = model(*_by_role(model, _field([[0.5]], units="mg m-3"), par, 20.0, 12.0))
     assert float(out[0, 0]) == pytest.approx(float(canonical), rel=1e-12)
     if model is vgpm:
         assert float(out[0, 0]) == pytest.approx(VGPM_HAND, rel=1e-6)

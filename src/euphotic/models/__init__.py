@@ -14,20 +14,23 @@ from collections.abc import Iterable, Mapping
 import numpy as np
 
 from euphotic.models import eppley_vgpm as _eppley_vgpm
+from euphotic.models import platt as _platt
 from euphotic.models import vgpm as _vgpm
 from euphotic.models._apply import InputMismatchError, check_same_grid
 from euphotic.models._declare import Choice, Input, Model, ModelSpec, Parameter, build
 from euphotic.models.eppley_vgpm import eppley_vgpm, pb_opt_eppley
 from euphotic.models.morel_berthon import euphotic_depth
+from euphotic.models.platt import pi_platt
 from euphotic.models.vgpm import pb_opt_behrenfeld_falkowski, vgpm
 
 #: Model name -> declaration, in the order `euphotic models` lists them.
 SPECS: dict[str, ModelSpec] = {s.name: s for s in (
     _vgpm.SPEC,
     _eppley_vgpm.SPEC,
+    _platt.SPEC,
 )}
 
-_BUILT: dict[str, Model] = {"vgpm": vgpm, "eppley_vgpm": eppley_vgpm}
+_BUILT: dict[str, Model] = {"vgpm": vgpm, "eppley_vgpm": eppley_vgpm, "pi_platt": pi_platt}
 
 
 class UnknownModelError(ValueError):
@@ -173,5 +176,6 @@ __all__ = [
     "input_roles",
     "pb_opt_behrenfeld_falkowski",
     "pb_opt_eppley",
+    "pi_platt",
     "vgpm",
 ]
