@@ -225,7 +225,7 @@ SPEC = ModelSpec(
              "P^B = P^B_m (1 - exp(-I/I_k)) of {platt1980} without photoinhibition, a "
              "sinusoidal day, uniform biomass equal to surface chlorophyll and PAR attenuation "
              "K = ln(100)/Z_eu with the euphotic depth Z_eu from surface chlorophyll after "
-             "{morel1989}; the daily integral f(I*_m) was approximated, as in {platt1990}, by a "
+             "{euphotic_depth}; the daily integral f(I*_m) was approximated, as in {platt1990}, by a "
              "fifth-order polynomial (coefficients our own least-squares fit to the exact "
              "integral, not the published ones) and its logarithmic asymptote at high light"),
     summary=("Analytic P-I model: P = B P^B_m D / K f(I0_m / I_k), P-I curve without "
