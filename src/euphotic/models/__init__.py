@@ -13,10 +13,12 @@ from collections.abc import Iterable, Mapping
 
 import numpy as np
 
+from euphotic.models import cbpm as _cbpm
 from euphotic.models import eppley_vgpm as _eppley_vgpm
 from euphotic.models import vgpm as _vgpm
 from euphotic.models._apply import InputMismatchError, check_same_grid
 from euphotic.models._declare import Choice, Input, Model, ModelSpec, Parameter, build
+from euphotic.models.cbpm import cbpm
 from euphotic.models.eppley_vgpm import eppley_vgpm, pb_opt_eppley
 from euphotic.models.morel_berthon import euphotic_depth
 from euphotic.models.vgpm import pb_opt_behrenfeld_falkowski, vgpm
@@ -25,9 +27,10 @@ from euphotic.models.vgpm import pb_opt_behrenfeld_falkowski, vgpm
 SPECS: dict[str, ModelSpec] = {s.name: s for s in (
     _vgpm.SPEC,
     _eppley_vgpm.SPEC,
+    _cbpm.SPEC,
 )}
 
-_BUILT: dict[str, Model] = {"vgpm": vgpm, "eppley_vgpm": eppley_vgpm}
+_BUILT: dict[str, Model] = {"vgpm": vgpm, "eppley_vgpm": eppley_vgpm, "cbpm": cbpm}
 
 
 class UnknownModelError(ValueError):
@@ -162,6 +165,7 @@ __all__ = [
     "Parameter",
     "UnknownModelError",
     "build",
+    "cbpm",
     "check_same_grid",
     "citation",
     "eppley_vgpm",
