@@ -69,13 +69,13 @@ INPUTS = (
 _SOURCE = "Behrenfeld et al. (2005), Global Biogeochem. Cycles 19, GB1006 (from memory)"
 
 PARAMETERS = (
-    Parameter("mu_max", MU_MAX, "d-1", f"Maximum phytoplankton growth rate; {_SOURCE}.",
+    Parameter("mu_max", MU_MAX, "d-1", f"Maximum phytoplankton growth rate; {_SOURCE}",
               minimum=0.0),
     Parameter("bbp_background", BBP_BACKGROUND, "m-1",
-              f"Non-algal background of bbp(443), subtracted before scaling to carbon; {_SOURCE}.",
+              f"Non-algal background of bbp(443), subtracted before scaling to carbon; {_SOURCE}",
               minimum=0.0),
     Parameter("carbon_scale", CARBON_SCALE, "mg C m-2",
-              f"Phytoplankton carbon per bbp(443) above background (mg C m-3 per m-1); {_SOURCE}.",
+              f"Phytoplankton carbon per bbp(443) above background (mg C m-3 per m-1); {_SOURCE}",
               minimum=0.0),
     EUPHOTIC_DEPTH,
 )
