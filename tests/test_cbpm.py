@@ -284,3 +284,55 @@ def test_a_run_with_cbpm_matches_the_numpy_formula(tmp_path):
         assert ds["npp"].attrs["units"] == "mg m-2 d-1"
         # rtol 1e-6: compiled float64 kernel against the numpy formula
         np.testing.assert_allclose(ds["npp"].values.reshape(SHAPE), expected, rtol=1e-6)
+
+
+# --------------------------------------------------------------------------------------
+# Properties over valid inputs (hypothesis), for the compiled function and the numpy formula
+# --------------------------------------------------------------------------------------
+
+# Valid inputs (common practice for open-ocean products, not a published table): chl 0.01-100
+# mg m-3, PAR 0.1-100 mol m-2 d-1, day length 0.5-24 h, bbp 0-0.05 m-1, Kd(490) 0.0166-5 m-1,
+# MLD 1-1000 m.
+
+
+def _prop_strategies():
+    from hypothesis import strategies as st
+
+    def fl(lo, hi):
+        return st.floats(lo, hi, allow_nan=False, allow_infinity=False)
+
+    return {"chl": fl(0.01, 100.0), "par": fl(0.1, 100.0), "day_length": fl(0.5, 24.0),
+            "bbp": fl(0.0, 0.05), "kd490": fl(0.0166, 5.0), "mld": fl(1.0, 1000.0)}
+
+
+def _given(**extra):
+    from hypothesis import given
+
+    return given(**_prop_strategies(), **extra)
+
+
+_SETTINGS = dict(max_examples=60, deadline=None, derandomize=True)
+
+
+@pytest.mark.parametrize("f", [cbpm, cbpm.reference], ids=["compiled", "numpy"])
+def test_property_finite_non_negative_and_monotonic(f):
+    from hypothesis import settings
+    from hypothesis import strategies as st
+
+    @settings(**_SETTINGS)
+    @_given(factor=st.floats(1.0, 10.0))
+    def check(chl, par, day_length, bbp, kd490, mld, factor):
+        # B05 (from memory): every factor is >= 0 for valid inputs; more PAR raises I_g and the
+        # light term (non-decreasing); a deeper mixed layer or more attenuation lowers I_g
+        # (non-increasing). rel 1e-12 slack: rounding where the cap min(., 1) is reached.
+        base = float(f(chl, par, day_length, bbp, kd490, mld))
+        assert np.isfinite(base) and base >= 0.0
+        more_par = float(f(chl, min(par * factor, 100.0), day_length, bbp, kd490, mld))
+        deeper = float(f(chl, par, day_length, bbp, kd490, mld * factor))
+        murkier = float(f(chl, par, day_length, bbp, kd490 * factor, mld))
+        slack = 1e-12 * base
+        assert more_par >= base - slack
+        assert deeper <= base + slack
+        assert murkier <= base + slack
+
+    check()
