@@ -336,3 +336,36 @@ def test_property_finite_non_negative_and_monotonic(f):
         assert murkier <= base + slack
 
     check()
+
+
+# --------------------------------------------------------------------------------------
+# The demo's invented inputs give the CbPM a plausible spring sea
+# --------------------------------------------------------------------------------------
+
+
+@pytest.mark.slow
+def test_demo_cbpm_within_a_factor_two_of_the_vgpm(tmp_path):
+    # The demo grids are invented (scripts/make_sample_grids.py); their spring mixed layer
+    # (about 20-80 m) should give CbPM estimates of the VGPM's order: satellite NPP models
+    # commonly differ by up to about a factor of two (common practice; Campbell et al. 2002
+    # and Saba et al. 2011 report spreads of that size, from memory). Not tuned to match;
+    # with the earlier deep mixed layer (median about 160 m) the ratio was 0.001-0.6.
+    import shutil
+
+    from euphotic.pipeline import run
+    from euphotic.results import open_totals
+
+    from .conftest import ROOT
+
+    shutil.copytree(ROOT / "configs", tmp_path / "configs")
+    (tmp_path / "sample_grids").symlink_to(ROOT / "sample_grids")
+    cfg_path = tmp_path / "configs" / "demo.toml"
+    old = 'models = ["vgpm", "eppley_vgpm"]'
+    text = cfg_path.read_text()
+    assert old in text
+    cfg_path.write_text(text.replace(old, 'models = ["vgpm", "cbpm"]\nfigures = false'))
+    res = run(load_config(cfg_path), progress=False, steps=False)
+    mean = open_totals(res.totals_csv.parent)["mean_npp"]  # mg C m-2 d-1, region x month
+    ratio = (mean.sel(model="cbpm") / mean.sel(model="vgpm")).values
+    assert ratio.size == 4 and np.isfinite(ratio).all()  # the demo's four regions, April
+    assert (ratio > 0.5).all() and (ratio < 2.0).all(), ratio
