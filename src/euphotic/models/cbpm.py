@@ -17,10 +17,12 @@ Cycles 19, GB1006 (the paper was not at hand to check it):
   eq. 10), which the 2005 CbPM kept (from memory).
 
 Which exponent goes where (from memory, not checked against the paper): the same light
-coefficient, 3 m2 h (mol photons)-1, is used for the photoacclimation curve Theta_max(I_g) and
-for the light limitation of growth (1 - exp(-3 I_g)). Some later descriptions of the model may
-use a different coefficient in the growth term; this module keeps 3 in both places, so that
-one exponential serves both.
+coefficient, 3 m2 h (mol photons)-1, is used for the photoacclimation curve Theta_max(I_g)
+(:data:`LIGHT_COEFF`) and for the light limitation of growth, 1 - exp(-3 I_g)
+(:data:`GROWTH_LIGHT_COEFF`). Our memory is least sure of the second: descriptions of the model
+may use a larger coefficient (5) in the growth term. Check against the paper before relying on
+absolute values; the two constants are kept apart so that either can be corrected alone (the
+compiled formula shares one exponential while they are equal).
 
 Rules: no daylight (day length <= 0) gives 0 whatever else is known; missing or impossible
 chlorophyll (NaN, <= 0, inf), PAR, backscattering, Kd(490) or mixed-layer depth (NaN, negative,
@@ -50,9 +52,14 @@ THETA_HIGH_LIGHT = 0.022
 #: Chl:C ratio of cells acclimated to darkness (Theta_max at I_g = 0), mg Chl (mg C)-1.
 #: Source: Behrenfeld et al. (2005), from memory.
 THETA_LOW_LIGHT = 0.045
-#: Light coefficient of the acclimation and growth curves, m2 h (mol photons)-1.
+#: Light coefficient of the photoacclimation curve Theta_max(I_g), m2 h (mol photons)-1.
 #: Source: Behrenfeld et al. (2005), from memory (see the module docstring).
 LIGHT_COEFF = 3.0
+#: Light coefficient of the growth term 1 - exp(-k I_g), m2 h (mol photons)-1. From memory
+#: the same 3 as :data:`LIGHT_COEFF` (see the module docstring); while the two are equal the
+#: compiled formula computes one exponential for both (numba folds the comparison of these
+#: module constants when it compiles).
+GROWTH_LIGHT_COEFF = 3.0
 
 _THETA_SPAN = THETA_LOW_LIGHT - THETA_HIGH_LIGHT
 
@@ -144,7 +151,7 @@ def cbpm_kernel(chl, par, day_length, bbp, kd490, mld, *, mu_max=MU_MAX,
         theta = chl_ok / carbon
         ig = par / dl * np.exp(-kd * mld / 2.0)
         theta_max = THETA_HIGH_LIGHT + _THETA_SPAN * np.exp(-LIGHT_COEFF * ig)
-        mu = mu_max * np.minimum(theta / theta_max, 1.0) * (1.0 - np.exp(-LIGHT_COEFF * ig))
+        mu = mu_max * np.minimum(theta / theta_max, 1.0) * (1.0 - np.exp(-GROWTH_LIGHT_COEFF * ig))
         z = zeu.euphotic_depth_by(chl_ok, euphotic_depth)
         npp = carbon * mu * z * VGPM_CONSTANT * par / (par + VGPM_LIGHT_HALF_SAT)
     # No phytoplankton carbon (bbp at or below the background): nothing grows.
@@ -170,12 +177,13 @@ def point(chl: float, par: float, day_length: float, bbp: float, kd490: float, m
     ig = par / day_length * np.exp(-0.5 * kd490 * mld)
     e = np.exp(-LIGHT_COEFF * ig)
     theta_max = THETA_HIGH_LIGHT + _THETA_SPAN * e
+    g = e if GROWTH_LIGHT_COEFF == LIGHT_COEFF else np.exp(-GROWTH_LIGHT_COEFF * ig)
     # C min(Theta / Theta_max, 1) = min(Chl / Theta_max, C): one division fewer
     c_eff = chl / theta_max
     if c_eff > carbon:
         c_eff = carbon
     light = par / (par + VGPM_LIGHT_HALF_SAT)
-    return c_eff * mu_max * (1.0 - e) * zeu.zeu_point(chl, zeu_method) * VGPM_CONSTANT * light
+    return c_eff * mu_max * (1.0 - g) * zeu.zeu_point(chl, zeu_method) * VGPM_CONSTANT * light
 
 
 SPEC = ModelSpec(
