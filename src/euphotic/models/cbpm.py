@@ -196,12 +196,14 @@ SPEC = ModelSpec(
     point=point,
     reference=cbpm_kernel,
     methods=("the Carbon-based Production Model (CbPM) of {behrenfeld2005}: phytoplankton "
-             "carbon C = 13000 (bbp(443) - 0.00035) from particulate backscattering, growth "
-             "rate mu = 2 d-1 x min(Theta / Theta_max, 1) x (1 - exp(-3 I_g)) from the "
+             "carbon C = s (bbp(443) - b0) from particulate backscattering, growth rate "
+             "mu = mu_max min(Theta / Theta_max, 1) (1 - exp(-3 I_g)) from the "
              "chlorophyll-to-carbon ratio Theta = Chl / C and the median mixed-layer light "
              "I_g = (E0 / D) exp(-Kd(490) MLD / 2), with Theta_max = 0.022 + 0.023 exp(-3 I_g), "
              "and NPP = C mu Z_eu 0.66125 E0 / (E0 + 4.1), the depth shape of the VGPM of "
-             "{behrenfeld1997}, with Z_eu from surface chlorophyll after {morel1989}"),
+             "{behrenfeld1997}, with Z_eu from surface chlorophyll after {morel1989} "
+             "(s = 13000 mg C m-2, b0 = 0.00035 m-1 and mu_max = 2 d-1 unless the maps' "
+             "model_parameters attribute records other values)"),
     summary=("Carbon-based Production Model: phytoplankton carbon from backscattering at "
              "443 nm, growth rate from the chlorophyll-to-carbon ratio relative to its "
              "light-acclimated maximum and the median light of the mixed layer (from daily PAR, "
