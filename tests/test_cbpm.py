@@ -369,3 +369,20 @@ def test_demo_cbpm_within_a_factor_two_of_the_vgpm(tmp_path):
     ratio = (mean.sel(model="cbpm") / mean.sel(model="vgpm")).values
     assert ratio.size == 4 and np.isfinite(ratio).all()  # the demo's four regions, April
     assert (ratio > 0.5).all() and (ratio < 2.0).all(), ratio
+
+
+def test_parameters_from_the_config(tmp_path):
+    # [models.cbpm] sets the declared parameters; a negative growth rate is refused (minimum 0)
+    from euphotic.models import parameter_settings
+
+    inputs = INPUTS + "".join(f'[inputs.{r}]\nfiles = "{r}/*.nc"\n' for r in ("bbp", "kd490", "mld"))
+    path = run_config(tmp_path / "run.toml", run='models = ["cbpm"]', inputs=inputs,
+                      extra="[models.cbpm]\nmu_max = 1.5\nbbp_background = 0.0004\n")
+    cfg = load_config(path)
+    values = parameter_settings("cbpm", cfg.model_settings.get("cbpm"))
+    assert values == {"mu_max": 1.5, "bbp_background": 0.0004, "carbon_scale": 13000.0,
+                      "euphotic_depth": "morel_berthon_1989"}
+    path = run_config(tmp_path / "bad.toml", run='models = ["cbpm"]', inputs=inputs,
+                      extra="[models.cbpm]\nmu_max = -1.0\n")
+    with pytest.raises(ConfigError, match=r"mu_max must be a finite number >= 0 \(d-1\)"):
+        load_config(path)
