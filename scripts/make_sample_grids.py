@@ -25,9 +25,13 @@ Inputs, each in a different but common layout, so the demo exercises the readers
          of years and trends.
 
 Backscattering and attenuation follow the day's chlorophyll by published bio-optical relations
-(:func:`kd490_from_chl`, :func:`bbp443_from_chl`) times a little noise; the mixed layer is deep
-in winter and in the north, shallow in summer (10-300 m). They are drawn from their own random
-stream (``EXTRA_SEED``), so the chlorophyll, PAR and SST files stay byte for byte as before.
+(:func:`kd490_from_chl`, :func:`bbp443_from_chl`) times a little noise. The April mixed layer is
+that of a temperate sea in spring (:func:`april_mld`): about 20-80 m, shallower where the
+chlorophyll is high (a stratified water column is where a spring bloom grows) and shoaling
+through the month; in the decade demo it is deep in winter and in the north, shallow in summer
+(10-300 m). They are drawn from their own random stream (``EXTRA_SEED``), so the chlorophyll,
+PAR and SST files stay byte for byte as before (and bbp and Kd(490) as well: the April mixed
+layer takes the same random draws it always did).
 
 Usage: python scripts/make_sample_grids.py [--out sample_grids]
 """
@@ -38,6 +42,7 @@ import argparse
 import re
 import shutil
 import sys
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -139,6 +144,24 @@ def mld_field(lat: np.ndarray, month_position: float, noise: np.ndarray) -> np.n
     deep = 80.0 + 190.0 * north
     shallow = 18.0 + 10.0 * north
     return np.clip((shallow + (deep - shallow) * winter) * np.exp(0.15 * noise), 10.0, 300.0)
+
+
+#: April mixed layer (invented): MLD_DEEP m where chlorophyll is MLD_CHL_LOW mg m-3 or less,
+#: MLD_SHALLOW m where it is MLD_CHL_HIGH or more, log-linear between; clipped to MLD_CLIP.
+MLD_DEEP, MLD_SHALLOW = 75.0, 22.0
+MLD_CHL_LOW, MLD_CHL_HIGH = 0.1, 3.0
+MLD_CLIP = (15.0, 95.0)
+
+
+def april_mld(chl: np.ndarray, day: int, noise: np.ndarray) -> np.ndarray:
+    """Invented mixed-layer depth of an April day, m, on the chlorophyll's block means
+    (``chl``, mg m-3, no gaps): deep (about 75 m) in clear water, shallow (about 22 m) under a
+    bloom, shoaling by a fifth through the month, with a little noise (``noise``: unit
+    variance)."""
+    x = np.clip(np.log(chl / MLD_CHL_LOW) / np.log(MLD_CHL_HIGH / MLD_CHL_LOW), 0.0, 1.0)
+    depth = MLD_DEEP * (MLD_SHALLOW / MLD_DEEP) ** x
+    shoaling = 1.1 - 0.2 * day / (N_DAYS - 1)
+    return np.clip(depth * shoaling * np.exp(0.15 * noise), *MLD_CLIP)
 
 
 #: Names of existing ocean-colour products, missions and agencies. The deflated bytes of random
@@ -343,6 +366,14 @@ def daily_optics_and_mixing(out: Path, chl_days: list[np.ndarray], chl_coords) -
                 "lon": ("lon", lo, {"standard_name": "longitude", "units": "degrees_east"})}
 
     mld_noise = smooth_noise(rng, (len(mlat), len(mlon)), 6)
+    # chlorophyll on the mixed layer's grid (1/4 degree): each day's block means, cloud gaps
+    # filled by the month's mean there, then by the median (the mixed layer has no gaps)
+    km = int(round(SST_RES / CHL_RES))
+    chl_m = [block_mean(c.astype(np.float64), km) for c in chl_days]
+    with warnings.catch_warnings():  # cells under land have no mean (NaN, filled below)
+        warnings.simplefilter("ignore", RuntimeWarning)
+        month_mean = np.nanmean(np.stack(chl_m), axis=0)
+    month_mean = np.where(np.isfinite(month_mean), month_mean, np.nanmedian(month_mean))
     for d, chl in enumerate(chl_days):
         day = MONTH_START + d
         stamp = str(day).replace("-", "")
@@ -382,9 +413,9 @@ def daily_optics_and_mixing(out: Path, chl_days: list[np.ndarray], chl_coords) -
                       "wavelength": {"_FillValue": None},
                       "time": {"units": "days since 2025-01-01", "calendar": "standard"}})
 
-        # April: the winter mixed layer shoaling through the month (mid-April is 3.0)
+        # April: a spring mixed layer, shallower under high chlorophyll, shoaling
         mixing = 0.8 * mld_noise + 0.6 * smooth_noise(rng, mld_noise.shape, 2)
-        mld = mld_field(mlat[:, None], 2.5 + d / 30.0, mixing)
+        mld = april_mld(np.where(np.isfinite(chl_m[d]), chl_m[d], month_mean), d, mixing)
         mld_cm = np.where(mland, -1, np.round(mld * 100.0)).astype("i2")
         mds = xr.Dataset(
             {"mld": (("lat", "lon"), mld_cm,

@@ -104,7 +104,7 @@ def test_empty_model_list_is_an_error_and_keeps_the_previous_table(tmp_path):
     assert res.exit_code == 1
     assert res.stderr == (
         f"euphotic: error: {path} [run]: `models` is empty; name at least one of "
-        "eppley_vgpm, pi_platt, vgpm\n"
+        "cbpm, eppley_vgpm, pi_platt, vgpm\n"
     )
     assert csv.read_bytes() == before
     assert sorted(p.name for p in (tmp_path / "out").iterdir()) == [
@@ -162,7 +162,7 @@ def test_duplicate_models_dropped_in_order(tmp_path, caplog):
          "(strings), not 3"),
         ('models = ["vgpm", 2]', "[run]", '`models` must be a model name or a list of model names '
          '(strings), not ["vgpm", 2]'),
-        ('models = ["nope"]', "[run]", "unknown model 'nope'; choose from eppley_vgpm, pi_platt, vgpm"),
+        ('models = ["nope"]', "[run]", "unknown model 'nope'; choose from cbpm, eppley_vgpm, pi_platt, vgpm"),
         ('models = ["vgpm"]\nmodel = "vgpm"', "[run]", "give `models` or `model`, not both"),
         ('start = "April"', "[run]", '`start` must be a date: a TOML date (2025-04-01) or a string '
          '"YYYY-MM-DD", not "April"'),
@@ -264,7 +264,7 @@ def test_every_config_problem_listed_by_check_first_by_run(tmp_path):
     )
     expected = [
         f'{path} [run]: `figures` must be true or false (a TOML boolean, without quotes), not "false"',
-        f"{path} [run]: `models` is empty; name at least one of eppley_vgpm, pi_platt, vgpm",
+        f"{path} [run]: `models` is empty; name at least one of cbpm, eppley_vgpm, pi_platt, vgpm",
         f"{path} [inputs.chl]: `files` must be a path, a glob pattern or a list of them "
         "(strings), not 42",
         f'{path} [ocean]: `source` must be "file", "package" or "temperature", not "sky"',

@@ -252,7 +252,7 @@ def test_models_command_lists_inputs_parameters_and_references():
     # every registered model, in SPECS order, the P-I (Platt) model after the Eppley-VGPM
     heads = [line.split("  (")[0] for line in res.output.splitlines()
              if line and not line.startswith(" ")]
-    assert heads == ["vgpm", "eppley_vgpm", "pi_platt"]
+    assert heads == ["vgpm", "eppley_vgpm", "pi_platt", "cbpm"]
     assert "    inputs: chl [mg m-3], par [mol m-2 d-1], day_length [h]" in res.output
     assert "Platt, T., Sathyendranath, S. and Ravindran, P. (1990). Primary production by " \
            "phytoplankton: analytic solutions for daily rates per unit area of water surface." \

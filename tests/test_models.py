@@ -10,6 +10,10 @@ References:
   production of the euphotic layer. Limnology and Oceanography 34(8):1545-1562. "M&B89":
   C_tot = 38.0 C^0.425 (C < 1), 40.2 C^0.507 (C >= 1); Z_eu = 568.2 C_tot^-0.746, or
   200 C_tot^-0.293 where the first gives more than 102 m.
+* Behrenfeld, M. J., Boss, E., Siegel, D. A. and Shea, D. M. (2005). Carbon-based ocean
+  productivity and phytoplankton physiology from space. Global Biogeochemical Cycles 19,
+  GB1006: the CbPM (formulation from memory; its own tests are in tests/test_cbpm.py). Here it
+  runs through the same missing-value, array-type, laziness, unit and compiled-kernel checks.
 * Eppley, R. W. (1972). Temperature and phytoplankton growth in the sea. Fishery Bulletin
   70:1063-1085; in the Eppley-VGPM as P^B_opt = 1.54 x 10^(0.0275 T - 0.07) (this form is
   from memory of the literature).
@@ -28,6 +32,7 @@ import pytest
 import xarray as xr
 
 from euphotic.models import (
+    cbpm,
     eppley_vgpm,
     euphotic_depth,
     pb_opt_behrenfeld_falkowski,
@@ -38,14 +43,16 @@ from euphotic.models import (
 
 from .conftest import NoCompute
 
-#: Every registered model (pi_platt: tests/test_platt.py has its own published checks).
-ALL_MODELS = [vgpm, eppley_vgpm, pi_platt]
+#: Every registered model (pi_platt and cbpm: tests/test_platt.py and tests/test_cbpm.py have
+#: their own published checks).
+ALL_MODELS = [vgpm, eppley_vgpm, pi_platt, cbpm]
 
 
 def _by_role(model, chl, par, sst, dl):
     """The inputs a model takes, in its declared order (pi_platt takes no SST)."""
     given = {"chl": chl, "par": par, "sst": sst, "day_length": dl}
     return [given[r] for r in model.spec.roles]
+
 
 # --------------------------------------------------------------------------------------
 # P^B_opt(T), B&F97 eq. 11
@@ -178,23 +185,38 @@ def test_eppley_over_vgpm_is_ratio_of_pb_opt(sst):
     assert ratio == pytest.approx(expected, rel=1e-12)
 
 
+def _call(model, **fields):
+    """Call a model with the fields of its own inputs (by role name), the others left out."""
+    return model(**{r: fields[r] for r in model.spec.roles})
+
+
+def _other(values, n):
+    """The CbPM's extra inputs: a valid value (bbp above its 0.00035 m-1 background) in every
+    cell, as a float array of ``values`` with the same NaN pattern as given."""
+    return np.broadcast_to(np.asarray(values, dtype=np.float64), (n,)).copy()
+
+
 @pytest.mark.parametrize("model", ALL_MODELS)
 def test_missing_and_dark_values(model):
-    # chl <= 0, NaN or inf is missing chlorophyll -> NaN; NaN PAR or SST -> NaN (a model
-    # without SST, pi_platt, gives a value there).
+    # chl <= 0, NaN or inf is missing chlorophyll -> NaN; NaN PAR -> NaN; NaN in the model's
+    # other inputs (SST; bbp, Kd(490), MLD) -> NaN.
     # Day length 0 (polar night): no light, no production -> exactly 0, even with NaN chl.
     chl = np.array([0.5, 0.0, -0.1, np.nan, np.inf, 0.5, 0.5, np.nan, 0.0])
     par = np.array([40.0, 40.0, 40.0, 40.0, 40.0, np.nan, 40.0, 40.0, 40.0])
     sst = np.array([20.0, 20.0, 20.0, 20.0, 20.0, 20.0, np.nan, 20.0, 20.0])
     dl = np.array([12.0, 12.0, 12.0, 12.0, 12.0, 12.0, 12.0, 0.0, 0.0])
-    out = model(*_by_role(model, chl, par, sst, dl))
+    extra = {}
+    for role, v in (("bbp", 0.003), ("kd490", 0.06), ("mld", 20.0)):
+        extra[role] = _other(v, 9)
+        extra[role][6] = np.nan
+    out = _call(model, chl=chl, par=par, sst=sst, day_length=dl, **extra)
     assert out.dtype == np.float64
     assert np.isfinite(out[0]) and out[0] > 0
     assert np.isnan(out[1:6]).all()
-    if "sst" in model.spec.roles:
-        assert np.isnan(out[6])
+    if set(model.spec.roles) & {"sst", "bbp", "kd490", "mld"}:
+        assert np.isnan(out[6])  # NaN in one of its other inputs
     else:
-        assert out[6] == out[0]
+        assert out[6] == out[0]  # pi_platt reads none of them
     assert (out[7:] == 0.0).all()
 
 
@@ -219,6 +241,19 @@ _CHL = np.array([[0.5, 0.02, 2.0], [10.0, 0.1, np.nan]])
 _PAR = np.array([[40.0, 60.0, 20.0], [5.0, 0.5, 30.0]])
 _SST = np.array([[20.0, 28.9, 10.0], [-1.5, 3.0, 15.0]])
 _DL = np.array([[12.0, 14.0, 11.0], [18.0, 6.0, 0.0]])
+# The CbPM's extra inputs (invented, plausible): bbp(443) m-1, Kd(490) m-1, mixed layer m; the
+# cell [0, 0] is the CbPM hand-worked cell of tests/test_cbpm.py, [1, 1] has bbp below the
+# background (no phytoplankton carbon: 0).
+_BBP = np.array([[0.003, 0.0012, 0.006], [0.02, 0.0003, 0.004]])
+_KD = np.array([[0.06, 0.02, 0.12], [0.6, 0.04, 0.08]])
+_MLD = np.array([[20.0, 60.0, 35.0], [10.0, 120.0, 40.0]])
+_FIELDS = {"chl": (_CHL, "mg m-3"), "par": (_PAR, "mol m-2 d-1"), "sst": (_SST, "degC"),
+           "day_length": (_DL, "h"), "bbp": (_BBP, "m-1"), "kd490": (_KD, "m-1"),
+           "mld": (_MLD, "m")}
+
+
+def _numpy_args(model):
+    return [_FIELDS[r][0] for r in model.spec.roles]
 
 
 @pytest.fixture(params=["numpy", "xarray", "dask"])
@@ -243,18 +278,17 @@ def array_type(request):
 
 @pytest.mark.parametrize("model", ALL_MODELS)
 def test_array_types_give_the_same_numbers(array_type, model):
-    expected = model(*_by_role(model, _CHL, _PAR, _SST, _DL))  # numpy reference
+    expected = model(*_numpy_args(model))  # numpy reference
     # The hand value sits in cell [0, 0] (rel 1e-6 as above); the polar night cell is 0.
     if model is vgpm:
         assert expected[0, 0] == pytest.approx(VGPM_HAND, rel=1e-6)
+    if model is cbpm:
+        from .test_cbpm import CBPM_HAND
+
+        assert expected[0, 0] == pytest.approx(CBPM_HAND, rel=1e-6)
+        assert expected[1, 1] == 0.0  # bbp below background
     assert expected[1, 2] == 0.0
-    args = _by_role(
-        model,
-        array_type(_CHL, "mg m-3"),
-        array_type(_PAR, "mol m-2 d-1"),
-        array_type(_SST, "degC"),
-        array_type(_DL, "h"),
-    )
+    args = tuple(array_type(*_FIELDS[r]) for r in model.spec.roles)
     with NoCompute():
         out = model(*args)
     if array_type.kind == "numpy":
@@ -286,13 +320,12 @@ def test_no_compute_callback_catches_a_compute():
 @pytest.mark.parametrize("model", ALL_MODELS)
 def test_plain_dask_arrays_stay_lazy(model):
     chunks = (1, 2)
-    args = [da.from_array(a, chunks=chunks) for a in _by_role(model, _CHL, _PAR, _SST, _DL)]
+    args = [da.from_array(a, chunks=chunks) for a in _numpy_args(model)]
     with NoCompute():
         out = model(*args)
     assert isinstance(out, da.Array)
     with dask.config.set(scheduler="sync"):
-        np.testing.assert_array_equal(out.compute(), model(*_by_role(model, _CHL, _PAR, _SST,
-                                                                     _DL)))
+        np.testing.assert_array_equal(out.compute(), model(*_numpy_args(model)))
 
 
 def test_dask_array_mixed_with_numpy_array():
@@ -312,26 +345,24 @@ def test_dask_array_mixed_with_numpy_array():
 def test_units_are_converted(array_type, model):
     if array_type.kind == "numpy":
         pytest.skip("bare numpy arrays carry no units")
-    canonical = model(*_by_role(
-        model,
-        array_type(_CHL, "mg m-3"),
-        array_type(_PAR, "mol m-2 d-1"),
-        array_type(_SST, "degC"),
-        array_type(_DL, "h"),
-    ))
+    canonical = model(*(array_type(*_FIELDS[r]) for r in model.spec.roles))
     # Handbook conversions: T(K) = T(degC) + 273.15; 1 ug L-1 = 1e-6 g / 1e-3 m3 = 1 mg m-3;
-    # 1 h = 60 min; 1 einstein = 1 mol photons.
-    converted_args = _by_role(
-        model,
-        array_type(_CHL, "ug L-1"),
-        array_type(_PAR, "einstein m-2 day-1"),
-        array_type(_SST + 273.15, "K"),
-        array_type(_DL * 60.0, "min"),
-    )
+    # 1 h = 60 min; 1 einstein = 1 mol photons; 1 m-1 = 1000 km-1 = 0.01 cm-1; 1 m = 100 cm.
+    other_units = {
+        "chl": (_CHL, "ug L-1"),
+        "par": (_PAR, "einstein m-2 day-1"),
+        "sst": (_SST + 273.15, "K"),
+        "day_length": (_DL * 60.0, "min"),
+        "bbp": (_BBP * 1000.0, "km-1"),
+        "kd490": (_KD * 0.01, "cm-1"),
+        "mld": (_MLD * 100.0, "cm"),
+    }
+    converted_args = tuple(array_type(*other_units[r]) for r in model.spec.roles)
     with NoCompute():
         other = model(*converted_args)
     # rel 1e-12: K -> degC subtracts 273.15 and the factors come from pint as floats, so a few
-    # ulps of ~300 K (about 1e-13 degC) reach the result through P^B_opt; nothing else differs.
+    # ulps of ~300 K (about 1e-13 degC) reach the result through P^B_opt; the CbPM's factors
+    # (km-1, cm-1, cm) are a few ulps each; nothing else differs.
     np.testing.assert_allclose(other.values, canonical.values, rtol=1e-12, atol=0)
     assert np.isnan(other.values[1, 2]) == np.isnan(canonical.values[1, 2])
 
@@ -359,6 +390,7 @@ def test_incompatible_units_are_rejected():
 
 @pytest.mark.parametrize("name", ["vgpm", "eppley_vgpm", "pi_platt"])
 def test_compiled_kernel_matches_numpy_formula(name):
+    # (the CbPM, with its own inputs: test_compiled_cbpm_matches_numpy_formula below)
     from euphotic.models import SPECS, get_model
     from euphotic.models._compiled import HAVE_NUMBA
 
@@ -400,6 +432,55 @@ def test_compiled_kernel_matches_numpy_formula(name):
     np.testing.assert_allclose(block(c3, 30.0, 15.0, d3), reference(c3, 30.0, 15.0, d3), rtol=1e-6)
 
 
+@pytest.mark.parametrize("zeu_index", [0.0, 1.0])
+def test_compiled_cbpm_matches_numpy_formula(zeu_index):
+    # As above for the CbPM (its own inputs), with both euphotic-depth relations and default
+    # parameters; rtol 1e-6 as required (both float64; the compiled formula takes
+    # min(Chl / Theta_max, C) for C min(Theta / Theta_max, 1), equal up to rounding).
+    from euphotic.models import SPECS, get_model
+    from euphotic.models._compiled import HAVE_NUMBA
+    from euphotic.models.zeu import CHOICES
+
+    if not HAVE_NUMBA:
+        pytest.skip("numba not installed")
+    model = get_model("cbpm")
+    reference = SPECS["cbpm"].reference
+    rng = np.random.default_rng(2005)
+    n = 200_000
+    chl = np.exp(rng.normal(-1.0, 1.8, n)).astype("f4")
+    chl[::97] = np.nan
+    chl[::89] = 0.0
+    chl[::83] = -0.1
+    chl[::79] = np.inf
+    par = rng.uniform(-1.0, 65.0, n).astype("f4")
+    dl = rng.uniform(0.0, 24.0, n)
+    dl[::7] = 0.0
+    bbp = rng.uniform(-0.0005, 0.02, n)  # spans below the 0.00035 m-1 background and < 0
+    bbp[::61] = np.nan
+    bbp[::101] = 0.00035  # exactly the background: C = 0
+    kd = rng.uniform(-0.01, 0.5, n)
+    kd[::67] = np.nan
+    mld = rng.uniform(-5.0, 400.0, n)
+    mld[::73] = np.nan
+    mld[::103] = np.inf
+    got = model.block(chl, par, dl, bbp, kd, mld, 2.0, 0.00035, 13000.0, zeu_index)
+    want = reference(chl, par, dl, bbp, kd, mld, euphotic_depth=CHOICES[int(zeu_index)])
+    assert got.dtype == np.float64
+    np.testing.assert_array_equal(np.isnan(got), np.isnan(want))
+    # The exact zeros of the rules (no daylight, no PAR, bbp at or below its background) agree.
+    rule_zero = (dl <= 0.0) | (np.isfinite(want) & ((par == 0.0) | (bbp <= 0.00035)))
+    assert (got[rule_zero] == 0.0).all() and (want[rule_zero] == 0.0).all()
+    # atol 1e-9 mg C m-2 d-1 besides rtol 1e-6: under a very deep, turbid mixed layer
+    # (I_g < ~1e-8) 1 - exp(-3 I_g) cancels and the two exp implementations (numba's and
+    # numpy's) may differ by an ulp of 1, i.e. by 100 % of values below ~1e-12 mg C m-2 d-1.
+    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-9, equal_nan=True)
+    assert np.nanmax(np.abs(got - want)[want > 1e-6] / want[want > 1e-6]) < 1e-6
+    # the public function on the compiled path gives the same as the numpy formula
+    np.testing.assert_allclose(cbpm(chl, par, dl, bbp, kd, mld,
+                                    euphotic_depth=CHOICES[int(zeu_index)]), want,
+                               rtol=1e-6, atol=1e-9, equal_nan=True)
+
+
 def test_numpy_kernel_can_be_forced(monkeypatch):
     from euphotic.models import vgpm
 
@@ -427,7 +508,7 @@ def _field(values, dims=("lat", "lon"), units=None, **coords):
                         attrs={"units": units} if units else {})
 
 
-@pytest.mark.parametrize("model", ALL_MODELS)
+@pytest.mark.parametrize("model", [vgpm, eppley_vgpm, pi_platt])
 @pytest.mark.parametrize(
     ("par_units", "per_mol_d"),
     [("W m-2", W_M2_TO_MOL_M2_D), ("W/m^2", W_M2_TO_MOL_M2_D),

@@ -44,6 +44,11 @@ def demo_config(tmp_path_factory) -> Path:
     return base / "configs" / "demo.toml"
 
 
+def _kib(folder: Path, pattern: str) -> str:
+    """Total size of the matching files as the report writes it (KiB, one decimal)."""
+    return f"{sum(p.stat().st_size for p in folder.glob(pattern)) / 1024:.1f} KiB"
+
+
 def test_demo_checks_clean_through_the_cli(demo_config):
     res = _check([demo_config])
     assert res.exit_code == 0, res.output
@@ -86,8 +91,9 @@ def test_demo_checks_clean_through_the_cli(demo_config):
         "  variable:    kd490, identified by standard_name "
         "'volume_attenuation_coefficient_of_downwelling_radiative_flux_in_sea_water'",
         # mixed layer: int16 cm on the 1/4-degree grid, dated by the file name; cm -> m is
-        # x 0.01 (SI prefix centi)
-        "  files:       30 (maren_mld_20250401.nc .. maren_mld_20250430.nc), 668.3 KiB on disk",
+        # x 0.01 (SI prefix centi); its size on disk summed from the files (1 KiB = 1024 B)
+        "  files:       30 (maren_mld_20250401.nc .. maren_mld_20250430.nc), "
+        f"{_kib(ROOT / 'sample_grids' / 'mld', 'maren_mld_*.nc')} on disk",
         "  variable:    mld, identified by standard_name "
         "'ocean_mixed_layer_thickness_defined_by_sigma_theta'",
         "  units:       cm in the file; conversion: cm -> m (x 0.01)",

@@ -4,33 +4,40 @@ Each model module holds a :class:`~euphotic.models._declare.ModelSpec` (its inpu
 parameters with defaults and sources, scalar formula, numpy reference formula and citation keys
 in ``references.bib``); :func:`~euphotic.models._declare.build` makes the public function
 (numpy, dask or xarray in, the same kind out, lazy on dask) and the compiled kernels from it.
-A new model is one new module and one line in :data:`SPECS`.
+A new model is one new module and one line in :data:`REGISTRY`.
 """
 
 from __future__ import annotations
 
+import importlib
 from collections.abc import Iterable, Mapping
 
 import numpy as np
 
-from euphotic.models import eppley_vgpm as _eppley_vgpm
-from euphotic.models import platt as _platt
-from euphotic.models import vgpm as _vgpm
 from euphotic.models._apply import InputMismatchError, check_same_grid
 from euphotic.models._declare import Choice, Input, Model, ModelSpec, Parameter, build
-from euphotic.models.eppley_vgpm import eppley_vgpm, pb_opt_eppley
+from euphotic.models.eppley_vgpm import pb_opt_eppley
 from euphotic.models.morel_berthon import euphotic_depth
-from euphotic.models.platt import pi_platt
-from euphotic.models.vgpm import pb_opt_behrenfeld_falkowski, vgpm
+from euphotic.models.vgpm import pb_opt_behrenfeld_falkowski
 
-#: Model name -> declaration, in the order `euphotic models` lists them.
-SPECS: dict[str, ModelSpec] = {s.name: s for s in (
-    _vgpm.SPEC,
-    _eppley_vgpm.SPEC,
-    _platt.SPEC,
-)}
+#: The registry: one line per model, the module (``euphotic/models/<module>.py``) holding its
+#: declaration ``SPEC`` and its built public function (named as the model), in the order
+#: `euphotic models` lists them.
+REGISTRY: tuple[str, ...] = (
+    "vgpm",
+    "eppley_vgpm",
+    "platt",
+    "cbpm",
+)
 
-_BUILT: dict[str, Model] = {"vgpm": vgpm, "eppley_vgpm": eppley_vgpm, "pi_platt": pi_platt}
+#: Model name -> declaration.
+SPECS: dict[str, ModelSpec] = {}
+_BUILT: dict[str, Model] = {}
+for _module in map(importlib.import_module, (f"{__name__}.{m}" for m in REGISTRY)):
+    SPECS[_module.SPEC.name] = _module.SPEC
+    # the public function, importable as ``from euphotic.models import <model name>``
+    _BUILT[_module.SPEC.name] = globals()[_module.SPEC.name] = getattr(_module, _module.SPEC.name)
+del _module
 
 
 class UnknownModelError(ValueError):
@@ -165,6 +172,7 @@ __all__ = [
     "Parameter",
     "UnknownModelError",
     "build",
+    "cbpm",
     "check_same_grid",
     "citation",
     "eppley_vgpm",
