@@ -46,8 +46,10 @@ ROLES = tuple(roles.ROLES)
 
 #: Resident memory of a run before any grid-sized array: the interpreter with xarray, dask,
 #: netCDF4, pint, shapely/rasterio and the numba-compiled kernels loaded, bytes. Measured:
-#: `euphotic run` on an 8 x 8-cell, one-day config, no figures: 291 MiB (twice).
-BASE_RSS_BYTES = 290 * 2**20
+#: `euphotic run` on an 8 x 8-cell, one-day config, no figures: 291 MiB (twice); re-measured
+#: with the four models' modules and the derived-quantity step's libraries, December 2026, on
+#: a 10 x 10-cell one-month config: 303 MiB with one model, 306 MiB with three.
+BASE_RSS_BYTES = 303 * 2**20
 #: Extra memory of matplotlib and its canvases when figures are drawn, bytes. Measured: the
 #: demo with and without figures, 357 and 311 MiB (the 240 x 264 grid itself adds little).
 FIGURES_BASE_BYTES = 46 * 2**20
@@ -66,6 +68,12 @@ MASK_BYTES_PER_CELL = 3
 #: stored float32 chunk and a float64 copy, 3 x 12, plus the (sum, count) accumulator and the
 #: (mean, coverage) result, 2 x 16); dask frees the inputs as each step is done.
 TASK_BYTES_PER_BLOCK_CELL = 44
+#: Bytes per cell of one spatial block for each model beyond the first (its own accumulator,
+#: result and per-step temporaries in the fused monthly pass, and the inputs only it reads).
+#: Fitted on the demo (one 63,360-cell block, 2 threads, December 2026): 1, 2 and 4 models
+#: (vgpm; + eppley_vgpm; + pi_platt, cbpm) peaked at 416, 434 and 485 MiB, 17.6 and 25.5 MiB a
+#: model, i.e. 73 and 105 B per block cell of the 2 x 2 blocks alive; 90 B taken.
+MODEL_BYTES_PER_BLOCK_CELL = 90
 #: Blocks per thread alive at once: the one being processed and the next one already read
 #: (dask reads ahead of the running task).
 BLOCKS_PER_THREAD = 2
@@ -402,7 +410,7 @@ def _threads() -> int:
 
 def estimate_memory(
     *, cells: int, block_cells: int, threads: int, n_regions: int, figures: bool,
-    overlap_depth: int | None = None,
+    overlap_depth: int | None = None, models: int = 1,
 ) -> dict[str, int]:
     """Peak resident memory of a run on the local threaded scheduler, by part (bytes).
 
@@ -418,11 +426,13 @@ def estimate_memory(
         Regions (the packed bits take 1, 2, 4 or 8 bytes a cell).
     figures : bool
         Whether figures are drawn.
+    models : int
+        Models of the run (each beyond the first adds :data:`MODEL_BYTES_PER_BLOCK_CELL`).
 
     Notes
     -----
-    ``base + cells * (masks) + threads * BLOCKS_PER_THREAD * block_cells * task bytes
-    (+ figures)``; the constants say where each number comes from. It assumes one month per
+    ``base + cells * (masks) + threads * BLOCKS_PER_THREAD * block_cells * (task bytes +
+    (models - 1) * model bytes) (+ figures)``; the constants say where each number comes from. It assumes one month per
     computed graph (``months_per_compute = 1``); more months per graph keep more accumulators
     alive.
     """
@@ -436,6 +446,9 @@ def estimate_memory(
         "masks": cells * (MASK_BYTES_PER_CELL + (bits if n_regions else 0)),
         "tasks": threads * BLOCKS_PER_THREAD * block_cells * TASK_BYTES_PER_BLOCK_CELL,
     }
+    if models > 1:
+        parts["models"] = (threads * BLOCKS_PER_THREAD * block_cells * (models - 1)
+                           * MODEL_BYTES_PER_BLOCK_CELL)
     if figures:
         parts["figures"] = FIGURES_BASE_BYTES + cells * FIGURE_BYTES_PER_CELL
     return parts
@@ -606,7 +619,7 @@ def _estimate(cfg, opened: OpenedInputs, reports, plan, overlap_depth: int | Non
     threads = _threads()
     parts = estimate_memory(cells=cells, block_cells=block, threads=threads,
                             n_regions=len(cfg.regions), figures=cfg.figures,
-                            overlap_depth=overlap_depth)
+                            overlap_depth=overlap_depth, models=len(cfg.models))
     return Estimate(
         cells=cells, days=days, models=len(cfg.models),
         files=sum(len(r.files) for r in reports),
@@ -704,6 +717,9 @@ def format_report(rep: Report) -> str:
             f"tasks {_size(p['tasks'])} ({e.threads} threads x {BLOCKS_PER_THREAD} blocks of "
             f"{e.block_cells:,} cells x {TASK_BYTES_PER_BLOCK_CELL} B)",
         ]
+        if "models" in p:
+            basis.append(f"{e.models - 1} more model(s) {_size(p['models'])} (x "
+                         f"{MODEL_BYTES_PER_BLOCK_CELL} B a block cell)")
         if "figures" in p:
             basis.append(f"figures {_size(p['figures'])}")
         out.append("  basis: " + " + ".join(basis))
