@@ -224,3 +224,58 @@ def total_statistics(total: xr.DataArray, flag: xr.DataArray | None = None,
         coords=coords,
         attrs={"ensemble_models": " ".join(models), "ensemble_size": n, "ensemble_rule": rule},
     )
+
+
+def with_ensemble_mean(totals: xr.Dataset, *, name: str = "ensemble",
+                       dim: str = MODEL_DIM) -> xr.Dataset:
+    """The totals Dataset (``(region, month, model)`` of :func:`euphotic.results.open_totals`
+    or of :func:`euphotic.compare.filled_totals`) with one more entry along ``dim``, ``name``:
+    the mean across the models, so that every comparison made per model is made for the
+    ensemble mean too.
+
+    For the ensemble, each number is the mean of the models' where every model has one (NaN
+    elsewhere), except ``coverage`` (and any ``*_fraction``): the smallest of the models' (the
+    coverage rule then holds for the ensemble as for its weakest member). Text variables
+    (``flag``) get the models' codes, each once. A Dataset with fewer than two models is
+    returned unchanged.
+    """
+    if dim not in totals.dims or totals.sizes[dim] < 2:
+        return totals
+    n = totals.sizes[dim]
+    parts = {}
+    for v, da in totals.data_vars.items():
+        if dim not in da.dims:
+            continue
+        if da.dtype.kind in "USO":
+            da = da.transpose(dim, ...)
+            vals = np.asarray(da.values, dtype=object)
+            joined = np.empty(vals.shape[1:], dtype=object)
+            for idx in np.ndindex(joined.shape):
+                codes = [c for i in range(n) for c in str(vals[(i, *idx)]).split(";") if c]
+                joined[idx] = ";".join(dict.fromkeys(codes))
+            parts[v] = xr.DataArray(joined.astype(str), dims=da.dims[1:])
+        elif v == "coverage" or str(v).endswith("_fraction"):
+            parts[v] = da.min(dim, skipna=False)
+        else:
+            parts[v] = da.mean(dim, skipna=False).where(da.notnull().sum(dim) == n)
+    extra = xr.Dataset(parts).expand_dims({dim: [name]})
+    for v in extra.data_vars:
+        extra[v].attrs = totals[v].attrs
+    out = xr.concat([totals, extra], dim=dim, data_vars="minimal", coords="minimal",
+                    compat="override", join="outer")
+    out = out.assign_coords({dim: np.array([str(m) for m in out[dim].values], dtype=str)})
+    out.attrs = totals.attrs
+    return out
+
+
+def spread(values, axis: int = 0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Mean, minimum and maximum across models along ``axis`` of a numpy array, each NaN
+    where some model has no value (the rule of this module): for lines and bands in figures.
+    """
+    x = np.asarray(values, dtype=np.float64)
+    complete = np.isfinite(x).all(axis=axis)
+    with np.errstate(invalid="ignore"):
+        mean = np.where(complete, x.mean(axis=axis), np.nan)
+        lo = np.where(complete, x.min(axis=axis), np.nan)
+        hi = np.where(complete, x.max(axis=axis), np.nan)
+    return mean, lo, hi
