@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import csv
 import json
+import warnings
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
@@ -43,6 +44,8 @@ TOTALS_KIND = "ensemble totals"
 TOTALS_FILE = "ensemble_totals.csv"
 #: Bumped when a change of the code changes the bytes of ensemble maps for the same members.
 ENSEMBLE_FORMAT = 1
+#: Memory for the statistics of the months computed at once (bytes; this tool's choice).
+BATCH_BYTES = 256 * 2**20
 
 #: What the spread is and is not, carried beside the run's caution.
 ENSEMBLE_NOTE = (
@@ -194,9 +197,10 @@ def month_dataset(stats: xr.Dataset, *, models: Sequence[str], month, time, titl
     return ds
 
 
-def encoding(ds: xr.Dataset) -> dict:
-    """float32 statistics and an int16 count, deflated, chunked like the members' blocks."""
-    blocks = getattr(ds["npp_mean"].data, "chunksize", None)
+def encoding(ds: xr.Dataset, chunks: Sequence[int] | None = None) -> dict:
+    """float32 statistics and an int16 count, deflated, stored in ``chunks`` (the members'
+    chunks) or chunked like the dask blocks."""
+    blocks = chunks or getattr(ds["npp_mean"].data, "chunksize", None)
     if blocks is None or len(blocks) != 3:
         blocks = (1, min(ds.sizes["lat"], 1024), min(ds.sizes["lon"], 1024))
     chunks = (1, blocks[1], blocks[2])
@@ -363,7 +367,7 @@ def add_to_run(cfg, months: Sequence, stage: runfolder.Stage, entries: dict[str,
     ``rows`` are the run's regional totals rows (:func:`euphotic.aggregate.finish_totals`).
     Returns the names of the ensemble's outputs.
     """
-    import dask
+    import dask.array as da
 
     from euphotic.results import _open_map, totals_from_rows
 
@@ -372,7 +376,8 @@ def add_to_run(cfg, months: Sequence, stage: runfolder.Stage, entries: dict[str,
         return []
     out_dir = stage.path.parent
     prev_outputs = previous.get("outputs", {})
-    names, writes, opened = [], [], []
+    names, opened, todo = [], [], []
+    stored = None  # the members' stored chunks
     try:
         for month in months:
             mo = str(np.datetime64(month, "M"))
@@ -391,19 +396,34 @@ def add_to_run(cfg, months: Sequence, stage: runfolder.Stage, entries: dict[str,
             for n in members:
                 ds = _open_map(out_dir / n if n in keep else stage.file(n), {})
                 opened.append(ds)
-                maps.append(ds["npp"])
-            stats = ensemble.map_statistics(
-                xr.concat(maps, dim=ensemble.MODEL_DIM, coords="minimal", compat="override",
-                          join="override").assign_coords({ensemble.MODEL_DIM: models}))
-            ds = month_dataset(stats, models=models, month=mo, time=maps[0]["time"].values[0],
-                               title=cfg.title, command=command, earth=cfg.earth,
-                               members=members, provenance=provenance, metadata=cfg.metadata)
-            writes.append(ds.to_netcdf(stage.file(name), engine="netcdf4",
-                                       encoding=encoding(ds), compute=False,
-                                       unlimited_dims=["time"]))
+                maps.append(ds["npp"].data)
+            todo.append((mo, name, members, ds["time"].values[0], ds["lat"].values,
+                         ds["lon"].values, da.stack(maps)))  # (model, time = 1, lat, lon)
+            stored = stored or ds["npp"].encoding.get("chunksizes")
             entries[name] = entry
-        if writes:
-            dask.compute(*writes)
+        if todo:
+            # the statistics of a batch of months in one computation, held in memory (at
+            # most about BATCH_BYTES), then written: (model, time, lat, lon)
+            _, _, _, _, lat, lon, _ = todo[0]
+            per_month = lat.size * lon.size * (5 * 8 + 2)
+            step = max(1, BATCH_BYTES // per_month)
+            for b in range(0, len(todo), step):
+                part = todo[b: b + step]
+                x = xr.DataArray(da.concatenate([t[-1] for t in part], axis=1),
+                                 dims=(ensemble.MODEL_DIM, "time", "lat", "lon"),
+                                 coords={ensemble.MODEL_DIM: models, "lat": lat, "lon": lon})
+                with warnings.catch_warnings():  # all-NaN cells: NaN, as the rule says
+                    warnings.filterwarnings("ignore", "invalid value encountered",
+                                            RuntimeWarning)
+                    warnings.filterwarnings("ignore", "Degrees of freedom", RuntimeWarning)
+                    stats = ensemble.map_statistics(x).compute()
+                for k, (mo, name, members, time, _, _, _) in enumerate(part):
+                    ds = month_dataset(stats.isel(time=slice(k, k + 1)), models=models,
+                                       month=mo, time=time, title=cfg.title, command=command,
+                                       earth=cfg.earth, members=members,
+                                       provenance=provenance, metadata=cfg.metadata)
+                    ds.to_netcdf(stage.file(name), engine="netcdf4", encoding=encoding(ds, stored),
+                                 unlimited_dims=["time"])
     finally:
         for ds in opened:
             ds.close()

@@ -1343,7 +1343,8 @@ def annual_series(totals: xr.Dataset, *, baseline: tuple[int, int],
                 spreads.append(ax.fill_between(years, e_lo, e_hi, color=SPREAD_COLOUR,
                                                alpha=0.5, lw=0, label="spread across models"))
                 ens_lines.append(ax.plot(years, e_mean, color=ENSEMBLE_COLOUR, lw=1.4,
-                                         zorder=3.5, label=ENSEMBLE_LABEL)[0])
+                                         marker="o", ms=2.5, zorder=3.5,
+                                         label=ENSEMBLE_LABEL)[0])
             else:
                 spreads.append(None)
                 ens_lines.append(None)
