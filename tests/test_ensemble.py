@@ -419,3 +419,24 @@ def test_report_has_the_ensemble_table(two_years):
     stats = results.open_ensemble_totals(out)
     first = f"{stats['mean'].values[0, 0]:,.4f}"
     assert f"<td>{first}</td>" in table and "<td>2 of 2</td>" in table
+
+
+def test_a_changed_member_month_rewrites_only_that_ensemble_map(tmp_path):
+    cfg_path = monthly_case(tmp_path, 2, res=1.0, models=("vgpm", "eppley_vgpm"))
+    run(load_config(cfg_path), progress=False, steps=False)
+    out = tmp_path / "out"
+    before = {n: (e["fingerprint"], os.stat(out / n).st_mtime_ns)
+              for n, e in _manifest(out)["outputs"].items() if e["kind"] == "ensemble map"}
+    chl = tmp_path / "chl" / "c01.nc"  # February's chlorophyll: a new modification time
+    st = chl.stat()
+    os.utime(chl, ns=(st.st_atime_ns, st.st_mtime_ns + 10**9))
+    res = run(load_config(cfg_path), progress=False, steps=False)
+    assert sorted(res.reused) == [("eppley_vgpm", "2023-01"), ("vgpm", "2023-01")]
+    after = {n: (e["fingerprint"], os.stat(out / n).st_mtime_ns)
+             for n, e in _manifest(out)["outputs"].items() if e["kind"] == "ensemble map"}
+    assert after["npp_ensemble_2023-01.nc"] == before["npp_ensemble_2023-01.nc"]  # reused
+    new, old = after["npp_ensemble_2023-02.nc"], before["npp_ensemble_2023-02.nc"]
+    assert new[0] != old[0] and new[1] != old[1]  # its members changed: written again
+    assert ensemble_outputs.fingerprint(
+        [_manifest(out)["outputs"][f"npp_{m}_2023-02.nc"]["fingerprint"]
+         for m in ("vgpm", "eppley_vgpm")], ["vgpm", "eppley_vgpm"]) == new[0]
