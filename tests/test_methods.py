@@ -94,6 +94,10 @@ def test_demo_paragraph_names_models_inputs_earth_and_caution(demo_run):
     # SST on its coarser 1/4-degree grid was interpolated onto the 1/12-degree chlorophyll grid
     assert "sea surface temperature: lat interpolated linearly (0.25 -> 0.0833333 deg)" in flat
     assert "CBM model of Forsythe et al. (1995)" in flat
+    # two models: their ensemble (euphotic.ensemble_outputs) and its rule
+    assert ("The spread across the 2 models is given per cell and month, and per region and "
+            "month of the totals, as their mean, minimum, maximum, standard deviation (divisor "
+            "N - 1) and coefficient of variation, only where every model has a value") in flat
     assert ("on the WGS84 ellipsoid (semi-major axis 6378137.0 m, inverse flattening "
             "298.257223563) (Snyder, 1987).") in flat
     assert "Skerrow Shelf: box [-22.0, 44.0, -15.0, 56.0]" in flat

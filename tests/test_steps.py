@@ -473,7 +473,8 @@ def test_readme_first_command_is_one_line_running_the_decade_demo():
 DECADE_FILES = {
     "regional_totals.csv", "regional_totals.csv-metadata.json", "euphotic_manifest.json",
     "regions.nc", *COMPARE_FILES, *METHODS_FILES, "report.html", "derived_totals.csv",
-    "derived_totals.csv-metadata.json",
+    "derived_totals.csv-metadata.json", "ensemble_totals.csv",
+    "ensemble_totals.csv-metadata.json",
     *(f"fig_{n}.{ext}" for n in ("npp_maps", "npp_difference", "npp_baseline_period_change",
                                   "npp_ratio", "annual_totals", "seasonal_cycle",
                                   "totals_coverage", "monthly_totals")
@@ -492,13 +493,17 @@ def test_decade_demo_with_its_steps(tmp_path):
     man = _consistent(out)
     names = set(os.listdir(out)) - {runfolder.LOCK_NAME}
     maps = {n for n in names if n.startswith("npp_") and n.endswith(".nc")}
-    assert len(maps) == 240  # 2 models x 120 months
+    ensemble = {n for n in maps if n.startswith("npp_ensemble_")}
+    assert len(maps - ensemble) == 240  # 2 models x 120 months
+    assert len(ensemble) == 120  # two models: their ensemble, one map a month
     derived = {n for n in names if n.startswith("derived_") and n.endswith(".nc")}
-    assert derived == {n.replace("npp_", "derived_") for n in maps}  # the [derived] step
+    # the [derived] step: of each model's maps and of the ensemble mean
+    assert derived == {n.replace("npp_", "derived_") for n in maps}
     assert names - maps - derived == DECADE_FILES
     assert set(man["outputs"]) == names - {runfolder.MANIFEST_NAME}
     assert man["months"][0] == "2015-01" and man["months"][-1] == "2024-12"
     assert len(_report_images(out / "report.html")) == 8
     assert "baseline 2015-2019" in res.stdout
     with open(out / "compare_annual_totals.csv") as fh:
-        assert len(fh.read().splitlines()) == 1 + 4 * 10 * 2  # regions x years x models
+        # regions x years x (two models and their ensemble mean)
+        assert len(fh.read().splitlines()) == 1 + 4 * 10 * 3

@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from euphotic import __version__, compare, results, runfolder
+from euphotic import __version__, compare, ensemble, ensemble_outputs, results, runfolder
 from euphotic.errors import EuphoticError
 from euphotic.outputs import CAUTION
 
@@ -175,6 +175,10 @@ def write_comparisons(folder: str | Path, *, baseline: str | None = None,
         src = src.drop_vars([v for v in src.data_vars if str(v).startswith("n_")])
         src.attrs.update(min_coverage=thr, low_coverage=how)
 
+    # several models: the ensemble mean as one more "model" of every table (euphotic.ensemble)
+    members = [str(m) for m in src["model"].values]
+    src = ensemble.with_ensemble_mean(src, name=ensemble_outputs.ENSEMBLE)
+    has_ensemble = len(members) >= 2
     annual = compare.annual_totals(src, variable=var, **rule)
     cycle = compare.seasonal_cycle(src, variable=var, **rule)
     clim = compare.climatology(src, baseline=base, variable=var, **rule)
@@ -195,6 +199,7 @@ def write_comparisons(folder: str | Path, *, baseline: str | None = None,
 
         regions, models = list(src["region"].values), list(src["model"].values)
         rows = []
+        spread = _model_range(annual["total"], members) if has_ensemble else None
         for r in regions:
             for y in annual["year"].values:
                 for m in models:
@@ -202,10 +207,16 @@ def write_comparisons(folder: str | Path, *, baseline: str | None = None,
                     rows.append([r, int(y), m, totals, s["total"].item(), s["total_pg"].item(),
                                  int(s["n_months"].item()), int(s["n_low_coverage"].item()),
                                  str(s["flag"].item())])
+                    if spread is not None:  # the range across models on the ensemble's row
+                        lo, hi = (spread[k].sel(region=r, year=y).item()
+                                  if m == ensemble_outputs.ENSEMBLE else np.nan
+                                  for k in ("min", "max"))
+                        rows[-1] += [lo, hi]
         _write_csv(add("compare_annual_totals.csv", "carbon fixed per region, year and model"),
                    ["region", "year", "model", "totals", "total_TgC_yr-1", "total_PgC_yr-1",
-                    "n_months", "n_low_coverage_months", "flag"],
-                   rows, [-1, -1, -1, -1, 4, 7, -1, -1, -1])
+                    "n_months", "n_low_coverage_months", "flag"]
+                   + (["models_min_TgC_yr-1", "models_max_TgC_yr-1"] if has_ensemble else []),
+                   rows, [-1, -1, -1, -1, 4, 7, -1, -1, -1] + ([4, 4] if has_ensemble else []))
 
         rows = []
         for r in regions:
@@ -307,11 +318,27 @@ def write_comparisons(folder: str | Path, *, baseline: str | None = None,
                     f"{base[0]}-{base[1]}", rule).to_netcdf(
                 add("compare_difference_map.nc", "per-cell difference of mean NPP"))
         readme = add("compare_README.txt", "what the comparison files hold")
-        readme.write_text(_readme(folder, base, later, thr, how, totals))
+        readme.write_text(_readme(folder, base, later, thr, how, totals, members))
     return written
 
 
-def _readme(folder: Path, base, later, min_coverage, low_coverage, totals) -> str:
+def _model_range(values: xr.DataArray, members: list[str]) -> xr.Dataset:
+    """Minimum and maximum across the ``members`` models, where every one has a value."""
+    x = values.sel(model=members)
+    complete = x.notnull().all("model")
+    return xr.Dataset({"min": x.min("model").where(complete),
+                       "max": x.max("model").where(complete)})
+
+
+def _readme(folder: Path, base, later, min_coverage, low_coverage, totals,
+            members: list[str] | None = None) -> str:
+    ens = ("" if not members or len(members) < 2 else
+           f"\nModel \"ensemble\": the mean across the {len(members)} models "
+           f"({' '.join(members)}) of each\n  region-month total, where every model has one "
+           "(its coverage the smallest of theirs);\n  every table has its rows. "
+           "compare_annual_totals.csv gives on its rows the smallest and\n  largest of the "
+           "models' annual totals (models_min_TgC_yr-1, models_max_TgC_yr-1).\n  The spread "
+           "is not an error estimate: the models share inputs and assumptions.")
     filled = ("\ncompare_filled_totals.csv   the region-month totals used here, gap-filled with the\n"
               f"                            {base[0]}-{base[1]} climatology of each cell, with the observed,\n"
               "                            filled and unfilled fractions of the ocean area.\n"
@@ -319,7 +346,7 @@ def _readme(folder: Path, base, later, min_coverage, low_coverage, totals) -> st
     return f"""Comparisons of the run in {folder} (euphotic {__version__},
 {dt.datetime.now(dt.UTC).strftime('%Y-%m-%dT%H:%M:%SZ')}).
 
-Totals used (column "totals"): {totals}: {TOTALS_WORDS[totals]}.
+Totals used (column "totals"): {totals}: {TOTALS_WORDS[totals]}.{ens}
 Coverage rule: {rule_words(min_coverage, low_coverage)}.
   n_low_coverage_* columns count the months below the rule behind each number; flag
   low_coverage: a month below the rule was kept; dropped_low_coverage: it was left out.

@@ -28,7 +28,7 @@ from typing import Any, Literal
 import numpy as np
 import xarray as xr
 
-from euphotic import __version__, compare, results, runfolder
+from euphotic import __version__, compare, ensemble, results, runfolder
 from euphotic.aggregate import FLAG_LOW_COVERAGE
 from euphotic.errors import EuphoticError, NoRunError
 from euphotic.figures import MAX_REGIONS_DRAWN  # more regions than this are not outlined
@@ -73,6 +73,9 @@ DIVERGING_CMAP = "vik"
 LINE_COLOURS = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9")
 #: Band of the spread across models (neutral, so it reads apart from any model's colour).
 SPREAD_COLOUR = "#c8c8c8"
+#: Line of the ensemble mean drawn in the band (near-black: apart from every model colour).
+ENSEMBLE_COLOUR = "#1a1a1a"
+ENSEMBLE_LABEL = "ensemble mean"
 
 #: Outline colours of the regions on maps: the Okabe & Ito (2008) palette of the lines, drawn
 #: with a white halo so that they read on every colour of the colour maps.
@@ -1332,13 +1335,19 @@ def annual_series(totals: xr.Dataset, *, baseline: tuple[int, int],
     inbase = (years >= baseline[0]) & (years <= baseline[1])
     with plt.rc_context(_rc()):
         fig, axes = _panel_grid(len(regions), width, 1.35)
+        spreads, ens_lines = [], []
         for ax, r in zip(axes, regions, strict=True):
             tr = t.sel(region=r)
-            if len(models) > 1:
-                with np.errstate(all="ignore"):
-                    ax.fill_between(years, tr.min("model").values, tr.max("model").values,
-                                    color=SPREAD_COLOUR, alpha=0.5, lw=0,
-                                    label="spread across models")
+            if len(models) > 1:  # the band and the ensemble mean where every model has one
+                e_mean, e_lo, e_hi = ensemble.spread(tr.transpose("model", "year").values)
+                spreads.append(ax.fill_between(years, e_lo, e_hi, color=SPREAD_COLOUR,
+                                               alpha=0.5, lw=0, label="spread across models"))
+                ens_lines.append(ax.plot(years, e_mean, color=ENSEMBLE_COLOUR, lw=1.4,
+                                         marker="o", ms=2.5, zorder=3.5,
+                                         label=ENSEMBLE_LABEL)[0])
+            else:
+                spreads.append(None)
+                ens_lines.append(None)
             for i, m in enumerate(models):
                 col = LINE_COLOURS[i % len(LINE_COLOURS)]
                 v = tr.sel(model=m).values
@@ -1369,11 +1378,12 @@ def annual_series(totals: xr.Dataset, *, baseline: tuple[int, int],
         f"basin is not drawn beside its sub-regions). Years with fewer than 12 months of "
         f"data are left out. Dashed lines and shaded boxes over the baseline years: mean and "
         f"range (minimum to maximum) of the {_span_text(baseline)} baseline, in each model's "
-        f"colour" + ("; grey band: spread across models (minimum to maximum)."
-                     if len(models) > 1 else ".")
+        f"colour" + (f"; black line: the ensemble mean of the {len(models)} models, and grey "
+                     "band around it: their spread (minimum to maximum), both only in years "
+                     "where every model has a total." if len(models) > 1 else ".")
     )
     return Drawn("fig_annual_totals", fig, "Annual carbon fixed by region", caption,
-                 {"axes": axes})
+                 {"axes": axes, "spread": spreads, "ensemble_mean": ens_lines})
 
 
 def seasonal_figure(totals: xr.Dataset, *, period: tuple[int, int],
@@ -1672,7 +1682,7 @@ def monthly_series(totals: xr.Dataset, *, baseline: tuple[int, int],
     B = _span_text(baseline)
     with plt.rc_context(_rc()):
         fig, axes, _ = _region_grid(len(regions), width, 1.35, strip=False)
-        clims, spreads, marks = [], [], []
+        clims, spreads, marks, ens_lines = [], [], [], []
         for ax, r in zip(axes, regions, strict=True):
             c = clim.sel(region=r)
             cm = c["calendar_month"].values.astype(int) - 1
@@ -1683,14 +1693,15 @@ def monthly_series(totals: xr.Dataset, *, baseline: tuple[int, int],
                                          zorder=0))
             ax.plot(x, mean[cal], color=CLIMATOLOGY_LINE, lw=0.7, ls="--", zorder=1)
             tr = t["total"].sel(region=r).transpose("model", "month").values
-            if len(models) > 1:
-                with warnings.catch_warnings():  # a month without any model: no band there
-                    warnings.simplefilter("ignore", RuntimeWarning)
-                    spreads.append(ax.fill_between(x, np.nanmin(tr, axis=0),
-                                                   np.nanmax(tr, axis=0), color=SPREAD_COLOUR,
-                                                   alpha=0.45, lw=0, zorder=2))
+            if len(models) > 1:  # the band and the ensemble mean where every model has one
+                e_mean, e_lo, e_hi = ensemble.spread(tr)
+                spreads.append(ax.fill_between(x, e_lo, e_hi, color=SPREAD_COLOUR,
+                                               alpha=0.45, lw=0, zorder=2))
+                ens_lines.append(ax.plot(x, e_mean, color=ENSEMBLE_COLOUR, lw=1.4, zorder=3.5,
+                                         label=ENSEMBLE_LABEL)[0])
             else:
                 spreads.append(None)
+                ens_lines.append(None)
             lo = low.sel(region=r).transpose("model", "month").values
             xs, ys = [], []
             for j, m in enumerate(models):
@@ -1721,7 +1732,9 @@ def monthly_series(totals: xr.Dataset, *, baseline: tuple[int, int],
         f"Monthly net primary production per region: carbon fixed per month over the observed "
         f"cells (Tg C month-1), {_span_text(span)}, one line per model "
         f"({', '.join(names[m] for m in models)})"
-        + ("; grey band: spread across models (lowest to highest)" if len(models) > 1 else "")
+        + (f"; black line: the ensemble mean of the {len(models)} models, and grey band "
+           "around it: their spread (lowest to highest), both only in months where every model "
+           "has a total" if len(models) > 1 else "")
         + f". Shaded behind: the {B} baseline's monthly climatology (range, minimum to maximum "
           f"by calendar month; dashed: mean) of the "
         + ("mean across models" if len(models) > 1 else "model")
@@ -1731,7 +1744,8 @@ def monthly_series(totals: xr.Dataset, *, baseline: tuple[int, int],
     )
     return Drawn("fig_monthly_totals", fig, f"Monthly carbon fixed by region, "
                  f"{_span_text(span)}", caption,
-                 {"axes": axes, "climatology": clims, "spread": spreads, "low_marks": marks})
+                 {"axes": axes, "climatology": clims, "spread": spreads, "low_marks": marks,
+                  "ensemble_mean": ens_lines})
 
 
 # --------------------------------------------------------------------------------------------

@@ -423,6 +423,15 @@ def methods_text(folder: str | os.PathLike) -> Methods:
             "Regional totals (Tg C per month) integrate the monthly rate over the observed ocean "
             "cells (total_TgC); total_filled_TgC scales the observed area-mean rate to the "
             "region's whole ocean area.")
+    ens = [e for e in manifest["outputs"].values() if e.get("kind") == "ensemble map"]
+    if ens:
+        n = len(ens[0].get("models") or manifest.get("models", []))
+        sentences.append(
+            f"The spread across the {n} models is given per cell and month, and per region and "
+            "month of the totals, as their mean, minimum, maximum, standard deviation (divisor "
+            "N - 1) and coefficient of variation, only where every model has a value (for the "
+            "totals, only where no model's total is flagged); it shows the dependence on the "
+            "choice of model, not an error estimate.")
     from euphotic.results import manifest_coverage_rule
 
     min_cov, low, _ = manifest_coverage_rule(manifest)

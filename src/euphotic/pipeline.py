@@ -76,6 +76,8 @@ class RunResult:
     manifest: Path | None = None
     #: what the steps after the run added (euphotic.steps.Done, in order)
     steps: list = field(default_factory=list)
+    #: the ensemble's outputs (maps, table, metadata) of a run of two or more models
+    ensemble: list[Path] = field(default_factory=list)
 
 
 def prepare(cfg: RunConfig) -> Prepared:
@@ -570,6 +572,15 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
     entries[totals.name] = {"kind": "table", **runfolder.stat_entry(totals)}
     entries[sidecar.name] = {"kind": "table metadata", "of": totals.name, **runfolder.stat_entry(sidecar)}
     _region_file(cfg, prep, stage, entries, keep, {} if force else previous, provenance)
+    # two or more models: their spread (npp_ensemble_YYYY-MM.nc, ensemble_totals.csv)
+    from euphotic import ensemble_outputs
+
+    with _writing(out_dir, "the ensemble of the models"):
+        ensemble = ensemble_outputs.add_to_run(
+            cfg, prep.months, stage, entries, keep, {} if force else previous,
+            map_names={(m, str(np.datetime64(mo, "M"))): n for (m, mo), n in zip(
+                order, map_names, strict=True)},
+            rows=rows, command=command, provenance=provenance)
 
     figures: list[Path] = []
     prev_outputs = previous.get("outputs", {})
@@ -632,4 +643,5 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
         rows=rows,
         figures=figures,
         manifest=out_dir / runfolder.MANIFEST_NAME,
+        ensemble=[out_dir / n for n in ensemble],
     )

@@ -80,6 +80,7 @@ _PAGE = Template("""<!DOCTYPE html>
 <p class="caution" id="caution">Caution: $caution</p>
 <h2>Regional totals</h2>
 $totals
+$ensemble
 $comparisons
 $derived
 $matchups
@@ -166,6 +167,45 @@ def totals_table(totals) -> str:
         return (f"<details><summary>{len(rows):,} rows (region, month, model): click to "
                 f"show</summary>\n{table}\n</details>")
     return table
+
+
+def ensemble_table(stats, models: list[str]) -> str:
+    """The section "Spread across models": the statistics across models of the regional
+    totals as an HTML table (``stats``: :func:`euphotic.results.open_ensemble_totals`)."""
+    from euphotic.ensemble_outputs import ENSEMBLE_NOTE, TOTALS_FILE
+
+    units = stats["mean"].attrs.get("units", "Tg")
+    head = (['<th class="text">region</th>', '<th class="text">month</th>',
+             "<th>models with a total</th>"]
+            + [f"<th>{_e(w)} ({_e(units)})</th>" for w in ("mean", "minimum", "maximum",
+                                                            "standard deviation")]
+            + ["<th>coefficient of variation</th>", '<th class="text">lowest</th>',
+               '<th class="text">highest</th>', '<th class="text">flag</th>'])
+    rows = []
+    for i, r in enumerate(stats["region"].values):
+        for j, mo in enumerate(stats["month"].values):
+            def v(name, i=i, j=j):
+                return stats[name].values[i, j]
+            cells = [f'<td class="text">{_e(r)}</td>',
+                     f'<td class="text">{_e(str(np.datetime64(mo, "M")))}</td>',
+                     f"<td>{int(v('n_models'))} of {len(models)}</td>"]
+            cells += [f"<td>{_e(_cell(float(v(k)), 4))}</td>" for k in ("mean", "min", "max",
+                                                                       "std")]
+            cells.append(f"<td>{_e(_cell(float(v('cv')), 3))}</td>")
+            cells += [f'<td class="text">{_e(v(k))}</td>' for k in ("min_model", "max_model")]
+            cells.append(f'<td class="flag">{_e(v("flag"))}</td>')
+            rows.append("<tr>" + "".join(cells) + "</tr>")
+    table = ('<div class="wide"><table id="ensemble">\n<thead><tr>' + "".join(head)
+             + "</tr></thead>\n<tbody>\n" + "\n".join(rows) + "\n</tbody>\n</table></div>")
+    if len(rows) > LONG_TABLE_ROWS:
+        table = (f"<details><summary>{len(rows):,} rows (region, month): click to show"
+                 f"</summary>\n{table}\n</details>")
+    return ("<h2>Spread across models</h2>\n"
+            f"<p>Regional totals of carbon fixed in the month across the {len(models)} models "
+            f"({_e(', '.join(models))}), from <code>{TOTALS_FILE}</code>: given only where every "
+            "model has a total and no model's row is flagged (the flag says which model is "
+            "missing or flagged); standard deviation with divisor N - 1. "
+            f"{_e(ENSEMBLE_NOTE)}</p>\n{table}")
 
 
 def _csv_table(path: Path, name: str) -> str:
@@ -333,6 +373,10 @@ def render(folder: str | Path, *, outputs: dict[str, dict] | None = None,
         def locate(name: str) -> Path:
             return folder / name
     totals = results.open_totals(folder)
+    ensemble = ""
+    if any(e.get("kind") == results.ENSEMBLE_TOTALS_KIND for e in outputs.values()):
+        stats = results.open_ensemble_totals(folder)
+        ensemble = ensemble_table(stats, stats.attrs["ensemble_models"].split())
     comp = sorted(n for n, e in outputs.items()
                   if e.get("kind") == COMPARISON_KIND and n.endswith(".csv"))
     comparisons = ""
@@ -352,7 +396,7 @@ def render(folder: str | Path, *, outputs: dict[str, dict] | None = None,
     page = _PAGE.substitute(
         css=_CSS, run_id=_e(manifest.get("run_id", "")), created=_e(manifest.get("created", "")),
         version=_e(manifest.get("version", "")), caution=_e(manifest.get("caution") or CAUTION),
-        totals=totals_table(totals), comparisons=comparisons, derived=derived, matchups=matchups, figures=figures, methods=methods,
+        totals=totals_table(totals), ensemble=ensemble, comparisons=comparisons, derived=derived, matchups=matchups, figures=figures, methods=methods,
         provenance=_provenance(manifest), tool_version=_e(__version__),
         now=_e(runfolder.now_iso()))
     return page, n_images

@@ -490,6 +490,18 @@ def open_totals(folder: str | os.PathLike) -> xr.Dataset:
         [m for m in manifest.get("models", []) if any(e["model"] == m for _, e in entries)]
         + [e["model"] for _, e in entries]))
     month_list = sorted({_month(e["month"]) for _, e in entries})
+    out = totals_from_rows(rows, models, month_list)
+    out.attrs = _run_attrs(path, manifest, models, {m: _citation(m) for m in models})
+    return out
+
+
+def totals_from_rows(rows: list[dict], models: list[str], months: list | None = None
+                     ) -> xr.Dataset:
+    """The ``(region, month, model)`` totals Dataset of :func:`open_totals` (without its run
+    attributes) from totals rows (:func:`euphotic.aggregate.finish_totals`; missing numbers
+    None or NaN). ``months``: the months to hold (default: those of the rows)."""
+    month_list = sorted({_month(m) for m in months} if months is not None
+                        else {_month(r["month"]) for r in rows})
     regions = list(dict.fromkeys(r["region"] for r in rows))
     ri = {r: i for i, r in enumerate(regions)}
     mi = {m: i for i, m in enumerate(month_list)}
@@ -500,6 +512,8 @@ def open_totals(folder: str | os.PathLike) -> xr.Dataset:
     values = {c: np.full(shape, np.nan) for c in numeric}
     flags = np.full(shape, "", dtype=object)
     for r in rows:
+        if r["model"] not in di:
+            continue
         at = (ri[r["region"]], mi[_month(r["month"])], di[r["model"]])
         for c in numeric:
             v = r.get(c)
@@ -518,7 +532,6 @@ def open_totals(folder: str | os.PathLike) -> xr.Dataset:
                  for c in numeric}
     data_vars["flag"] = (("region", "month", "model"), flags.astype(str), attrs("flag"))
     first, ndays = _month_coords(month_list)
-    cites = {m: _citation(m) for m in models}
     return xr.Dataset(
         data_vars,
         coords={
@@ -528,8 +541,145 @@ def open_totals(folder: str | os.PathLike) -> xr.Dataset:
             "days_in_month": ("month", ndays, {"long_name": "number of days of the month",
                                                "units": "1"}),
         },
-        attrs=_run_attrs(path, manifest, models, cites),
     )
+
+
+# --------------------------------------------------------------------------------------------
+# the ensemble of a run of several models
+# --------------------------------------------------------------------------------------------
+
+#: Variables of an ensemble map file (:mod:`euphotic.ensemble_outputs`).
+ENSEMBLE_VARIABLES = ("npp_mean", "npp_min", "npp_max", "npp_std", "npp_cv", "n_models")
+#: The ensemble where a model id goes, and the manifest kinds of its outputs.
+ENSEMBLE = "ensemble"
+ENSEMBLE_MAP_KIND = "ensemble map"
+ENSEMBLE_TOTALS_KIND = "ensemble totals"
+
+
+class NoEnsembleError(ResultsError):
+    """The run has no ensemble (it ran a single model)."""
+
+
+def _no_ensemble(path: Path, manifest: dict) -> NoEnsembleError:
+    ran = ", ".join(manifest.get("models", [])) or "no model"
+    return NoEnsembleError(f"{path}: the run has no ensemble outputs (an ensemble needs two or "
+                           f"more models; it ran {ran})")
+
+
+def open_ensemble_maps(folder: str | os.PathLike, *, months: Iterable | None = None,
+                       chunks: dict | None = None) -> xr.Dataset:
+    """The ensemble maps of the run committed in ``folder`` as one lazy Dataset.
+
+    Parameters
+    ----------
+    folder : the run's output folder
+    months : months to include, ``"YYYY-MM"`` or datetime64 (default: all)
+    chunks : dask chunks per file (default: the files' own)
+
+    Returns
+    -------
+    xarray.Dataset
+        Dimensions ``(time, lat, lon)``: ``npp_mean``, ``npp_min``, ``npp_max``, ``npp_std``
+        (float32, mg m-2 d-1 of carbon), ``npp_cv`` (float32, 1) and ``n_models`` (int16),
+        with the coordinates of :func:`open_maps` (``time``, ``month``, ``days_in_month``,
+        ``lat``, ``lon``). Attributes as :func:`open_maps` for the members, and
+        ``ensemble_models``, ``ensemble_rule``.
+
+    Raises
+    ------
+    NoEnsembleError
+        The run has no ensemble maps (one model).
+    SelectionError
+        A requested month that the ensemble does not have.
+    NoRunError, InterruptedCommitError, OutputChangedError
+        As :func:`open_maps`; every ensemble map is checked against the manifest.
+    """
+    path = Path(folder).absolute()
+    manifest = committed_manifest(path)
+    entries = sorted(((n, e) for n, e in manifest["outputs"].items()
+                      if e.get("kind") == ENSEMBLE_MAP_KIND), key=lambda x: x[1]["month"])
+    if not entries:
+        raise _no_ensemble(path, manifest)
+    if months is not None:
+        wanted = {_month(m) for m in ([months] if isinstance(months, str) else months)}
+        have = {_month(e["month"]) for _, e in entries}
+        unknown = [str(m) for m in sorted(wanted) if m not in have]
+        if unknown:
+            raise SelectionError(
+                f"{path}: no ensemble maps of month(s) {', '.join(unknown)} in this run (it "
+                f"has {', '.join(str(m) for m in sorted(have))})")
+        entries = [(n, e) for n, e in entries if _month(e["month"]) in wanted]
+    files = []
+    try:
+        for name, e in entries:
+            p = _check_output(path, name, e)
+            try:
+                ds = xr.open_dataset(p, engine="netcdf4", chunks={} if chunks is None else chunks,
+                                     drop_variables=_SKIP_VARIABLES, decode_timedelta=False)
+            except (OSError, ValueError, KeyError) as exc:
+                raise OutputChangedError(f"{p}: cannot be opened as an ensemble map "
+                                         f"({exc.__class__.__name__})") from None
+            files.append(ds)
+            missing = [v for v in ENSEMBLE_VARIABLES if v not in ds.variables]
+            if missing:
+                raise OutputChangedError(f"{p}: not a euphotic ensemble map (no "
+                                         f"{', '.join(missing)})")
+        out = xr.concat([ds[list(ENSEMBLE_VARIABLES)] for ds in files], dim="time",
+                        coords="minimal", compat="override", join="override")
+    except BaseException:
+        for ds in files:
+            ds.close()
+        raise
+    first, ndays = _month_coords([_month(e["month"]) for _, e in entries])
+    out = out.assign_coords(
+        month=("time", first, {"long_name": "first day of the month"}),
+        days_in_month=("time", ndays, {"long_name": "number of days of the month",
+                                       "units": "1"}))
+    for v in out.data_vars.values():
+        v.attrs.pop("grid_mapping", None)
+    for c in ("time", "lat", "lon"):
+        out[c].attrs.pop("bounds", None)
+    models = list(entries[0][1].get("models") or manifest.get("models", []))
+    attrs = _run_attrs(path, manifest, models, {m: _citation(m) for m in models})
+    attrs["ensemble_models"] = " ".join(models)
+    attrs["ensemble_rule"] = files[0].attrs.get("ensemble_rule", "")
+    out.attrs = attrs
+    return out
+
+
+def open_ensemble_totals(folder: str | os.PathLike) -> xr.Dataset:
+    """The statistics across models of the regional totals of the run committed in
+    ``folder``, at full precision (``ensemble_totals.csv`` prints them rounded).
+
+    Returns
+    -------
+    xarray.Dataset
+        Dimensions ``(region, month)``: ``mean``, ``min``, ``max``, ``std`` (Tg of carbon
+        fixed in the month), ``cv`` (1), ``n_models``, ``min_model``, ``max_model`` and
+        ``flag``, as :func:`euphotic.ensemble.total_statistics` makes them from
+        :func:`open_totals`. Attributes as :func:`open_totals`, and ``ensemble_models``,
+        ``ensemble_rule``.
+
+    Raises
+    ------
+    NoEnsembleError
+        The run has no ensemble totals (one model, or no regions).
+    """
+    from euphotic.ensemble import total_statistics
+
+    path = Path(folder).absolute()
+    manifest = committed_manifest(path)
+    entry = next((e for e in manifest["outputs"].values()
+                  if e.get("kind") == ENSEMBLE_TOTALS_KIND), None)
+    if entry is None:
+        raise _no_ensemble(path, manifest)
+    totals = open_totals(path)
+    models = [m for m in entry.get("models", []) if m in totals["model"].values] or None
+    if models is not None:
+        totals = totals.sel(model=models)
+    stats = total_statistics(totals["total"], totals["flag"], totals["observed_area"])
+    stats.attrs = {**totals.attrs, **stats.attrs}
+    return stats
 
 
 # --------------------------------------------------------------------------------------------
