@@ -360,7 +360,7 @@ def test_demo_cbpm_within_a_factor_two_of_the_vgpm(tmp_path):
     shutil.copytree(ROOT / "configs", tmp_path / "configs")
     (tmp_path / "sample_grids").symlink_to(ROOT / "sample_grids")
     cfg_path = tmp_path / "configs" / "demo.toml"
-    old = 'models = ["vgpm", "eppley_vgpm"]'
+    old = 'models = ["vgpm", "eppley_vgpm", "pi_platt", "cbpm"]'
     text = cfg_path.read_text()
     assert old in text
     cfg_path.write_text(text.replace(old, 'models = ["vgpm", "cbpm"]\nfigures = false'))

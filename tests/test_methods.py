@@ -95,7 +95,7 @@ def test_demo_paragraph_names_models_inputs_earth_and_caution(demo_run):
     assert "sea surface temperature: lat interpolated linearly (0.25 -> 0.0833333 deg)" in flat
     assert "CBM model of Forsythe et al. (1995)" in flat
     # two models: their ensemble (euphotic.ensemble_outputs) and its rule
-    assert ("The spread across the 2 models is given per cell and month, and per region and "
+    assert ("The spread across the 4 models is given per cell and month, and per region and "
             "month of the totals, as their mean, minimum, maximum, standard deviation (divisor "
             "N - 1) and coefficient of variation, only where every model has a value") in flat
     assert ("on the WGS84 ellipsoid (semi-major axis 6378137.0 m, inverse flattening "
@@ -103,7 +103,8 @@ def test_demo_paragraph_names_models_inputs_earth_and_caution(demo_run):
     assert "Skerrow Shelf: box [-22.0, 44.0, -15.0, 56.0]" in flat
     assert "Ocean cells: from the land mask ../sample_grids/masks.nc variable 'land'." in flat
     assert flat.endswith("Caution: " + CAUTION)
-    assert m.keys == ("behrenfeld1997", "morel1989", "eppley1972", "forsythe1995", "snyder1987")
+    assert m.keys == ("behrenfeld1997", "morel1989", "eppley1972", "platt1988", "platt1990",
+                      "platt1980", "behrenfeld2005", "forsythe1995", "snyder1987")
 
 
 def test_demo_references_are_exactly_the_cited_works(demo_run):
@@ -119,13 +120,13 @@ def test_demo_references_are_exactly_the_cited_works(demo_run):
             [str(p) for p in bib.entries[k].persons["author"]]
     # text list: one line per cited work, alphabetical; each cited author-year is in the text
     lines = m.references_text.splitlines()
-    assert len(lines) == len(m.keys) == 5
+    assert len(lines) == len(m.keys) == 9
     assert lines == sorted(lines, key=str.lower)
     assert lines[0] == ("Behrenfeld, M. J. and Falkowski, P. G. (1997). Photosynthetic rates "
                         "derived from satellite-based chlorophyll concentration. Limnology and "
                         "Oceanography 42(1), 1-20.")
-    assert lines[3].startswith("Morel, A. and Berthon, J.-F. (1989). Surface pigments")
-    assert lines[4] == ("Snyder, J. P. (1987). Map Projections: A Working Manual. U.S. Geological "
+    assert lines[4].startswith("Morel, A. and Berthon, J.-F. (1989). Surface pigments")
+    assert lines[8] == ("Snyder, J. P. (1987). Map Projections: A Working Manual. U.S. Geological "
                         "Survey Professional Paper 1395.")
     flat = " ".join(m.text.split())
     for k in m.keys:  # cited in the paragraph, as "Eppley (1972)" or "(Snyder, 1987)"

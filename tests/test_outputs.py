@@ -429,14 +429,15 @@ def test_totals_csv_formats_per_column(demo_run):
     with open(demo_run / "regional_totals.csv", newline="") as fh:
         rows = list(csv.reader(fh))
     assert rows[0] == TOTALS_COLUMNS
-    assert len(rows) == 1 + 4 * 2  # 4 regions (one GeoJSON feature) x 2 models, one month
+    assert len(rows) == 1 + 4 * 4  # 4 regions (one GeoJSON feature) x 4 models, one month
     for row in rows[1:]:
         for name, cell in zip(TOTALS_COLUMNS, row, strict=True):
             assert re.fullmatch(CELL_PATTERNS[name], cell), (name, cell)
         # every demo region has ocean and data; the low-coverage flag follows the run's
         # min_coverage (default 0.5) on the region's coverage as written
         assert row[-1] == ("low_coverage" if float(row[6]) < 0.5 else ""), row
-    assert sum(r[-1] == "low_coverage" for r in rows[1:]) == 2  # Tollan Bank, 21 % of days
+    # Tollan Bank, 21 % of days, for each of the 4 models
+    assert sum(r[-1] == "low_coverage" for r in rows[1:]) == 4
 
 
 def test_flags_empty_cells_and_warnings_never_a_silent_zero(tmp_path):

@@ -96,7 +96,8 @@ def _csv(folder: Path) -> list[dict]:
 def test_demo_maps_open_as_the_schema_says(demo_run):
     ds = open_maps(demo_run)
     assert list(ds.npp.dims) == ["model", "time", "lat", "lon"]
-    assert list(ds.model.values) == ["vgpm", "eppley_vgpm"]  # configs/demo.toml order
+    # configs/demo.toml order
+    assert list(ds.model.values) == ["vgpm", "eppley_vgpm", "pi_platt", "cbpm"]
     assert ds.time.dtype == np.dtype("datetime64[ns]")
     assert list(ds.month.values) == [np.datetime64("2025-04-01", "ns")]
     assert ds.days_in_month.dims == ("time",) and list(ds.days_in_month.values) == [30]
@@ -107,7 +108,7 @@ def test_demo_maps_open_as_the_schema_says(demo_run):
     assert ds.attrs["euphotic_folder"] == str(demo_run.absolute())
     assert ds.attrs["citation_vgpm"] == CITATIONS["vgpm"]
     assert ds.attrs["citation_eppley_vgpm"] == CITATIONS["eppley_vgpm"]
-    for model in ("vgpm", "eppley_vgpm"):
+    for model in ("vgpm", "eppley_vgpm", "pi_platt", "cbpm"):
         f = demo_run / f"npp_{model}_2025-04.nc"
         assert ds.time.values[0] == _nc_time(f)
         with netCDF4.Dataset(f) as nc:
@@ -128,7 +129,7 @@ def test_demo_totals_equal_the_csv_and_the_manifest_rows(demo_run):
     assert tot.mean_npp.dims == ("region", "month", "model")
     assert list(tot.region.values) == ["Skerrow Shelf", "Outer Maren Gyre", "Tollan Bank",
                                        "Whole Maren Sea"]
-    assert list(tot.model.values) == ["vgpm", "eppley_vgpm"]
+    assert list(tot.model.values) == ["vgpm", "eppley_vgpm", "pi_platt", "cbpm"]
     assert list(tot.month.values) == [np.datetime64("2025-04-01", "ns")]
     assert list(tot.days_in_month.values) == [30]
     units = {v: tot[v].attrs.get("units") for v in tot.data_vars}

@@ -201,9 +201,7 @@ SPEC = ModelSpec(
              "chlorophyll-to-carbon ratio Theta = Chl / C and the median mixed-layer light "
              "I_g = (E0 / D) exp(-Kd(490) MLD / 2), with Theta_max = 0.022 + 0.023 exp(-3 I_g), "
              "and NPP = C mu Z_eu 0.66125 E0 / (E0 + 4.1), the depth shape of the VGPM of "
-             "{behrenfeld1997}, with Z_eu from surface chlorophyll after {euphotic_depth} "
-             "(s = 13000 mg C m-2, b0 = 0.00035 m-1 and mu_max = 2 d-1 unless the maps' "
-             "model_parameters attribute records other values)"),
+             "{behrenfeld1997}, with Z_eu from surface chlorophyll after {euphotic_depth}"),
     summary=("Carbon-based Production Model: phytoplankton carbon from backscattering at "
              "443 nm, growth rate from the chlorophyll-to-carbon ratio relative to its "
              "light-acclimated maximum and the median light of the mixed layer (from daily PAR, "
