@@ -203,6 +203,7 @@ def test_numpy_xarray_dask_agree_and_dask_stays_lazy(no_compute):
 
 #: What `euphotic derive` adds to the demo folder (two models, April 2025).
 DEMO_FILES = {"derived_vgpm_2025-04.nc", "derived_eppley_vgpm_2025-04.nc",
+              "derived_pi_platt_2025-04.nc", "derived_cbpm_2025-04.nc",
               "derived_ensemble_2025-04.nc", "derived_totals.csv",
               "derived_totals.csv-metadata.json"}
 #: Variables of a derived map with the default options.
@@ -291,8 +292,8 @@ def test_derived_totals_match_the_runs_carbon_totals(derived_demo):
     tot = open_totals(out)
     rows = _read_csv(out / "derived_totals.csv")
     assert list(rows[0]) == list(do.TOTALS_COLUMNS)
-    # 4 regions x (2 models and their ensemble mean) x (3 export methods + N + P + O2)
-    assert len(rows) == 4 * 3 * 6
+    # 4 regions x (4 models and their ensemble mean) x (3 export methods + N + P + O2)
+    assert len(rows) == 4 * 5 * 6
     by = {(r["region"], r["model"], r["quantity"]): r for r in rows}
     for region in tot["region"].values:
         for model in tot["model"].values:
@@ -405,8 +406,8 @@ def test_the_report_gets_a_section_side_by_side(demo_copy):
                     "export, Laws et al. (2011) (Tg C)", "export, Dunne et al. (2005) (Tg C)",
                     "export, Henson et al. (2011) (Tg C)", "N demand (Tg N)",
                     "P demand (Tg P)", "O2 production (Tg O2)"]
-    # regions x (2 models and their ensemble mean)
-    assert len(body) == 4 * 3 and all(r[1] == "2025" and r[3] == 1 for r in body)
+    # regions x (4 models and their ensemble mean)
+    assert len(body) == 4 * 5 and all(r[1] == "2025" and r[3] == 1 for r in body)
     for h in head:
         assert h in page
 
@@ -488,7 +489,7 @@ def test_bad_derived_key_one_line_exit_1(demo_copy, table, problem):
     (["--quotient", "0.2"], '--quotient: expected "ammonium", "nitrate" or a number between '
                             "0.5 and 3 (mol O2 per mol C), not '0.2'"),
     (["--model", "cafe"], "--model: {out}: no maps of model(s) cafe in this run (it has vgpm, "
-                          "eppley_vgpm)"),
+                          "eppley_vgpm, pi_platt, cbpm)"),
 ])
 def test_bad_options_one_line_exit_1_folder_unchanged(demo_copy, args, message):
     cfg, out = demo_copy
@@ -571,7 +572,7 @@ def test_run_with_a_derived_table_adds_the_step(tmp_path):
 
 
 def test_the_ensemble_is_derived_when_the_run_has_one(demo_copy):
-    """The demo runs two models, so it has ensemble maps (kind "ensemble map", opened by
+    """The demo runs four models, so it has ensemble maps (kind "ensemble map", opened by
     results.open_ensemble_maps): they get derived maps of the ensemble mean too."""
     import json
 
@@ -582,18 +583,18 @@ def test_the_ensemble_is_derived_when_the_run_has_one(demo_copy):
     res = _derive(cfg, "--export", "henson2011", "-q")
     assert res.exit_code == 0, res.output
     names = {p.name for p in out.iterdir() if p.name.startswith("derived_")}
-    assert "derived_ensemble_2025-04.nc" in names and len(names) == 5
-    with xr.open_dataset(out / "derived_ensemble_2025-04.nc") as e, \
-            xr.open_dataset(out / "derived_vgpm_2025-04.nc") as a, \
-            xr.open_dataset(out / "derived_eppley_vgpm_2025-04.nc") as b:
+    assert "derived_ensemble_2025-04.nc" in names and len(names) == 7
+    members = []
+    for m in ("vgpm", "eppley_vgpm", "pi_platt", "cbpm"):
+        with xr.open_dataset(out / f"derived_{m}_2025-04.nc") as d:
+            members.append(d["nitrogen_demand"].values.astype(float))
+    with xr.open_dataset(out / "derived_ensemble_2025-04.nc") as e:
         # N demand is linear in production: the ensemble's is the mean of the members'
         # (float32 maps: to float32 rounding)
-        np.testing.assert_allclose(e["nitrogen_demand"].values,
-                                   (a["nitrogen_demand"].values.astype(float)
-                                    + b["nitrogen_demand"].values) / 2, rtol=2e-6)
+        np.testing.assert_allclose(e["nitrogen_demand"].values, sum(members) / 4, rtol=2e-6)
         assert "ensemble mean of the run's models" in e.attrs["summary"]
     rows = _read_csv(out / "derived_totals.csv")
-    assert {r["model"] for r in rows} == {"vgpm", "eppley_vgpm", "ensemble"}
+    assert {r["model"] for r in rows} == {"vgpm", "eppley_vgpm", "pi_platt", "cbpm", "ensemble"}
     # asked for by name where there is none (the run's ensemble taken out): one line
     man = json.loads(man_path.read_text())  # as the derivation committed it
     for n in [n for n, e in man["outputs"].items() if e["kind"].startswith("ensemble")]:
@@ -601,7 +602,7 @@ def test_the_ensemble_is_derived_when_the_run_has_one(demo_copy):
     man_path.write_text(json.dumps(man))
     res = _derive(cfg, "--model", "ensemble")
     assert _error(res) == (f"euphotic: error: --model: {out}: the run has no ensemble maps (it "
-                          "ran vgpm, eppley_vgpm)\n")
+                          "ran vgpm, eppley_vgpm, pi_platt, cbpm)\n")
 
 
 def test_readme_names_every_method_key_and_column():
