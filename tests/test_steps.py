@@ -494,8 +494,8 @@ def test_decade_demo_with_its_steps(tmp_path):
     names = set(os.listdir(out)) - {runfolder.LOCK_NAME}
     maps = {n for n in names if n.startswith("npp_") and n.endswith(".nc")}
     ensemble = {n for n in maps if n.startswith("npp_ensemble_")}
-    assert len(maps - ensemble) == 240  # 2 models x 120 months
-    assert len(ensemble) == 120  # two models: their ensemble, one map a month
+    assert len(maps - ensemble) == 480  # 4 models x 120 months
+    assert len(ensemble) == 120  # four models: their ensemble, one map a month
     derived = {n for n in names if n.startswith("derived_") and n.endswith(".nc")}
     # the [derived] step: of each model's maps and of the ensemble mean
     assert derived == {n.replace("npp_", "derived_") for n in maps}
@@ -505,5 +505,5 @@ def test_decade_demo_with_its_steps(tmp_path):
     assert len(_report_images(out / "report.html")) == 8
     assert "baseline 2015-2019" in res.stdout
     with open(out / "compare_annual_totals.csv") as fh:
-        # regions x years x (two models and their ensemble mean)
-        assert len(fh.read().splitlines()) == 1 + 4 * 10 * 3
+        # regions x years x (four models and their ensemble mean)
+        assert len(fh.read().splitlines()) == 1 + 4 * 10 * 5
