@@ -34,11 +34,11 @@ from euphotic.outputs import (
     CAUTION,
     PUBLISHED_NAMES,
     STANDARD_NAME_VOCABULARY,
-    crs_attrs,
     iso_utc,
     metadata_attrs,
     model_label,
     month_file_attrs,
+    month_grid,
 )
 
 log = logging.getLogger("euphotic")
@@ -189,13 +189,6 @@ def _references(keys: tuple[str, ...]) -> str:
     return " ".join(reference_text_for(k) for k in dict.fromkeys(keys))
 
 
-def _bounds(centres: np.ndarray) -> np.ndarray:
-    from euphotic.geo import cell_edges
-
-    e = cell_edges(centres)
-    return np.stack([e[:-1], e[1:]], axis=1)
-
-
 def month_dataset(values: dict, qs: list[dv.Quantity], opts: Options, *, model: str,
                   month, lat, lon, earth: str, metadata, command: str, source_map: str,
                   input_files: dict[str, str]) -> xr.Dataset:
@@ -220,20 +213,7 @@ def month_dataset(values: dict, qs: list[dv.Quantity], opts: Options, *, model: 
                 {"units": "1", "long_name": f"export ratio, {m.label}",
                  "coverage_content_type": "modelResult", "comment": m.formula,
                  "grid_mapping": "crs"})
-    mid = start + (end - start) // 2
-    ds = xr.Dataset(data, coords={
-        "time": ("time", [mid.astype("datetime64[ns]")],
-                 {"standard_name": "time", "axis": "T", "bounds": "time_bnds",
-                  "long_name": "time"}),
-        "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north", "axis": "Y",
-                             "bounds": "lat_bnds", "long_name": "latitude"}),
-        "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east", "axis": "X",
-                             "bounds": "lon_bnds", "long_name": "longitude"}),
-    })
-    ds["crs"] = xr.DataArray(np.int32(0), attrs=crs_attrs(earth))
-    ds["time_bnds"] = (("time", "nv"), np.array([[start, end]], dtype="datetime64[ns]"))
-    ds["lat_bnds"] = (("lat", "nv"), _bounds(lat))
-    ds["lon_bnds"] = (("lon", "nv"), _bounds(lon))
+    ds = month_grid(data, lat, lon, start, end, earth)
     name = PUBLISHED_NAMES.get(model, model)
     who = f"the {name} model (euphotic id {model!r})"
     if model == ENSEMBLE:

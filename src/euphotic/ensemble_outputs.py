@@ -26,13 +26,12 @@ from euphotic.outputs import (
     PUBLISHED_NAMES,
     STANDARD_NAME_VOCABULARY,
     TotalsColumn,
-    _bounds,
-    crs_attrs,
     earth_description,
     format_cell,
     geospatial_attrs,
     iso_utc,
     metadata_attrs,
+    month_grid,
     totals_metadata_path,
 )
 
@@ -140,19 +139,7 @@ def month_dataset(stats: xr.Dataset, *, models: Sequence[str], month, time, titl
         "grid_mapping": "crs",
     }
     data["n_models"] = nm
-    mid = np.datetime64(time, "ns")
-    ds = xr.Dataset(data, coords={
-        "time": ("time", [mid], {"standard_name": "time", "axis": "T", "bounds": "time_bnds",
-                                 "long_name": "time"}),
-        "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north", "axis": "Y",
-                             "bounds": "lat_bnds", "long_name": "latitude"}),
-        "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east", "axis": "X",
-                             "bounds": "lon_bnds", "long_name": "longitude"}),
-    })
-    ds["crs"] = xr.DataArray(np.int32(0), attrs=crs_attrs(earth))
-    ds["time_bnds"] = (("time", "nv"), np.array([[start, end]], dtype="datetime64[ns]"))
-    ds["lat_bnds"] = (("lat", "nv"), _bounds(lat))
-    ds["lon_bnds"] = (("lon", "nv"), _bounds(lon))
+    ds = month_grid(data, lat, lon, start, end, earth, mid=time)
     from euphotic.models import CITATIONS
 
     stem = map_file(month).removesuffix(".nc")

@@ -319,6 +319,28 @@ def _num(v: float, decimals: int) -> str:
     return "0" if s in ("-0", "") else s
 
 
+def month_grid(data: dict, lat, lon, start: np.datetime64, end: np.datetime64, earth: str,
+               mid: np.datetime64 | None = None) -> xr.Dataset:
+    """A month's CF grid dataset of ``data`` ((time, lat, lon) variables): time at the middle
+    of [start, end) (or ``mid``) with its bounds, latitude and longitude with their cell
+    bounds, and the ``crs`` grid mapping of ``earth``."""
+    mid = start + (end - start) // 2 if mid is None else mid
+    ds = xr.Dataset(data, coords={
+        "time": ("time", [np.datetime64(mid, "ns")],
+                 {"standard_name": "time", "axis": "T", "bounds": "time_bnds",
+                  "long_name": "time"}),
+        "lat": ("lat", lat, {"standard_name": "latitude", "units": "degrees_north", "axis": "Y",
+                             "bounds": "lat_bnds", "long_name": "latitude"}),
+        "lon": ("lon", lon, {"standard_name": "longitude", "units": "degrees_east", "axis": "X",
+                             "bounds": "lon_bnds", "long_name": "longitude"}),
+    })
+    ds["crs"] = xr.DataArray(np.int32(0), attrs=crs_attrs(earth))
+    ds["time_bnds"] = (("time", "nv"), np.array([[start, end]], dtype="datetime64[ns]"))
+    ds["lat_bnds"] = (("lat", "nv"), _bounds(lat))
+    ds["lon_bnds"] = (("lon", "nv"), _bounds(lon))
+    return ds
+
+
 def _input_words(model: str) -> str:
     """The gridded inputs a model reads, as words ("surface chlorophyll, PAR and ...")."""
     from euphotic import roles
@@ -435,43 +457,8 @@ def month_dataset(
         "coverage_content_type": "qualityInformation",
         "grid_mapping": "crs",
     }
-    mid = start + (end - start) // 2
-    ds = xr.Dataset(
-        {"npp": npp, "coverage": cov, "n_valid_days": nvd},
-        coords={
-            "time": (
-                "time",
-                [mid.astype("datetime64[ns]")],
-                {"standard_name": "time", "axis": "T", "bounds": "time_bnds", "long_name": "time"},
-            ),
-            "lat": (
-                "lat",
-                lat,
-                {
-                    "standard_name": "latitude",
-                    "units": "degrees_north",
-                    "axis": "Y",
-                    "bounds": "lat_bnds",
-                    "long_name": "latitude",
-                },
-            ),
-            "lon": (
-                "lon",
-                lon,
-                {
-                    "standard_name": "longitude",
-                    "units": "degrees_east",
-                    "axis": "X",
-                    "bounds": "lon_bnds",
-                    "long_name": "longitude",
-                },
-            ),
-        },
-    )
-    ds["crs"] = xr.DataArray(np.int32(0), attrs=crs_attrs(earth))
-    ds["time_bnds"] = (("time", "nv"), np.array([[start, end]], dtype="datetime64[ns]"))
-    ds["lat_bnds"] = (("lat", "nv"), _bounds(lat))
-    ds["lon_bnds"] = (("lon", "nv"), _bounds(lon))
+    ds = month_grid({"npp": npp, "coverage": cov, "n_valid_days": nvd}, lat, lon, start, end,
+                    earth)
     now = iso_utc()
     if provenance is None:
         provenance = {
