@@ -296,6 +296,19 @@ def _manifest_id(folder: Path) -> tuple | None:
     return st.st_ino, st.st_mtime_ns, st.st_size
 
 
+def _of_months(path: Path, entries: list, months, what: str) -> list:
+    """The manifest entries of the months asked for, or SelectionError naming those the run
+    has none of."""
+    wanted = {_month(m) for m in ([months] if isinstance(months, str) else months)}
+    have = {_month(e["month"]) for _, e in entries}
+    unknown = [str(m) for m in sorted(wanted) if m not in have]
+    if unknown:
+        raise SelectionError(
+            f"{path}: no {what} of month(s) {', '.join(unknown)} in this run (it has "
+            f"{', '.join(str(m) for m in sorted(have)) or 'none'})")
+    return [(n, e) for n, e in entries if _month(e["month"]) in wanted]
+
+
 def _select(path: Path, manifest: dict, models, months) -> tuple[list[str], list]:
     """The run's models (in its order) and the map entries of the requested models/months."""
     entries = _map_entries(manifest)
@@ -312,14 +325,7 @@ def _select(path: Path, manifest: dict, models, months) -> tuple[list[str], list
         run_models = list(dict.fromkeys(models))
     entries = [(n, e) for n, e in entries if e["model"] in run_models]
     if months is not None:
-        wanted = {_month(m) for m in ([months] if isinstance(months, str) else months)}
-        have = {_month(e["month"]) for _, e in entries}
-        unknown = [str(m) for m in sorted(wanted) if m not in have]
-        if unknown:
-            raise SelectionError(
-                f"{path}: no maps of month(s) {', '.join(unknown)} in this run (it has "
-                f"{', '.join(str(m) for m in sorted(have)) or 'none'})")
-        entries = [(n, e) for n, e in entries if _month(e["month"]) in wanted]
+        entries = _of_months(path, entries, months, "maps")
     if not entries:
         raise SelectionError(f"{path}: the run has no month maps to open")
     return run_models, entries
@@ -601,14 +607,7 @@ def open_ensemble_maps(folder: str | os.PathLike, *, months: Iterable | None = N
     if not entries:
         raise _no_ensemble(path, manifest)
     if months is not None:
-        wanted = {_month(m) for m in ([months] if isinstance(months, str) else months)}
-        have = {_month(e["month"]) for _, e in entries}
-        unknown = [str(m) for m in sorted(wanted) if m not in have]
-        if unknown:
-            raise SelectionError(
-                f"{path}: no ensemble maps of month(s) {', '.join(unknown)} in this run (it "
-                f"has {', '.join(str(m) for m in sorted(have))})")
-        entries = [(n, e) for n, e in entries if _month(e["month"]) in wanted]
+        entries = _of_months(path, entries, months, "ensemble maps")
     files = []
     try:
         for name, e in entries:
