@@ -46,9 +46,12 @@ def _members(n: int, backend: str, shape=(6, 7)) -> list[xr.DataArray]:
     return out
 
 
+@pytest.mark.parametrize("kernel", ["compiled", "numpy"])
 @pytest.mark.parametrize("backend", ["numpy", "dask"])
 @pytest.mark.parametrize("n", [2, 3])
-def test_map_statistics_against_numpy(n, backend):
+def test_map_statistics_against_numpy(n, backend, kernel, monkeypatch):
+    # both paths: the compiled one-pass loop and the plain xarray reductions
+    monkeypatch.setenv("EUPHOTIC_KERNEL", kernel)
     members = _members(n, backend)
     got = ensemble.map_statistics(members).compute()
     x = np.stack([np.asarray(m.values, float) for m in members])

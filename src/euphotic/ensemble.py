@@ -19,6 +19,7 @@ import numpy as np
 import xarray as xr
 
 from euphotic.errors import EuphoticError
+from euphotic.models._compiled import use_compiled
 
 #: The model dimension of the members.
 MODEL_DIM = "model"
@@ -107,22 +108,86 @@ def map_statistics(members: xr.DataArray | Sequence[xr.DataArray], *,
     n = x.sizes[dim]
     if n < 2:
         raise EnsembleError(f"an ensemble needs at least two models, not {n}")
-    x = x.astype(np.float64)
-    n_valid = x.notnull().sum(dim).astype(np.int16)
-    complete = n_valid == n
-    mean = x.mean(dim, skipna=False).where(complete)
-    std = x.std(dim, ddof=DDOF, skipna=False).where(complete)
-    lo = x.min(dim, skipna=False).where(complete)
-    hi = x.max(dim, skipna=False).where(complete)
-    cv = (std / mean.where(mean != 0)).where(complete)
-    out = xr.Dataset({"npp_mean": mean, "npp_min": lo, "npp_max": hi, "npp_std": std,
-                      "npp_cv": cv, "n_models": n_valid})
+    if use_compiled():
+        # one compiled pass over the models of each cell (what follows, fused)
+        if x.chunks is not None:
+            x = x.chunk({dim: -1})  # the models of a cell in one block
+        stacked = xr.apply_ufunc(
+            _stats_block, x, input_core_dims=[[dim]], output_core_dims=[["statistic"]],
+            dask="parallelized", output_dtypes=[np.float64],
+            dask_gufunc_kwargs={"output_sizes": {"statistic": len(_STATISTICS)}})
+        out = xr.Dataset({name: stacked.isel(statistic=i, drop=True)
+                          for i, name in enumerate(_STATISTICS)})
+        out["n_models"] = out["n_models"].astype(np.int16)
+    else:
+        x = x.astype(np.float64)
+        n_valid = x.notnull().sum(dim).astype(np.int16)
+        complete = n_valid == n
+        mean = x.mean(dim, skipna=False).where(complete)
+        std = x.std(dim, ddof=DDOF, skipna=False).where(complete)
+        lo = x.min(dim, skipna=False).where(complete)
+        hi = x.max(dim, skipna=False).where(complete)
+        cv = (std / mean.where(mean != 0)).where(complete)
+        out = xr.Dataset({"npp_mean": mean, "npp_min": lo, "npp_max": hi, "npp_std": std,
+                          "npp_cv": cv, "n_models": n_valid})
     models = [str(m) for m in x[dim].values] if dim in x.coords else []
     for v in out.data_vars.values():
         v.attrs = {"ensemble_rule": RULE, "ensemble_models": " ".join(models),
                    "ensemble_size": np.int16(n)}
     out["npp_std"].attrs["ddof"] = np.int16(DDOF)
     return out
+
+
+#: The per-cell statistics in the order :func:`_stats_block` returns them.
+_STATISTICS = ("npp_mean", "npp_min", "npp_max", "npp_std", "npp_cv", "n_models")
+
+
+def _stats_loop(x, out):
+    """Statistics across the last axis of ``x`` (cells, models) into ``out`` (cells, 6),
+    float64, by the rule of :func:`map_statistics` (compiled)."""
+    n = x.shape[1]
+    for j in range(x.shape[0]):
+        count, total = 0, 0.0
+        lo, hi = np.inf, -np.inf
+        for i in range(n):
+            v = np.float64(x[j, i])
+            if v == v:  # not NaN
+                count += 1
+                total += v
+                lo = min(lo, v)
+                hi = max(hi, v)
+        out[j, 5] = count
+        if count < n:
+            for k in range(5):
+                out[j, k] = np.nan
+            continue
+        mean = total / n
+        ss = 0.0
+        for i in range(n):
+            d = np.float64(x[j, i]) - mean
+            ss += d * d
+        std = np.sqrt(ss / (n - DDOF))
+        out[j, 0] = mean
+        out[j, 1] = lo
+        out[j, 2] = hi
+        out[j, 3] = std
+        out[j, 4] = std / mean if mean != 0.0 else np.nan
+
+
+_stats_jit = None
+
+
+def _stats_block(x: np.ndarray) -> np.ndarray:
+    """(..., models) -> (..., 6) float64: :data:`_STATISTICS` of each cell."""
+    global _stats_jit
+    if _stats_jit is None:
+        import numba
+
+        _stats_jit = numba.njit(nogil=True, cache=True)(_stats_loop)
+    flat = np.ascontiguousarray(x).reshape(-1, x.shape[-1])
+    out = np.empty((flat.shape[0], len(_STATISTICS)), dtype=np.float64)
+    _stats_jit(flat, out)
+    return out.reshape(*x.shape[:-1], len(_STATISTICS))
 
 
 def _flag_codes(flags) -> set[str]:
