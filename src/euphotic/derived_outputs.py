@@ -34,6 +34,8 @@ from euphotic.outputs import (
     CAUTION,
     PUBLISHED_NAMES,
     STANDARD_NAME_VOCABULARY,
+    coordinate_encoding,
+    grid_encoding,
     iso_utc,
     metadata_attrs,
     model_label,
@@ -257,14 +259,8 @@ def _encoding(ds: xr.Dataset) -> dict:
     for v, da in ds.data_vars.items():
         if da.dims == ("time", "lat", "lon"):
             blocks = (1, min(da.shape[1], 1024), min(da.shape[2], 1024))  # as the maps'
-            enc[v] = {"zlib": True, "complevel": 1, "shuffle": True, "dtype": "float32",
-                      "_FillValue": np.float32(np.nan), "chunksizes": tuple(blocks)}
-    t = {"units": "days since 1970-01-01", "calendar": "standard", "dtype": "float64",
-         "_FillValue": None}
-    enc["time"] = dict(t)
-    enc["time_bnds"] = dict(t)
-    for c in ("lat", "lon", "lat_bnds", "lon_bnds"):
-        enc[c] = {"_FillValue": None}
+            enc[v] = grid_encoding(blocks)
+    enc.update(coordinate_encoding())
     return enc
 
 

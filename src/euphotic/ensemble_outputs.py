@@ -26,9 +26,11 @@ from euphotic.outputs import (
     PUBLISHED_NAMES,
     STANDARD_NAME_VOCABULARY,
     TotalsColumn,
+    coordinate_encoding,
     earth_description,
     format_cell,
     geospatial_attrs,
+    grid_encoding,
     iso_utc,
     metadata_attrs,
     month_grid,
@@ -191,17 +193,9 @@ def encoding(ds: xr.Dataset, chunks: Sequence[int] | None = None) -> dict:
     if blocks is None or len(blocks) != 3:
         blocks = (1, min(ds.sizes["lat"], 1024), min(ds.sizes["lon"], 1024))
     chunks = (1, blocks[1], blocks[2])
-    enc = {v: {"zlib": True, "complevel": 1, "shuffle": True, "dtype": "float32",
-               "_FillValue": np.float32(np.nan), "chunksizes": chunks}
-           for v in (*_MAP_STATS, "npp_cv")}
-    enc["n_models"] = {"zlib": True, "complevel": 1, "shuffle": True, "dtype": "int16",
-                       "_FillValue": None, "chunksizes": chunks}
-    t = {"units": "days since 1970-01-01", "calendar": "standard", "dtype": "float64",
-         "_FillValue": None}
-    enc["time"] = dict(t)
-    enc["time_bnds"] = dict(t)
-    for c in ("lat", "lon", "lat_bnds", "lon_bnds"):
-        enc[c] = {"_FillValue": None}
+    enc = {v: grid_encoding(chunks) for v in (*_MAP_STATS, "npp_cv")}
+    enc["n_models"] = grid_encoding(chunks, "int16", None)
+    enc.update(coordinate_encoding())
     return enc
 
 
@@ -327,14 +321,6 @@ def totals_metadata(*, models: Sequence[str], earth: str, provenance: Mapping | 
 # --------------------------------------------------------------------------------------------
 
 
-def _intact(path: Path, entry: dict) -> bool:
-    try:
-        st = runfolder.stat_entry(path)
-    except OSError:
-        return False
-    return st["bytes"] == entry.get("bytes") and st["mtime_ns"] == entry.get("mtime_ns")
-
-
 def fingerprint(member_fingerprints: Sequence[str], models: Sequence[str]) -> str:
     """An ensemble map's fingerprint: its members' map fingerprints (which cover the inputs,
     the configuration and the tool version), their models and the ensemble's format."""
@@ -375,7 +361,7 @@ def add_to_run(cfg, months: Sequence, stage: runfolder.Stage, entries: dict[str,
             entry = {"kind": MAP_KIND, "model": ENSEMBLE, "month": mo, "models": models,
                      "members": members, "fingerprint": fp}
             old = prev_outputs.get(name)
-            if old and old.get("fingerprint") == fp and _intact(out_dir / name, old):
+            if old and old.get("fingerprint") == fp and runfolder.intact(out_dir / name, old):
                 entries[name] = old
                 keep.add(name)
                 continue

@@ -508,6 +508,25 @@ def _map_chunks(ds: xr.Dataset) -> tuple[int, int, int]:
     return (1, min(ds.sizes["lat"], 1024), min(ds.sizes["lon"], 1024))
 
 
+_NAN32 = np.float32(np.nan)
+
+
+def grid_encoding(chunks: tuple[int, int, int], dtype: str = "float32", fill=_NAN32) -> dict:
+    """NetCDF encoding of a (time, lat, lon) variable of a month file: zlib level 1 with
+    shuffle, stored ``dtype`` in ``chunks``."""
+    return {"zlib": True, "complevel": 1, "shuffle": True, "dtype": dtype, "_FillValue": fill,
+            "chunksizes": chunks}
+
+
+def coordinate_encoding() -> dict:
+    """NetCDF encoding of a month file's time, lat and lon and their bounds: CF time in days,
+    no fill value on coordinates and bounds (CF 2.5.1, 7.1)."""
+    enc = {"time": dict(_TIME_ENCODING), "time_bnds": dict(_TIME_ENCODING)}
+    for c in ("lat", "lon", "lat_bnds", "lon_bnds"):
+        enc[c] = {"_FillValue": None}
+    return enc
+
+
 def encoding_for(ds: xr.Dataset) -> dict:
     """Compressed float32 storage chunked like the map (CF time units in days).
 
@@ -517,29 +536,10 @@ def encoding_for(ds: xr.Dataset) -> dict:
     hold them). Coordinates and bounds carry no fill value (CF 2.5.1, 7.1).
     """
     chunks = _map_chunks(ds)
-    enc = {
-        v: {
-            "zlib": True,
-            "complevel": 1,  # shuffle does most of the work on float maps; level 1 is fastest
-            "shuffle": True,
-            "dtype": "float32",
-            "_FillValue": np.float32(np.nan),
-            "chunksizes": chunks,
-        }
-        for v in _GRID_FLOAT
-    }
-    enc["n_valid_days"] = {
-        "zlib": True,
-        "complevel": 1,
-        "shuffle": True,
-        "dtype": "int16",
-        "_FillValue": N_DAYS_FILL,
-        "chunksizes": chunks,
-    }
-    enc["time"] = dict(_TIME_ENCODING)
-    enc["time_bnds"] = dict(_TIME_ENCODING)
-    for c in ("lat", "lon", "lat_bnds", "lon_bnds"):
-        enc[c] = {"_FillValue": None}
+    # shuffle does most of the work on float maps; zlib level 1 is fastest
+    enc = {v: grid_encoding(chunks) for v in _GRID_FLOAT}
+    enc["n_valid_days"] = grid_encoding(chunks, "int16", N_DAYS_FILL)
+    enc.update(coordinate_encoding())
     return enc
 
 

@@ -412,7 +412,7 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
                 name, fp = map_name(model_name, month), fps[(model_name, month)]
                 if not force:
                     old = prev_outputs.get(name)
-                    if old and old.get("fingerprint") == fp and _intact(out_dir / name, old):
+                    if old and old.get("fingerprint") == fp and runfolder.intact(out_dir / name, old):
                         entries[name] = old
                         keep.add(name)
                         reused.append((model_name, str(np.datetime64(month, "M"))))
@@ -488,21 +488,12 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
 
 
 
-def _intact(path: Path, entry: dict) -> bool:
-    """An output in place is as its manifest recorded it (same size and modification time)."""
-    try:
-        st = runfolder.stat_entry(path)
-    except OSError:
-        return False
-    return st["bytes"] == entry.get("bytes") and st["mtime_ns"] == entry.get("mtime_ns")
-
-
 def _salvage(pending: list[runfolder.Stage], stage: runfolder.Stage, name: str, fp: str):
     """Move a map finished by an interrupted run (same fingerprint) into this run's stage."""
     for old in pending:
         entry = old.items.get(name)
         src = old.file(name)
-        if entry and entry.get("fingerprint") == fp and _intact(src, entry):
+        if entry and entry.get("fingerprint") == fp and runfolder.intact(src, entry):
             os.replace(src, stage.file(name))
             entry = {**entry, **runfolder.stat_entry(stage.file(name))}
             stage.record(name, entry)
@@ -541,7 +532,7 @@ def _region_file(cfg, prep, stage, entries, keep, previous, provenance) -> None:
                                        REGIONS_FORMAT])
     old = previous.get("outputs", {}).get(name)
     out_dir = stage.path.parent
-    if old and old.get("fingerprint") == fp and _intact(out_dir / name, old):
+    if old and old.get("fingerprint") == fp and runfolder.intact(out_dir / name, old):
         entries[name] = old
         keep.add(name)
         return
@@ -588,7 +579,7 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
         png = name.rsplit(".", 1)[0] + ".png"
         fp = runfolder.config_fingerprint([entries[name]["fingerprint"], FIGURE_FORMAT])
         old = prev_outputs.get(png)
-        if name in keep and old and old.get("fingerprint") == fp and _intact(out_dir / png, old):
+        if name in keep and old and old.get("fingerprint") == fp and runfolder.intact(out_dir / png, old):
             entries[png] = old
             keep.add(png)
             figures.append(out_dir / png)

@@ -225,6 +225,16 @@ class Stage:
         return cls(path, index)
 
 
+def intact(path: Path, entry: dict) -> bool:
+    """An output in place is as its manifest entry recorded it (same size and modification
+    time)."""
+    try:
+        st = stat_entry(path)
+    except OSError:
+        return False
+    return st["bytes"] == entry.get("bytes") and st["mtime_ns"] == entry.get("mtime_ns")
+
+
 def stat_entry(path: Path) -> dict:
     """Size (bytes; every file of a Zarr store) and modification time (ns) of an output, as
     the manifest records them and as readers check them."""
