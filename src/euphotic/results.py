@@ -277,13 +277,13 @@ def _values(ds: xr.Dataset, v: str):
     CF-decoded as xarray does) where the file allows it and the blocks are the stored chunks;
     otherwise the netCDF library's reads of the opened file."""
     from euphotic import chunkread
-    from euphotic.readers import _decode_raw
+    from euphotic.cfdecode import decode_raw
 
     src = ds.encoding.get("source")
     if src and Path(src).is_file() and chunkread.enabled():
         raw = chunkread.dask_array(src, v)
         if raw is not None and raw.shape == ds[v].shape and raw.chunks == ds[v].data.chunks:
-            return _decode_raw(raw, ds[v].dims, v, ds[v].encoding)
+            return decode_raw(raw, ds[v].dims, v, ds[v].encoding)
     return ds[v].data
 
 
