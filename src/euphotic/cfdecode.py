@@ -340,6 +340,7 @@ def decoder_for(raw_dtype, enc: dict, attrs: dict, a: float, b: float, *,
         return isinstance(f, float) and np.isnan(f) or np.asarray(f).astype(raw_dtype) == f
 
     fast = ("_Unsigned" not in coding and dt.kind == "f" and raw_dtype.kind in "iuf"
+            and raw_dtype.isnative and dt.isnative
             and np.can_cast(raw_dtype, dt, "safe") and all(exact(f) for f in fills)
             and all(np.ndim(f) == 0 and np.can_cast(np.asarray(f).dtype, dt, "safe")
                     for f in factors))
