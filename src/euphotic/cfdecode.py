@@ -181,12 +181,12 @@ def decode_raw(raw, dims, name: str, enc: dict):
 
 def _kernel(raw, out, fills, n_fills, params, flags):  # pragma: no cover - compiled
     """raw -> out in one pass: NaN where raw equals a fill value; * scale, + offset; NaN
-    outside [lo, hi]; * a, + b. ``params`` (scale, offset, lo, hi, a, b) and ``out`` share the
-    floating type the operations are done in; ``flags`` say which apply."""
+    outside the file's [lo, hi]; * a, + b; then values outside the plausible range
+    [screen_lo, screen_hi] become NaN marked as below or above (:func:`euphotic.screen.marks`).
+    ``params`` and ``out`` share the floating type the operations are done in; ``flags`` say
+    which steps apply."""
     scale, offset, lo, hi, a, b = params[0], params[1], params[2], params[3], params[4], params[5]
-    do_scale, do_offset, do_lo, do_hi, do_a, do_b = (flags[0], flags[1], flags[2], flags[3],
-                                                     flags[4], flags[5])
-    nan = params[6]
+    nan, s_lo, s_hi, below, above = params[6], params[7], params[8], params[9], params[10]
     for i in range(raw.size):
         r = raw[i]
         hit = False
@@ -198,21 +198,29 @@ def _kernel(raw, out, fills, n_fills, params, flags):  # pragma: no cover - comp
             continue
         out[i] = r
         v = out[i]
-        if do_scale:
+        if flags[0]:
             v = v * scale
-        if do_offset:
+        if flags[1]:
             v = v + offset
-        if do_lo and not v >= lo:
+        if flags[2] and not v >= lo:
             out[i] = nan
             continue
-        if do_hi and not v <= hi:
+        if flags[3] and not v <= hi:
             out[i] = nan
             continue
-        if do_a:
+        if v != v:  # NaN stored as a value: missing (one NaN, whatever its bits)
+            out[i] = nan
+            continue
+        if flags[4]:
             v = v * a
-        if do_b:
+        if flags[5]:
             v = v + b
-        out[i] = v
+        if flags[6] and v < s_lo:
+            out[i] = below
+        elif flags[7] and v > s_hi:
+            out[i] = above
+        else:
+            out[i] = v
 
 
 _compiled_kernel = None
@@ -239,7 +247,9 @@ class Decoder:
     ``scale``/``offset``: CF packing (None: absent); ``lo``/``hi``: the file's valid range as
     thresholds in unpacked units (None: absent); ``a``/``b``: the unit conversion
     ``value * a + b``; ``dtype``: the floating type every operation is done in (the one
-    xarray's CF decoding gives), which is also the result's.
+    xarray's CF decoding gives), which is also the result's; ``screen``: the plausible range
+    in model units (:func:`euphotic.screen.valid_range`), values outside it become NaN marked
+    below or above, for :func:`euphotic.screen.count_marks` to count.
     """
 
     raw_dtype: str
@@ -251,40 +261,41 @@ class Decoder:
     hi: float | None = None
     a: float = 1.0
     b: float = 0.0
+    screen: tuple | None = None
     #: CF coding attributes, as items, for the xarray form (types the compiled pass does not
     #: take: unsigned, integers left undecoded, fill values or factors wider than ``dtype``)
     generic: tuple | None = None
 
-    @property
-    def identity(self) -> bool:
-        """Nothing to do: float values with NaN (or no) fill, no packing, range or units."""
-        return (self.raw_dtype == self.dtype
-                and all(isinstance(f, float) and np.isnan(f) for f in self.fills)
-                and self.scale is None and self.offset is None and self.lo is None
-                and self.hi is None and self.a == 1.0 and self.b == 0.0)
-
     def __call__(self, raw: np.ndarray) -> np.ndarray:
         if self.generic is not None:
             return self._xarray(raw)
-        if self.identity:
-            return raw
         dt = np.dtype(self.dtype)
-        kernel = _get_kernel()
         src = np.ascontiguousarray(raw)
         out = np.empty(src.shape, dtype=dt)
         rd = src.dtype
-        fills = [f for f in self.fills if not (isinstance(f, float) and np.isnan(f))]
-        # a fill value not representable in the stored type never matches (as in numpy)
-        fills = [f for f in fills if np.asarray(f).astype(rd) == f] if rd.kind in "iu" else fills
+        fills = [f for f in self.fills if not np.isnan(f)]
         farr = np.asarray(fills or [0], dtype=rd)
+        s_lo, s_hi = self.screen or (None, None)
+        below, above = screen.marks(dt)
         params = np.array([self.scale or 0, self.offset or 0, self.lo or 0, self.hi or 0,
-                           self.a, self.b, np.nan], dtype=dt)
+                           self.a, self.b, np.nan, s_lo or 0, s_hi or 0, below, above], dtype=dt)
         flags = np.array([self.scale is not None, self.offset is not None, self.lo is not None,
-                          self.hi is not None, self.a != 1.0, self.b != 0.0], dtype=np.bool_)
-        if kernel is not None:
-            kernel(src.reshape(-1), out.reshape(-1), farr, len(fills), params, flags)
-            return out
-        return self._numpy(src, out, fills, params, flags)  # pragma: no cover
+                          self.hi is not None, self.a != 1.0, self.b != 0.0, s_lo is not None,
+                          s_hi is not None], dtype=np.bool_)
+        kernel = _get_kernel()
+        if kernel is None:  # pragma: no cover - numba is a dependency
+            return self._mark(self._numpy(src, out, fills, params, flags))
+        kernel(src.reshape(-1), out.reshape(-1), farr, len(fills), params, flags)
+        return out
+
+    def _mark(self, x: np.ndarray) -> np.ndarray:
+        """Values outside the plausible range as marked NaN (numpy form)."""
+        if self.screen is None:
+            return x
+        below, above = screen.marks(x.dtype)
+        with np.errstate(invalid="ignore"):
+            x = np.where(x < self.screen[0], below, x)
+            return np.where(x > self.screen[1], above, x)
 
     def _xarray(self, raw: np.ndarray) -> np.ndarray:
         """The reference sequence of xarray operations (CF decoding, valid range, units)."""
@@ -293,7 +304,7 @@ class Decoder:
         x = _scale(_where_valid(x, self.lo, self.hi), self.a, self.b)
         if x.dtype != np.float32 and x.dtype != np.float64:
             x = x.astype(np.float32)
-        return np.asarray(x.values)
+        return self._mark(np.asarray(x.values))
 
     @staticmethod
     def _numpy(src, out, fills, params, flags):  # pragma: no cover - without numba
@@ -318,13 +329,12 @@ class Decoder:
         return out
 
 
-
-
 def decoder_for(raw_dtype, enc: dict, attrs: dict, a: float, b: float, *,
-                decoded: bool = False) -> Decoder:
+                decoded: bool = False, screen_range: tuple | None = None) -> Decoder:
     """The :class:`Decoder` of a variable stored as ``raw_dtype`` with encoding ``enc`` and
     attributes ``attrs`` (its valid range), converted to model units by ``* a + b``.
-    ``decoded``: the values come already CF-decoded (read through the netCDF library)."""
+    ``decoded``: the values come already CF-decoded (read through the netCDF library);
+    ``screen_range``: the plausible range in model units (values outside are marked)."""
     raw_dtype = np.dtype(raw_dtype)
     coding = {} if decoded else {k: enc[k] for k in CF_CODING_KEYS if k in enc}
     lo, hi = valid_thresholds(enc, attrs, raw_dtype)
@@ -344,7 +354,8 @@ def decoder_for(raw_dtype, enc: dict, attrs: dict, a: float, b: float, *,
             and np.can_cast(raw_dtype, dt, "safe") and all(exact(f) for f in fills)
             and all(np.ndim(f) == 0 and np.can_cast(np.asarray(f).dtype, dt, "safe")
                     for f in factors))
-    common = dict(raw_dtype=raw_dtype.str, lo=lo, hi=hi, a=float(a), b=float(b))
+    common = dict(raw_dtype=raw_dtype.str, lo=lo, hi=hi, a=float(a), b=float(b),
+                  screen=None if screen_range is None else tuple(map(float, screen_range)))
     if fast:
         return Decoder(dtype=dt.str, fills=tuple(float(f) for f in fills),
                        scale=float(coding["scale_factor"]) if "scale_factor" in coding else None,

@@ -121,6 +121,11 @@ def dask_array(parts: list, layout: Layout, decoder, name: str):
     import dask.array as da
     from dask.highlevelgraph import HighLevelGraph
 
+    try:
+        from dask._task_spec import Task
+    except ImportError:  # pragma: no cover - older dask: legacy tuples
+        Task = None
+
     t_ax, y_ax, x_ax = layout.axes
     ndim = len(layout.chunks)
     shape = parts[0].shape
@@ -149,8 +154,11 @@ def dask_array(parts: list, layout: Layout, decoder, name: str):
                     index[x_ax] = (slice(xs, xs + (x1 - x0)) if xstep == 1
                                    else slice(xs - (x1 - x0) + 1, xs + 1))
                     key = (name, p * len(t_blocks) + ti, yi, xi)
-                    dsk[key] = (_read_block, part, tuple(index), (False, ystep < 0, xstep < 0),
-                                _with_time(transpose, t_ax), layout.squeeze, decoder)
+                    args = (part, tuple(index), (False, ystep < 0, xstep < 0),
+                            _with_time(transpose, t_ax), layout.squeeze, decoder)
+                    # a task spec as dask builds it (no conversion of a legacy tuple later)
+                    dsk[key] = (Task(key, _read_block, *args)
+                                if Task is not None else (_read_block, *args))
     chunks = ((tuple(b - a for a, b in t_blocks)) * len(parts),
               tuple(b[1] - b[0] for b in y_blocks), tuple(b[1] - b[0] for b in x_blocks))
     graph = HighLevelGraph.from_collections(name, dsk, dependencies=[])

@@ -502,10 +502,35 @@ _TIME_ENCODING = {"units": "days since 1970-01-01", "calendar": "standard", "dty
 
 
 def _map_chunks(ds: xr.Dataset) -> tuple[int, int, int]:
-    blocks = getattr(ds["npp"].data, "chunksize", None)
-    if blocks is not None and len(blocks) == 3 and blocks[1] * blocks[2] <= 4 * 2**20:
-        return (1, blocks[1], blocks[2])
+    """Stored chunks of the map: its blocks' most common size along each axis (blocks follow
+    the inputs' stored chunks, cut where latitudes were reversed or longitudes rotated), or
+    1024 x 1024 for a map not in blocks."""
+    chunks = getattr(ds["npp"].data, "chunks", None)
+    if chunks is not None and len(chunks) == 3:
+        blocks = [max(set(c), key=lambda n, c=c: (c.count(n), n)) for c in chunks]
+        if blocks[1] * blocks[2] <= 4 * 2**20:
+            return (1, blocks[1], blocks[2])
     return (1, min(ds.sizes["lat"], 1024), min(ds.sizes["lon"], 1024))
+
+
+def _regular_blocks(ds: xr.Dataset, chunks: tuple[int, int, int]) -> xr.Dataset:
+    """``ds`` with its grid variables in blocks of the stored ``chunks`` (rechunked only where
+    the blocks are not already whole chunks), so that every block is written as whole stored
+    chunks: a block straddling chunks makes the library read back, inflate and deflate the
+    partial chunks again."""
+    out = {}
+    for v in _GRID_FLOAT + ("n_valid_days",):
+        if v not in ds or not hasattr(ds[v].data, "chunks"):
+            continue
+        got = ds[v].data.chunks
+        want = [_split_regular(len_, c) for len_, c in zip(ds[v].shape, chunks, strict=True)]
+        if tuple(map(tuple, want)) != tuple(got):
+            out[v] = ds[v].chunk(dict(zip(ds[v].dims, chunks, strict=True)))
+    return ds.assign(out) if out else ds
+
+
+def _split_regular(n: int, c: int) -> list[int]:
+    return [min(c, n - i) for i in range(0, n, c)] or [0]
 
 
 _NAN32 = np.float32(np.nan)
@@ -581,7 +606,9 @@ def write_lazy(ds: xr.Dataset, tmp: Path, fmt: str):
             ds[v].encoding = {}
         return ds.to_zarr(tmp, mode="w", compute=False, encoding=enc, zarr_format=2,
                           consolidated=True)
-    return ds.to_netcdf(tmp, engine="netcdf4", encoding=encoding_for(ds), compute=False,
+    enc = encoding_for(ds)
+    ds = _regular_blocks(ds, next(e["chunksizes"] for e in enc.values() if "chunksizes" in e))
+    return ds.to_netcdf(tmp, engine="netcdf4", encoding=enc, compute=False,
                         unlimited_dims=["time"])
 
 

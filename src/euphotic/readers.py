@@ -243,7 +243,8 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
         squeeze=tuple(dims.index(d) for d in squeeze),
         lat_order=lat_order, lon_order=lon_order if in_task else np.arange(lon_raw.size),
         chunks=tuple(chunks))
-    decoder = decoder_for(parts[0].dtype, enc, dict(da.attrs), a, b, decoded=decoded)
+    decoder = decoder_for(parts[0].dtype, enc, dict(da.attrs), a, b, decoded=decoded,
+                          screen_range=screen.valid_range(spec.role, spec.valid_range))
     stats = [os.stat(p) for p in paths]
     key = ("chunkread-" if detached else "ncread-") + tokenize(paths, [(st.st_mtime_ns, st.st_size) for st in stats], name,
                              layout.axes, layout.squeeze, layout.chunks, lat_order, lon_order,
@@ -387,7 +388,7 @@ def open_input(spec: InputSpec) -> xr.DataArray:
         starts, ends, step_files = starts[keep], ends[keep], step_files[keep]
     screen.log_overlaps(starts, ends, list(step_files), role=spec.role)
     lo, hi = screen.valid_range(spec.role, spec.valid_range)
-    out, counts = screen.screen_range(out, role=spec.role, lo=lo, hi=hi)
+    counts = screen.count_marks(out, role=spec.role, lo=lo, hi=hi)  # marked when read
     out.attrs["files"] = sorted(q for p in pieces for q in p.paths)
     out.attrs["period_files"] = [str(f) for f in step_files]
     out.attrs["screen_counts"] = counts
@@ -410,7 +411,7 @@ def _step_files(piece: _Piece) -> list[str]:
 
 def match_grid(da: xr.DataArray, target: xr.DataArray, path: str) -> xr.DataArray:
     """Bring ``da`` onto ``target``'s lat/lon (area-average when finer, interpolate when coarser)."""
-    conv = "0to360" if float(target.lon.max()) > 180.0 else "pm180"
+    conv = "0to360" if float(np.max(target.lon.values)) > 180.0 else "pm180"  # no numbagg compile
     da = normalize_lon(da, path, convention=conv)
     lat, lon = target.lat.values, target.lon.values
     if same_axis(da.lat.values, lat) and same_axis(da.lon.values, lon):

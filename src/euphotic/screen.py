@@ -372,6 +372,77 @@ def screen_range(da: xr.DataArray, *, role: str, lo: float, hi: float
     return masked, counts
 
 
+#: Bits of the NaN that marks a value below / above the plausible range, per float type (a
+#: quiet NaN with payload 1 or 2; missing values are the plain quiet NaN).
+_MARK_BITS = {np.dtype(np.float32): (np.uint32, 0x7FC00001, 0x7FC00002),
+              np.dtype(np.float64): (np.uint64, 0x7FF8000000000001, 0x7FF8000000000002)}
+
+
+def marks(dtype) -> tuple:
+    """The (below, above) NaN marks of a float type: values screened out by the read path
+    (:class:`euphotic.cfdecode.Decoder`) are these NaNs, so :func:`count_marks` can count
+    them after the fact, without a separate masking pass. For every other purpose they are
+    NaN like any other."""
+    uint, lo, hi = _MARK_BITS[np.dtype(dtype)]
+    v = np.array([lo, hi], dtype=uint).view(dtype)
+    return v[0], v[1]
+
+
+def _count_kernel(bits, n_t, below, above, magnitude, inf, out):  # pragma: no cover - compiled
+    per = bits.size // n_t
+    for t in range(n_t):
+        b = a = ok = 0
+        for i in range(t * per, (t + 1) * per):
+            x = bits[i]
+            if x == below:
+                b += 1
+            elif x == above:
+                a += 1
+            elif (x & magnitude) <= inf:  # not a NaN
+                ok += 1
+        out[t, 0], out[t, 1], out[t, 2] = b, a, ok
+
+
+_compiled_count = None
+
+
+def _marked_counts(x: np.ndarray) -> np.ndarray:
+    """Counts of one block (time, lat, lon) of marked values: (time, 1, 1, 3) of below,
+    above, within (finite values; plain NaN is in none)."""
+    global _compiled_count
+    uint, lo, hi = _MARK_BITS[x.dtype]
+    bits = np.ascontiguousarray(x).view(uint).reshape(-1)
+    n_t = x.shape[0]
+    out = np.zeros((n_t, 3), np.int64)
+    if _compiled_count is None:
+        import numba
+
+        _compiled_count = numba.njit(nogil=True, cache=True)(_count_kernel)
+    if bits.size:
+        inf = np.array(np.inf, x.dtype).view(uint)
+        magnitude = uint(~(uint(1) << uint(8 * x.dtype.itemsize - 1)))  # all but the sign bit
+        _compiled_count(bits, n_t, uint(lo), uint(hi), magnitude, uint(inf), out)
+    return out[:, None, None, :]
+
+
+def count_marks(da: xr.DataArray, *, role: str, lo: float, hi: float) -> LazyCounts:
+    """Lazy per-period counts of ``da`` (time, lat, lon), whose values outside [lo, hi] the
+    read path has already set to marked NaN (:func:`marks`): one small counting task per
+    block, and no masking pass (the form of :func:`screen_range` for inputs read by
+    :mod:`euphotic.lazyread`)."""
+    import dask.array as dsa
+
+    data = da.data if isinstance(da.data, dsa.Array) else dsa.from_array(np.asarray(da.data))
+    per_block = dsa.blockwise(
+        _marked_counts, "tyxk", data, "tyx", new_axes={"k": 3}, dtype=np.int64,
+        adjust_chunks={"y": lambda _: 1, "x": lambda _: 1},
+        meta=np.empty((0, 0, 0, 0), np.int64),
+    )
+    return LazyCounts(role=role, lo=float(lo), hi=float(hi),
+                      units=str(da.attrs.get("units", _units(role))),
+                      totals=per_block.sum(axis=(1, 2)))
+
+
 def periods_of_months(starts, ends, months: Sequence[np.datetime64]) -> dict:
     """For each month (datetime64[M]), the sorted positions of the periods whose values
     stand for at least one of its days (the rule of :func:`euphotic.aggregate.day_to_period`)."""
