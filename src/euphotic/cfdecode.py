@@ -179,48 +179,30 @@ def decode_raw(raw, dims, name: str, enc: dict):
 # the per-chunk form: one compiled pass
 # ------------------------------------------------------------------------------------------
 
-def _kernel(raw, out, fills, n_fills, params, flags):  # pragma: no cover - compiled
-    """raw -> out in one pass: NaN where raw equals a fill value; * scale, + offset; NaN
-    outside the file's [lo, hi]; * a, + b; then values outside the plausible range
-    [screen_lo, screen_hi] become NaN marked as below or above (:func:`euphotic.screen.marks`).
-    ``params`` and ``out`` share the floating type the operations are done in; ``flags`` say
-    which steps apply."""
+def _kernel(raw, out, fills, n_fills, params):  # pragma: no cover - compiled
+    """raw -> out in one pass: NaN where raw equals one of the first ``n_fills`` (at most 2)
+    fill values; * scale, + offset; NaN outside the file's [lo, hi]; * a, + b; then values
+    outside the plausible range [s_lo, s_hi] become NaN marked below or above
+    (:func:`euphotic.screen.marks`). ``params`` (scale, offset, lo, hi, a, b, NaN, s_lo, s_hi,
+    below, above) and ``out`` share the floating type every operation is done in; a step that
+    does not apply has neutral values (1, 0, -inf, inf). Written without branches so that the
+    compiler vectorises it."""
     scale, offset, lo, hi, a, b = params[0], params[1], params[2], params[3], params[4], params[5]
     nan, s_lo, s_hi, below, above = params[6], params[7], params[8], params[9], params[10]
+    f0, f1 = fills[0], fills[1]
+    use0, use1 = n_fills > 0, n_fills > 1
     for i in range(raw.size):
         r = raw[i]
-        hit = False
-        for k in range(n_fills):
-            if r == fills[k]:
-                hit = True
-        if hit:
-            out[i] = nan
-            continue
+        hit = (use0 & (r == f0)) | (use1 & (r == f1))
         out[i] = r
-        v = out[i]
-        if flags[0]:
-            v = v * scale
-        if flags[1]:
-            v = v + offset
-        if flags[2] and not v >= lo:
-            out[i] = nan
-            continue
-        if flags[3] and not v <= hi:
-            out[i] = nan
-            continue
-        if v != v:  # NaN stored as a value: missing (one NaN, whatever its bits)
-            out[i] = nan
-            continue
-        if flags[4]:
-            v = v * a
-        if flags[5]:
-            v = v + b
-        if flags[6] and v < s_lo:
-            out[i] = below
-        elif flags[7] and v > s_hi:
-            out[i] = above
-        else:
-            out[i] = v
+        v = out[i] * scale
+        v = v + offset
+        ok = (v >= lo) & (v <= hi) & (not hit)  # NaN (stored or unpacked) fails too
+        w = v * a
+        w = w + b
+        w = below if w < s_lo else w
+        w = above if w > s_hi else w
+        out[i] = w if ok else nan
 
 
 _compiled_kernel = None
@@ -274,18 +256,23 @@ class Decoder:
         out = np.empty(src.shape, dtype=dt)
         rd = src.dtype
         fills = [f for f in self.fills if not np.isnan(f)]
-        farr = np.asarray(fills or [0], dtype=rd)
-        s_lo, s_hi = self.screen or (None, None)
+        s_lo, s_hi = self.screen or (-np.inf, np.inf)
         below, above = screen.marks(dt)
-        params = np.array([self.scale or 0, self.offset or 0, self.lo or 0, self.hi or 0,
-                           self.a, self.b, np.nan, s_lo or 0, s_hi or 0, below, above], dtype=dt)
-        flags = np.array([self.scale is not None, self.offset is not None, self.lo is not None,
-                          self.hi is not None, self.a != 1.0, self.b != 0.0, s_lo is not None,
-                          s_hi is not None], dtype=np.bool_)
         kernel = _get_kernel()
-        if kernel is None:  # pragma: no cover - numba is a dependency
+        if kernel is None or len(fills) > 2:  # pragma: no cover - numba is a dependency
+            flags = [self.scale is not None, self.offset is not None, self.lo is not None,
+                     self.hi is not None, self.a != 1.0, self.b != 0.0]
+            params = np.array([self.scale or 0, self.offset or 0, self.lo or 0, self.hi or 0,
+                               self.a, self.b], dtype=dt)
             return self._mark(self._numpy(src, out, fills, params, flags))
-        kernel(src.reshape(-1), out.reshape(-1), farr, len(fills), params, flags)
+        farr = np.zeros(2, dtype=rd)
+        farr[:len(fills)] = fills
+        params = np.array([1.0 if self.scale is None else self.scale,
+                           0.0 if self.offset is None else self.offset,
+                           -np.inf if self.lo is None else self.lo,
+                           np.inf if self.hi is None else self.hi,
+                           self.a, self.b, np.nan, s_lo, s_hi, below, above], dtype=dt)
+        kernel(src.reshape(-1), out.reshape(-1), farr, len(fills), params)
         return out
 
     def _mark(self, x: np.ndarray) -> np.ndarray:
