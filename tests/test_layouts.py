@@ -123,10 +123,11 @@ def test_layout_values_identical_to_library(tmp_path, monkeypatch, layout, reade
         assert np.isnan(got).any() and np.isfinite(got).any()
 
 
-def test_layout_tasks_are_one_per_stored_piece(tmp_path):
+def test_layout_tasks_are_one_per_stored_piece(tmp_path, monkeypatch):
     """No separate reordering or decoding layers: the input's graph is its read tasks plus
-    the screening (a count and a mask per block); blocks follow the stored chunks cut at the
-    longitude seam."""
+    the screening counts; with one stored chunk per block, blocks follow the stored chunks
+    cut at the longitude seam."""
+    monkeypatch.setattr(lazyread, "BLOCK_CELLS", 1)
     paths = []
     for day in range(2):
         p = tmp_path / f"sst_{day}.nc"
@@ -157,3 +158,27 @@ def test_runs_of_permutations(order, runs):
 
 def test_irregular_order_falls_back():
     assert lazyread.runs_of(np.array([0, 2, 1, 3, 5, 4, 6, 8, 7, 9])) is None
+
+
+@pytest.mark.parametrize(("order", "chunk", "group", "blocks"), [
+    # stored chunks of 4 over 10 cells, ascending: [0, 4), [4, 8), [8, 10); in pairs
+    (np.arange(10), 4, 1, [(0, 4, 0, 1), (4, 8, 4, 1), (8, 10, 8, 1)]),
+    (np.arange(10), 4, 2, [(0, 8, 0, 1), (8, 10, 8, 1)]),
+    # reversed: output 0 is stored 9; the first block is the rest of chunk [8, 10)
+    (np.arange(10)[::-1], 4, 1, [(0, 2, 9, -1), (2, 6, 7, -1), (6, 10, 3, -1)]),
+    (np.arange(10)[::-1], 4, 2, [(0, 6, 9, -1), (6, 10, 3, -1)]),
+    # rotated at stored 5 (a seam inside chunk [4, 8)): 5..9 then 0..4
+    (np.r_[5:10, 0:5], 4, 1, [(0, 3, 5, 1), (3, 5, 8, 1), (5, 9, 0, 1), (9, 10, 4, 1)]),
+])
+def test_axis_blocks(order, chunk, group, blocks):
+    # worked out by hand: each block is a contiguous stored range inside one run
+    assert lazyread.axis_blocks(order, chunk, group) == blocks
+
+
+def test_block_group_sizes():
+    # 256 x 512 stored chunks on a 1/24-degree grid: 2 chunks side by side, 4 rows: 1024 x 1024
+    assert lazyread.block_group(256, 512, 4320, 8640) == (4, 2)
+    # 540 x 1080 chunks: one wide enough, two rows: about 2**20 cells
+    assert lazyread.block_group(540, 1080, 4320, 8640) == (2, 1)
+    # a small grid is one block
+    assert lazyread.block_group(10, 14, 36, 72) == (4, 6)

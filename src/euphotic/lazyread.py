@@ -57,9 +57,11 @@ def runs_of(order: np.ndarray) -> list[tuple[int, int, int]] | None:
     return runs
 
 
-def axis_blocks(order: np.ndarray, stored_chunk: int) -> list[tuple[int, int, int, int]]:
+def axis_blocks(order: np.ndarray, stored_chunk: int, group: int = 1
+                ) -> list[tuple[int, int, int, int]]:
     """Blocks along one output axis: ``(out_start, out_stop, stored_start, step)``; each lies
-    in one stored chunk and one run. ``order`` must split into runs (:func:`runs_of`)."""
+    in one run and covers up to ``group`` stored chunks (whole ones, except where a run
+    starts or ends inside a chunk). ``order`` must split into runs (:func:`runs_of`)."""
     order = np.asarray(order, dtype=np.int64)
     n = len(order)
     runs = runs_of(order)
@@ -73,7 +75,8 @@ def axis_blocks(order: np.ndarray, stored_chunk: int) -> list[tuple[int, int, in
             s = s0 + step * (o - o0)
             c = s // stored_chunk
             # stored indices of this chunk reachable going `step` from s
-            room = (c + 1) * stored_chunk - s if step == 1 else s - c * stored_chunk + 1
+            room = ((c + group) * stored_chunk - s if step == 1
+                    else s - (c - group + 1) * stored_chunk + 1)
             stop = min(o1, o + room)
             out.append((o, stop, s, step))
             o = stop
@@ -92,7 +95,8 @@ class Layout:
     ``axes``: for time, lat and lon, the stored axis (time: None when the files have no time
     axis: each file is one time step); ``squeeze``: stored axes of length one to drop;
     ``lat_order``/``lon_order``: output position -> stored index; ``chunks``: the stored
-    chunk length of every stored axis.
+    chunk length of every stored axis; ``group``: stored chunks per block along latitude and
+    longitude (:func:`block_group`).
     """
 
     axes: tuple
@@ -100,6 +104,26 @@ class Layout:
     lat_order: np.ndarray
     lon_order: np.ndarray
     chunks: tuple
+    group: tuple = (1, 1)
+
+
+#: Cells a block aims at: small stored chunks (256 x 512 is common) are read in groups, so a
+#: month of daily global grids is not hundreds of thousands of tiny tasks (each costs the
+#: scheduler and graph optimisation about as much as reading a small chunk).
+BLOCK_CELLS = 2**20
+
+
+def block_group(chunk_lat: int, chunk_lon: int, n_lat: int, n_lon: int,
+                target: int | None = None) -> tuple[int, int]:
+    """Stored chunks per block along latitude and longitude: chunks side by side up to 1024
+    columns, then rows of them, up to about ``target`` cells (:data:`BLOCK_CELLS`)."""
+    target = BLOCK_CELLS if target is None else target
+    if target <= 1:
+        return 1, 1
+    gx = max(1, min(-(-n_lon // chunk_lon), 1024 // chunk_lon))
+    width = min(n_lon, gx * chunk_lon)
+    gy = max(1, min(-(-n_lat // chunk_lat), round(target / width / chunk_lat)))
+    return gy, gx
 
 
 def _read_block(part, index, reverse, transpose, squeeze, decoder):
@@ -132,8 +156,8 @@ def dask_array(parts: list, layout: Layout, decoder, name: str):
     n_t = shape[t_ax] if t_ax is not None else 1
     t_chunk = layout.chunks[t_ax] if t_ax is not None else 1
     t_blocks = [(a, min(a + t_chunk, n_t)) for a in range(0, n_t, t_chunk)]
-    y_blocks = axis_blocks(layout.lat_order, layout.chunks[y_ax])
-    x_blocks = axis_blocks(layout.lon_order, layout.chunks[x_ax])
+    y_blocks = axis_blocks(layout.lat_order, layout.chunks[y_ax], layout.group[0])
+    x_blocks = axis_blocks(layout.lon_order, layout.chunks[x_ax], layout.group[1])
     # stored axes left after squeezing, in stored order -> transpose to (time, lat, lon)
     kept = [i for i in range(ndim) if i not in layout.squeeze]
     if t_ax is None:

@@ -242,12 +242,14 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
         axes=(dims.index(time_d) if time_d else None, dims.index(lat_d), dims.index(lon_d)),
         squeeze=tuple(dims.index(d) for d in squeeze),
         lat_order=lat_order, lon_order=lon_order if in_task else np.arange(lon_raw.size),
-        chunks=tuple(chunks))
+        chunks=tuple(chunks),
+        group=lazyread.block_group(chunks[dims.index(lat_d)], chunks[dims.index(lon_d)],
+                                   lat_raw.size, lon_raw.size))
     decoder = decoder_for(parts[0].dtype, enc, dict(da.attrs), a, b, decoded=decoded,
                           screen_range=screen.valid_range(spec.role, spec.valid_range))
     stats = [os.stat(p) for p in paths]
     key = ("chunkread-" if detached else "ncread-") + tokenize(paths, [(st.st_mtime_ns, st.st_size) for st in stats], name,
-                             layout.axes, layout.squeeze, layout.chunks, lat_order, lon_order,
+                             layout.axes, layout.squeeze, layout.chunks, layout.group, lat_order, lon_order,
                              decoder, decoded)
     values = lazyread.dask_array(parts, layout, decoder, key)
     lat_sorted = lat_raw[lat_order]
