@@ -30,9 +30,12 @@ LAYOUTS = {
     "packed": {"packed": True},
     "odd_chunks": {"chunks": (1, 10, 14)},
     "quantized": {"quantized": True},
+    "packed64": {"packed": "f8"},
     "all": {"lat_desc": True, "lon360": True, "packed": True, "chunks": (1, 10, 14),
             "quantized": True},
 }
+#: plausible ranges given in the config (model units): some values of every field lie outside
+SCREEN = {"chl": (0.05, 5.0), "sst": (0.0, 25.0), "par": (5.0, 55.0)}
 ROLE = {"chl": ("mass_concentration_of_chlorophyll_a_in_sea_water", "mg m-3"),
         "sst": ("sea_surface_temperature", "K"),
         "par": ("surface_downwelling_photosynthetic_photon_flux_in_air", "einstein m-2 day-1")}
@@ -73,8 +76,9 @@ def write_day(path, var: str, day: int, *, lat_desc=False, lon360=False, packed=
         kw = {"zlib": True, "complevel": 4, "shuffle": True, "chunksizes": chunks}
         if pack:
             v = ds.createVariable(var, "i2", ("time", "lat", "lon"), fill_value=np.int16(-32767), **kw)
-            v.scale_factor = np.float32(0.005 if var == "sst" else 0.002)
-            v.add_offset = np.float32(273.15 if var == "sst" else 60.0)
+            ftype = np.float64 if packed == "f8" else np.float32  # the type of the unpacked values
+            v.scale_factor = ftype(0.005 if var == "sst" else 0.002)
+            v.add_offset = ftype(273.15 if var == "sst" else 60.0)
             v.valid_min, v.valid_max = np.int16(-32000), np.int16(32000)
         elif quantized and var == "chl":
             v = ds.createVariable(var, "f4", ("time", "lat", "lon"), fill_value=np.float32(np.nan),
@@ -112,15 +116,22 @@ def test_layout_values_identical_to_library(tmp_path, monkeypatch, layout, reade
             p = tmp_path / f"{var}_{day}.nc"
             write_day(p, var, day, **LAYOUTS[layout])
             paths.append(str(p))
-        da = open_input(InputSpec(role=var, files=paths, valid_range=(-1e30, 1e30)))
+        lo, hi = SCREEN[var]
+        da = open_input(InputSpec(role=var, files=paths, valid_range=(lo, hi)))
         assert da.dims == ("time", "lat", "lon")
         assert np.all(np.diff(da.lat.values) > 0) and np.all(np.diff(da.lon.values) > 0)
         assert da.lon.values.min() < 0  # [-180, 180) whatever the file's convention
         ref = reference(paths, var)
+        below, above = (ref < lo).sum(axis=(1, 2)), (ref > hi).sum(axis=(1, 2))
+        within = ((ref >= lo) & (ref <= hi)).sum(axis=(1, 2))
+        ref = np.where((ref < lo) | (ref > hi), np.nan, ref)  # the screening rule
         got = da.values
         assert got.dtype == ref.dtype, (var, got.dtype, ref.dtype)
         np.testing.assert_array_equal(got, ref, err_msg=f"{layout} {var} {reader}")
         assert np.isnan(got).any() and np.isfinite(got).any()
+        counts = np.asarray(da.attrs["screen_counts"].totals.compute())
+        assert below.sum() > 0 and above.sum() > 0
+        np.testing.assert_array_equal(counts, np.stack([below, above, within], axis=1))
 
 
 def test_layout_tasks_are_one_per_stored_piece(tmp_path, monkeypatch):

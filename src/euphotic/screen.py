@@ -388,16 +388,18 @@ def marks(dtype) -> tuple:
     return v[0], v[1]
 
 
-def _count_kernel(bits, n_t, below, above, magnitude, inf, out):  # pragma: no cover - compiled
-    per = bits.size // n_t
-    for t in range(n_t):
-        b = a = ok = 0
-        for i in range(t * per, (t + 1) * per):  # no branches: the compiler vectorises it
-            x = bits[i]
-            b += x == below
-            a += x == above
-            ok += (x & magnitude) <= inf  # not a NaN
-        out[t, 0], out[t, 1], out[t, 2] = b, a, ok
+def _count_kernel(bits, below, above, magnitude, inf):  # pragma: no cover - compiled
+    """(below, above, within) of one time step's values seen as unsigned integers; no
+    branches, so the compiler vectorises the loop."""
+    b = np.int64(0)
+    a = np.int64(0)
+    ok = np.int64(0)
+    for i in range(bits.size):
+        x = bits[i]
+        b += x == below
+        a += x == above
+        ok += (x & magnitude) <= inf  # not a NaN
+    return b, a, ok
 
 
 _compiled_count = None
@@ -407,19 +409,19 @@ def _marked_counts(x: np.ndarray) -> np.ndarray:
     """Counts of one block (time, lat, lon) of marked values: (time, 1, 1, 3) of below,
     above, within (finite values; plain NaN is in none)."""
     global _compiled_count
-    uint, lo, hi = _MARK_BITS[x.dtype]
-    bits = np.ascontiguousarray(x).view(uint).reshape(-1)
-    n_t = x.shape[0]
-    out = np.zeros((n_t, 3), np.int64)
     if _compiled_count is None:
         import numba
 
         _compiled_count = numba.njit(nogil=True, cache=True)(_count_kernel)
-    if bits.size:
-        inf = np.array(np.inf, x.dtype).view(uint)
-        magnitude = uint(~(uint(1) << uint(8 * x.dtype.itemsize - 1)))  # all but the sign bit
-        _compiled_count(bits, n_t, uint(lo), uint(hi), magnitude, uint(inf), out)
-    return out[:, None, None, :]
+    uint, lo, hi = _MARK_BITS[x.dtype]
+    bits = np.ascontiguousarray(x).view(uint).reshape(x.shape[0], -1)
+    inf = np.array(np.inf, x.dtype).view(uint)[()]
+    magnitude = uint(~(uint(1) << uint(8 * x.dtype.itemsize - 1)))  # all but the sign bit
+    out = np.zeros((x.shape[0], 1, 1, 3), np.int64)
+    for t in range(x.shape[0]):
+        if bits.shape[1]:
+            out[t, 0, 0] = _compiled_count(bits[t], uint(lo), uint(hi), magnitude, inf)
+    return out
 
 
 def count_marks(da: xr.DataArray, *, role: str, lo: float, hi: float) -> LazyCounts:
