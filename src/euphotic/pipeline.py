@@ -523,8 +523,8 @@ def _region_file(cfg, prep, stage, entries, keep, previous, provenance) -> None:
     masks, lat, lon = prep.region_masks, prep.chl["lat"].values, prep.chl["lon"].values
     sources = provenance.get("region_sources", "")
     h = runfolder.hashlib.blake2b(digest_size=16)  # the masks as held: no copy is made
-    for arr in (masks.planes, prep.area_rows_m2, lat, lon):
-        h.update(b"" if arr is None else np.ascontiguousarray(arr).tobytes())
+    for arr in (masks.planes, prep.area_rows_m2, lat, lon):  # hashed in place, not copied
+        h.update(b"" if arr is None else memoryview(np.ascontiguousarray(arr)).cast("B"))
     h.update(repr([(w[0].start, w[0].stop, w[1].start, w[1].stop)
                    for w in masks.windows or []]).encode())
     fp = runfolder.config_fingerprint([h.hexdigest(), list(masks.names), masks.n_label_layers,
