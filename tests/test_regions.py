@@ -147,6 +147,28 @@ def test_packaged_ocean_mask_known_places():
     assert 0.66 < frac < 0.73
 
 
+def test_packaged_ocean_mask_cache(tmp_path, monkeypatch):
+    """The cached mask of a grid is the streamed one; a damaged cache file is recomputed and
+    replaced; EUPHOTIC_CACHE_DIR=off writes nothing."""
+    from euphotic import ocean
+
+    glat, glon = _centres(2.0)
+    monkeypatch.setenv("EUPHOTIC_CACHE_DIR", str(tmp_path))
+    first = packaged_ocean_mask(glat, glon)
+    cached = list(tmp_path.glob("ocean-mask-*.npy"))
+    assert len(cached) == 1
+    streamed = ocean._stream_mask(ocean._packaged_mask_path(), glat, ((glon + 180) % 360) - 180)
+    np.testing.assert_array_equal(first, streamed)
+    np.testing.assert_array_equal(packaged_ocean_mask(glat, glon), streamed)  # from the cache
+    cached[0].write_bytes(b"not a numpy file")
+    np.testing.assert_array_equal(packaged_ocean_mask(glat, glon), streamed)
+    assert np.load(cached[0]).dtype == np.uint8  # rewritten
+    off = tmp_path / "off"
+    monkeypatch.setenv("EUPHOTIC_CACHE_DIR", "off")
+    packaged_ocean_mask(glat, glon)
+    assert not off.exists() and len(list(tmp_path.glob("ocean-mask-*.npy"))) == 1
+
+
 def test_totals_arithmetic_hand_worked():
     """2 x 2 cells of 1e6 m2 each in a 30-day month, one cell never observed (hand-worked):
     rates 100, 200, 300 mg C m-2 d-1 -> integral 600e6 mg/d; observed 3e6 m2; mean 200;

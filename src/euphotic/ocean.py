@@ -54,16 +54,71 @@ def _member_stream(path: Path, member: str, block: int = 1 << 22):
             yield tail
 
 
+def _cache_file(path: Path, lat: np.ndarray, lon: np.ndarray) -> Path | None:
+    """Where the mask of this grid is cached: ``$EUPHOTIC_CACHE_DIR`` (``off`` disables the
+    cache), else ``$XDG_CACHE_HOME/euphotic`` or ``~/.cache/euphotic``; the name holds a
+    digest of the grid and of the packaged mask file (its size and time)."""
+    import hashlib
+    import os
+
+    where = os.environ.get("EUPHOTIC_CACHE_DIR")
+    if where and where.lower() in ("off", "none", "0"):
+        return None
+    base = Path(where) if where else Path(
+        os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "euphotic"
+    st = path.stat()
+    h = hashlib.blake2b(digest_size=12)
+    for arr in (lat, lon):
+        h.update(memoryview(np.ascontiguousarray(arr, dtype=np.float64)).cast("B"))
+    h.update(f"{path}|{st.st_size}|{st.st_mtime_ns}".encode())
+    return base / f"ocean-mask-{len(lat)}x{len(lon)}-{h.hexdigest()}.npy"
+
+
 def packaged_ocean_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
     """Ocean (True) at each cell centre, from the 1/120-degree mask of `global-land-mask`.
 
     The package's mask (21600 x 43200 booleans, rows from 90N southwards, True = ocean) is
     streamed from its compressed file, keeping only the rows and columns nearest the cell
-    centres, so memory stays small (the package's own import loads ~1 GB).
+    centres, so memory stays small (the package's own import loads ~1 GB). Streaming the
+    whole file takes about half a second whatever the grid, so the result is cached per grid
+    (bits packed, a few MB for a 1/24-degree grid; :func:`_cache_file`).
     """
     path = _packaged_mask_path()
     lat = np.asarray(lat, dtype=np.float64)
     lon = ((np.asarray(lon, dtype=np.float64) + 180.0) % 360.0) - 180.0
+    cache = _cache_file(path, lat, lon)
+    if cache is not None and cache.is_file():
+        try:
+            bits = np.load(cache, allow_pickle=False)
+            return np.unpackbits(bits, count=lat.size * lon.size).astype(bool).reshape(
+                lat.size, lon.size)
+        except (OSError, ValueError):
+            pass  # unreadable: computed again and rewritten
+    out = _stream_mask(path, lat, lon)
+    if cache is not None:
+        _save_atomic(cache, np.packbits(out.reshape(-1)))
+    return out
+
+
+def _save_atomic(target: Path, arr: np.ndarray) -> None:
+    """Write ``arr`` to ``target`` through a temporary file and a rename (a cache never holds
+    a half-written file); a cache that cannot be written is skipped silently."""
+    import os
+    import tempfile
+
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=target.parent, suffix=".tmp")
+        with os.fdopen(fd, "wb") as fh:
+            np.save(fh, arr, allow_pickle=False)
+        os.replace(tmp, target)
+    except OSError:
+        pass
+
+
+def _stream_mask(path: Path, lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
+    """The mask at the cell centres, streamed from the package's file (see
+    :func:`packaged_ocean_mask`)."""
     stream = _member_stream(path, "mask.npy")
     buf = bytearray()
     for piece in stream:  # the .npy header comes first
