@@ -608,6 +608,11 @@ def write_lazy(ds: xr.Dataset, tmp: Path, fmt: str):
                           consolidated=True)
     enc = encoding_for(ds)
     ds = _regular_blocks(ds, next(e["chunksizes"] for e in enc.values() if "chunksizes" in e))
+    from euphotic import chunkwrite
+
+    direct = chunkwrite.lazy_netcdf(ds, tmp, enc)  # chunks compressed in the dask threads
+    if direct is not None:
+        return direct
     return ds.to_netcdf(tmp, engine="netcdf4", encoding=enc, compute=False,
                         unlimited_dims=["time"])
 
