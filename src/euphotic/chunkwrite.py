@@ -126,9 +126,10 @@ def _write_block(block: np.ndarray, writer: ChunkWriter, var: str, starts: list,
 
 
 def lazy_netcdf(ds: xr.Dataset, path: Path, encoding: dict, unlimited_dims=("time",)):
-    """Write ``ds``'s metadata and coordinates to ``path`` now and return a dask Delayed
-    that writes its dask-backed variables chunk by chunk and closes the file; None (nothing
-    written) when this path does not apply (see the module docstring)."""
+    """Write ``ds``'s metadata and coordinates to ``path`` now and return a lazy dask array
+    (0-d: the bytes written) whose computation writes the dask-backed variables chunk by
+    chunk and closes the file; None (nothing written) when this path does not apply (see the
+    module docstring)."""
     if not in_process() or not chunkread.enabled():
         return None
     lazy = [v for v in ds.variables if hasattr(ds[v].data, "dask")
@@ -152,7 +153,6 @@ def lazy_netcdf(ds: xr.Dataset, path: Path, encoding: dict, unlimited_dims=("tim
         from xarray.backends.writers import dump_to_store
     except ImportError:  # pragma: no cover - another xarray layout
         return None
-    import dask
     import dask.array as da
     import h5py
 
@@ -190,4 +190,13 @@ def lazy_netcdf(ds: xr.Dataset, path: Path, encoding: dict, unlimited_dims=("tim
             _write_block, data, writer=writer, var=v, starts=starts, dtype=np.int64,
             chunks=tuple((1,) * len(c) for c in data.chunks),
             meta=np.empty((0,) * data.ndim, np.int64)))
-    return dask.delayed(writer.close)(*written)
+    # one array collection (computed and optimised with the run's other arrays, so the
+    # blocks are computed once for the file, the totals and the counts): the bytes written,
+    # summed by a last task that closes the file
+    total = da.concatenate([w.ravel() for w in written]).sum()
+    return total.map_blocks(_close, writer=writer, dtype=np.int64, meta=np.empty((), np.int64))
+
+
+def _close(total: np.ndarray, writer: ChunkWriter) -> np.ndarray:
+    writer.close()
+    return total
