@@ -26,15 +26,6 @@ def no_compute():
     return NoCompute()
 
 
-@pytest.fixture(autouse=True, scope="session")
-def _own_cache_dir(tmp_path_factory):
-    """Caches (the packaged ocean mask per grid) go to a folder of the test session."""
-    mp = pytest.MonkeyPatch()
-    mp.setenv("EUPHOTIC_CACHE_DIR", str(tmp_path_factory.mktemp("cache")))
-    yield
-    mp.undo()
-
-
 def pytest_configure(config):
     config.addinivalue_line(
         "markers", "slow: cluster, benchmark and real-process tests (run by default; deselect "

@@ -54,18 +54,16 @@ def _member_stream(path: Path, member: str, block: int = 1 << 22):
             yield tail
 
 
-def _cache_file(path: Path, lat: np.ndarray, lon: np.ndarray) -> Path | None:
-    """Where the mask of this grid is cached: ``$EUPHOTIC_CACHE_DIR`` (``off`` disables the
-    cache), else ``$XDG_CACHE_HOME/euphotic`` or ``~/.cache/euphotic``; the name holds a
-    digest of the grid and of the packaged mask file (its size and time)."""
+def _cache_file(path: Path, lat: np.ndarray, lon: np.ndarray) -> Path:
+    """Where the mask of this grid is cached: ``$EUPHOTIC_CACHE_DIR`` (as for the compiled
+    kernels), else ``$XDG_CACHE_HOME/euphotic/masks`` or ``~/.cache/euphotic/masks``; the name
+    holds a digest of the grid and of the packaged mask file (its path, size and time)."""
     import hashlib
     import os
 
     where = os.environ.get("EUPHOTIC_CACHE_DIR")
-    if where and where.lower() in ("off", "none", "0"):
-        return None
     base = Path(where) if where else Path(
-        os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "euphotic"
+        os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "euphotic" / "masks"
     st = path.stat()
     h = hashlib.blake2b(digest_size=12)
     for arr in (lat, lon):
@@ -87,7 +85,7 @@ def packaged_ocean_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
     lat = np.asarray(lat, dtype=np.float64)
     lon = ((np.asarray(lon, dtype=np.float64) + 180.0) % 360.0) - 180.0
     cache = _cache_file(path, lat, lon)
-    if cache is not None and cache.is_file():
+    if cache.is_file():
         try:
             bits = np.load(cache, allow_pickle=False)
             return np.unpackbits(bits, count=lat.size * lon.size).astype(bool).reshape(
@@ -95,8 +93,7 @@ def packaged_ocean_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
         except (OSError, ValueError):
             pass  # unreadable: computed again and rewritten
     out = _stream_mask(path, lat, lon)
-    if cache is not None:
-        _save_atomic(cache, np.packbits(out.reshape(-1)))
+    _save_atomic(cache, np.packbits(out.reshape(-1)))
     return out
 
 
