@@ -427,6 +427,8 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
         if reused:
             log.info("reusing %d unchanged month map(s)", len(reused))
 
+        # the region masks file first: written while memory holds no map blocks yet
+        _region_file(cfg, prep, stage, entries, keep, {} if force else previous, provenance)
         ocean_mask, bits = _grid_masks(prep, client) if todo else (None, None)
         months_todo = list(dict.fromkeys(m for _, m in todo))
         per = cfg.months_per_compute or max(len(months_todo), 1)
@@ -562,7 +564,6 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
             provenance=provenance, metadata=cfg.metadata)
     entries[totals.name] = {"kind": "table", **runfolder.stat_entry(totals)}
     entries[sidecar.name] = {"kind": "table metadata", "of": totals.name, **runfolder.stat_entry(sidecar)}
-    _region_file(cfg, prep, stage, entries, keep, {} if force else previous, provenance)
     # two or more models: their spread (npp_ensemble_YYYY-MM.nc, ensemble_totals.csv)
     from euphotic import ensemble_outputs
 
