@@ -185,6 +185,14 @@ class _SharedTasks:
         self.layers = set(graph.layers) if graph is not None else set()
         self.tasks = convert_legacy_graph(dict(graph)) if graph is not None else {}
 
+    def add(self, collection) -> None:
+        """Add the tasks of ``collection`` (e.g. a mask made from a computed value)."""
+        from dask._task_spec import convert_legacy_graph
+
+        graph = collection.__dask_graph__()
+        self.layers.update(graph.layers)
+        self.tasks.update(convert_legacy_graph(dict(graph)))
+
     def tasks_for(self, keys) -> dict:
         """The tasks that ``keys`` need, taken from this graph (``keys`` must be in it)."""
         return _cull(self.tasks, keys)
@@ -505,6 +513,8 @@ def _writing(where: Path, what: str):
 
 def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, progress: bool,
          command: str, client, force: bool) -> RunResult:
+    import dask.array as dsa
+
     from euphotic import __version__
 
     out_dir = folder.path
@@ -574,16 +584,25 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
                 print(f"computing {span} ({i + 1} of {len(batches)})", file=sys.stderr)
+            # an ocean taken from temperature needs every file of it: computed with the first
+            # batch, then held as an array, so later batches do not read the whole stack again
+            lazy_ocean = ([ocean_mask.data] if shared is not None and i == 0
+                          and len(batches) > 1 and isinstance(prep.ocean.data, dsa.Array)
+                          else [])
             with _writing(out_dir, "the monthly maps"):
-                _, sums, n_valid, screened = _compute(
+                _, sums, n_valid, screened, *held = _compute(
                     [writes, [z.sums for z in lazies if z is not None], counts,
-                     report.lazy(batch)],
+                     report.lazy(batch), *lazy_ocean],
                     client=client, progress=progress, shared=shared)
                 # screening: warnings, and the counts of masked values into each month's file
                 screen_attrs = report.finish(batch, screened)
                 for (_, month), name in zip(items, names, strict=True):
                     screen.record_in_file(stage.file(name), screen_attrs[np.datetime64(month, "M")],
                                           cfg.output_format)
+            if held:
+                ocean_mask = ocean_mask.copy(data=dsa.from_array(
+                    np.asarray(held[0], bool), chunks=ocean_mask.data.chunks))
+                shared.add(ocean_mask.data)
             sums = iter(sums)
             for (model_name, month), z, nv, name in zip(items, lazies, n_valid, names,
                                                         strict=True):
