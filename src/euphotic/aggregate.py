@@ -177,8 +177,11 @@ def monthly_npp_models(
         days = all_days[covered]
         roles = list(dict.fromkeys(r for s in specs for r in s.roles if r != "day_length"
                                    and r in inputs))
-        stacks = {r: daily_stack(inputs[r], days) for r in roles}
-        out = _fused_months(runs, specs, stacks, dl_all[covered], ocean, n, dark_rows)
+        # each input's distinct periods once, with the period of each day (no day-by-day copy)
+        periods = {r: (inputs[r], day_to_period(inputs[r]["period_start"].values,
+                                                inputs[r]["period_end"].values, days))
+                   for r in roles}
+        out = _fused_months(runs, specs, periods, dl_all[covered], ocean, n, dark_rows)
         return [MonthlyMaps(month=m, model=name, npp=npp, coverage=cov, n_days=n)
                 for (name, _), (npp, cov) in zip(runs, out, strict=True)]
     days = all_days
@@ -211,11 +214,13 @@ class _MonthPass:
     def __init__(self, names: tuple[str, ...], roles: tuple[str, ...], layout: tuple):
         self.names, self.roles, self.layout = names, roles, layout
 
-    def __call__(self, acc, ocean, dl, *blocks):
+    def __call__(self, acc, ocean, dl, picks, *blocks):
         from euphotic.models import get_model
 
         n_roles = len(self.roles)
-        have = dict(zip(self.roles, blocks[:n_roles], strict=True))
+        # picks: per role, the position in its block of each day's period (None: no period)
+        have = {r: (b, p) for r, b, p in zip(self.roles, blocks[:n_roles], picks, strict=True)
+                if p is not None}
         extra = blocks[n_roles:]
         oc = np.ascontiguousarray(ocean, dtype=np.bool_)
         if acc is None:
@@ -227,26 +232,74 @@ class _MonthPass:
         for k in range(n_days):  # days outer: a day's blocks stay in cache for every model
             dl_k = np.ascontiguousarray(dl[k], dtype=np.float64)
             for i, model in enumerate(models):
-                day = [dl_k if r == "day_length" else (have[r][k] if r in have else missing)
+                day = [dl_k if r == "day_length" else _pick(have.get(r), k, missing)
                        for r in model.spec.roles]
                 model.accumulate(day, params[i], oc, acc[i, 0], acc[i, 1])
         return acc
 
 
-def _fused_months(runs, specs, stacks, dl, ocean, n, dark_rows):
-    """Per spatial block, one chain of tasks over the day chunks: each task adds its days'
+def _pick(have, k, missing):
+    """Day ``k``'s values of one input: the row of its block that holds the day's period."""
+    if have is None:
+        return missing
+    block, pos = have
+    return missing if pos[k] < 0 else block[pos[k]]
+
+
+def _day_steps(periods: dict, n_days: int) -> list[tuple[int, int, dict]]:
+    """Split the days (in order) into runs whose periods lie in one time block of every input.
+
+    ``periods``: role -> (block start offsets (n_blocks + 1,), day -> period index, -1 none).
+    Returns ``[(first day, end day, {role: (block or -1, positions in the block)})]``.
+    """
+    if n_days == 0:  # one empty step: the block's sums start and stay at zero
+        return [(0, 0, {r: (-1, np.zeros(0, np.intp)) for r in periods})]
+    where = {}
+    for r, (starts, idx) in periods.items():
+        blk = np.searchsorted(starts, idx, side="right") - 1
+        where[r] = (np.where(idx >= 0, blk, -1), idx - starts[np.clip(blk, 0, None)])
+    key = np.stack([b for b, _ in where.values()], axis=1) if where else np.zeros((n_days, 0))
+    cut = np.flatnonzero(np.any(key[1:] != key[:-1], axis=1)) + 1
+    bounds = [0, *cut.tolist(), n_days]
+    steps = []
+    for d0, d1 in zip(bounds[:-1], bounds[1:], strict=True):
+        picks = {}
+        for r, (blk, pos) in where.items():
+            b = int(blk[d0])
+            picks[r] = (b, np.where(blk[d0:d1] >= 0, pos[d0:d1], -1).astype(np.intp))
+        steps.append((d0, d1, picks))
+    return steps
+
+
+def _fused_months(runs, specs, periods, dl, ocean, n, dark_rows):
+    """Per spatial block, one chain of tasks over the month's days: each task adds its days'
     valid rates of every model into the block's running (sum, count), in place, and the last
     one turns them into (mean rate, coverage). One accumulator per block is alive, however
-    many days. Returns [(npp, coverage)] per model."""
+    many days. Returns [(npp, coverage)] per model.
+
+    ``periods``: role -> (input (time, lat, lon) with its distinct periods, day -> period
+    index). A task takes each input's time block once, with the position of each of its days'
+    period in it, so a period standing for many days (a composite) is neither copied nor
+    repeated in the graph; the days are taken in order, so the sums are those of a day-by-day
+    pass. Each day is evaluated with its own day length.
+    """
     import dask.array as da
     from dask.base import tokenize
     from dask.highlevelgraph import HighLevelGraph
 
-    roles = tuple(stacks)
-    first = stacks[roles[0]]
+    roles = tuple(periods)
+    first = periods[roles[0]][0]
     cd = first.data if isinstance(first.data, da.Array) else da.from_array(first.values)
     spatial = cd.chunks[1:]
-    arrays = [cd] + [da.asarray(stacks[r].data).rechunk(cd.chunks) for r in roles[1:]]
+    arrays, offsets = [], {}
+    for r in roles:
+        a = periods[r][0].data
+        a = (a if isinstance(a, da.Array) else da.from_array(np.asarray(a)))
+        a = a.rechunk((a.chunks[0],) + spatial)
+        arrays.append(a)
+        offsets[r] = (np.concatenate([[0], np.cumsum(a.chunks[0])]), periods[r][1])
+    n_days = len(dl)
+    steps = _day_steps(offsets, n_days)
     layout, extra = [], []
     for (_, params), spec in zip(runs, specs, strict=True):
         lay = []
@@ -260,21 +313,26 @@ def _fused_months(runs, specs, stacks, dl, ocean, n, dark_rows):
         layout.append(tuple(lay))
     names = tuple(name for name, _ in runs)
     task = _MonthPass(names, roles, tuple(layout))
-    dld = da.from_array(np.asarray(dl, np.float64), chunks=(cd.chunks[0], spatial[0]))
+    day_chunks = tuple(d1 - d0 for d0, d1, _ in steps) or (0,)
+    dld = da.from_array(np.asarray(dl, np.float64), chunks=(day_chunks, spatial[0]))
     oc = ocean.data if isinstance(ocean.data, da.Array) else da.from_array(np.asarray(ocean.values, bool))
     oc = oc.rechunk(spatial)
     dark = da.from_array(np.asarray(dark_rows, np.float64), chunks=(spatial[0],))
-    token = tokenize(names, layout, *arrays, *extra, dld, oc, dark, n)
+    plan = [(d0, d1, tuple(tuple(map(int, p[r][1])) + (p[r][0],) for r in roles))
+            for d0, d1, p in steps]
+    token = tokenize(names, layout, *arrays, *extra, dld, oc, dark, n, plan)
     step, final = f"month-step-{token}", f"month-mean-{token}"
     dsk = {}
-    n_steps = len(cd.chunks[0])
     for y in range(len(spatial[0])):
         for x in range(len(spatial[1])):
             prev = None
-            for d in range(n_steps):
+            for d, (_, _, picks) in enumerate(steps):
+                blocks = [None if picks[r][0] < 0 else (a.name, picks[r][0], y, x)
+                          for r, a in zip(roles, arrays, strict=True)]
+                pos = tuple(None if picks[r][0] < 0 else picks[r][1] for r in roles)
                 dsk[(step, d, y, x)] = (
-                    task, prev, (oc.name, y, x), (dld.name, d, y),
-                    *[(a.name, d, y, x) for a in arrays], *[(e.name, y, x) for e in extra],
+                    task, prev, (oc.name, y, x), (dld.name, d, y), pos,
+                    *blocks, *[(e.name, y, x) for e in extra],
                 )
                 prev = (step, d, y, x)
             # one task per block turns (sum, count) into (mean rate, coverage), so both outputs

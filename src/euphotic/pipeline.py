@@ -168,8 +168,105 @@ def _grid_masks(prep: Prepared, client):
     return ocean_mask, (None if bits is None else lazy(bits))
 
 
-def _compute(objs, *, client, progress: bool):
-    """Compute ``objs`` once, with a progress bar when asked."""
+class _SharedTasks:
+    """The tasks of the run's inputs (reading, decoding, screening counts) and grid masks,
+    made into one plain graph once per run, so that a month's graph is cut out of it by
+    walking from the month's outputs: the cost of a month then grows with that month's tasks,
+    not with the number of files in the whole run (graph optimisation of layers spanning the
+    whole stack, repeated for every month, cost more than the month's arithmetic)."""
+
+    def __init__(self, *collections):
+        from dask._task_spec import convert_legacy_graph
+        from dask.base import unpack_collections
+        from dask.highlevelgraph import HighLevelGraph
+
+        colls, _ = unpack_collections(*collections, traverse=True)
+        graph = HighLevelGraph.merge(*[c.__dask_graph__() for c in colls]) if colls else None
+        self.layers = set(graph.layers) if graph is not None else set()
+        self.tasks = convert_legacy_graph(dict(graph)) if graph is not None else {}
+
+    def add(self, collection) -> None:
+        """Add the tasks of ``collection`` (e.g. a mask made from a computed value)."""
+        from dask._task_spec import convert_legacy_graph
+
+        graph = collection.__dask_graph__()
+        self.layers.update(graph.layers)
+        self.tasks.update(convert_legacy_graph(dict(graph)))
+
+    def tasks_for(self, keys) -> dict:
+        """The tasks that ``keys`` need, taken from this graph (``keys`` must be in it)."""
+        return _cull(self.tasks, keys)
+
+    def month_graph(self, collections) -> tuple[dict, list]:
+        """(plain graph of only the tasks the collections need, their keys)."""
+        from dask._task_spec import convert_legacy_graph
+        from dask.core import flatten
+        from dask.highlevelgraph import HighLevelGraph
+
+        graph = HighLevelGraph.merge(*[c.__dask_graph__() for c in collections])
+        own = {}
+        for name, layer in graph.layers.items():
+            if name not in self.layers:
+                own.update(layer)
+        own = convert_legacy_graph(own, all_keys=_Keys(own, self.tasks))
+        keys = [c.__dask_keys__() for c in collections]
+        return _cull(_Tasks(own, self.tasks), list(flatten(keys))), keys
+
+
+class _Keys:
+    """``in`` over two graphs without merging them."""
+
+    def __init__(self, a, b):
+        self.a, self.b = a, b
+
+    def __contains__(self, k) -> bool:
+        try:
+            return k in self.a or k in self.b
+        except TypeError:  # an unhashable literal
+            return False
+
+
+class _Tasks(_Keys):
+    def __getitem__(self, k):
+        return self.a[k] if k in self.a else self.b[k]
+
+
+def _cull(tasks, keys) -> dict:
+    """The tasks reachable from ``keys`` in ``tasks`` (converted graph nodes)."""
+    out: dict = {}
+    work = list(keys)
+    while work:
+        k = work.pop()
+        if k in out:
+            continue
+        node = tasks[k]
+        out[k] = node
+        work.extend(d for d in node.dependencies if d not in out)
+    return out
+
+
+def _compute(objs, *, client, progress: bool, shared: _SharedTasks | None = None):
+    """Compute ``objs`` once, with a progress bar when asked.
+
+    With ``shared`` (local scheduler), the graph is cut out of the run's shared tasks and
+    given to the scheduler as it is: no graph optimisation per compute."""
+    if client is None and shared is not None:
+        from dask.base import get_scheduler, unpack_collections
+
+        collections, repack = unpack_collections(*objs, traverse=True)
+        if not collections:
+            return objs
+        dsk, keys = shared.month_graph(collections)
+        schedule = get_scheduler(collections=collections)
+        posts = [c.__dask_postcompute__() for c in collections]
+        if progress:
+            from dask.diagnostics import ProgressBar
+
+            with ProgressBar(minimum=1.0, dt=0.5):
+                results = schedule(dsk, keys)
+        else:
+            results = schedule(dsk, keys)
+        return repack([f(r, *a) for r, (f, a) in zip(results, posts, strict=True)])
     if client is not None:
         futures = client.compute(objs)
         if progress:
@@ -297,7 +394,8 @@ def _item_fingerprints(cfg: RunConfig, prep: Prepared) -> dict[tuple[str, np.dat
 
 
 def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_files, command,
-                 stage: runfolder.Stage, provenance: dict, extra_attrs: dict | None = None):
+                 stage: runfolder.Stage, provenance: dict, extra_attrs: dict | None = None,
+                 shared: _SharedTasks | None = None):
     """Lazy writes into the stage, regional sums and valid-cell counts of the (model, month)
     items of one batch. Returns (writes, sums, counts, names) in item order."""
     names = prep.region_masks.names
@@ -309,7 +407,8 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_
     for month in dict.fromkeys(mo for _, mo in items):
         runs = [(m, parameter_settings(m, cfg.model_settings.get(m), prep.region_masks))
                 for m, mo in items if mo == month]
-        for maps in aggregate.monthly_npp_models(runs, month, inputs=inputs, ocean=ocean_mask):
+        for maps in aggregate.monthly_npp_models(runs, month, inputs=_month_inputs(
+                inputs, month, shared), ocean=ocean_mask):
             maps_of[(maps.model, month)] = maps
     for model_name, month in items:
         maps = maps_of[(model_name, month)]
@@ -332,6 +431,41 @@ def _batch_graph(cfg: RunConfig, prep: Prepared, items, ocean_mask, bits, input_
 def _prep_inputs(prep: Prepared) -> dict[str, xr.DataArray]:
     """Role -> input on the grid (day length only when it is an input)."""
     return dict(prep.inputs)
+
+
+def _month_inputs(inputs: dict[str, xr.DataArray], month: np.datetime64,
+                  shared: _SharedTasks | None) -> dict[str, xr.DataArray]:
+    """Each input cut to the time blocks holding the periods that touch ``month``, its graph
+    one layer of only those blocks' tasks (taken from ``shared``): what the month's graph
+    refers to does not grow with the number of files in the run."""
+    import dask.array as da
+    from dask._task_spec import Alias
+    from dask.highlevelgraph import HighLevelGraph
+
+    if shared is None:
+        return dict(inputs)
+    m0 = np.datetime64(month, "M").astype("datetime64[D]")
+    m1 = (np.datetime64(month, "M") + 1).astype("datetime64[D]")
+    out = {}
+    for role, d in inputs.items():
+        a = d.data
+        hit = np.flatnonzero((d["period_start"].values.astype("datetime64[D]") < m1)
+                             & (d["period_end"].values.astype("datetime64[D]") > m0))
+        if not isinstance(a, da.Array) or not len(hit) or a.name not in shared.layers:
+            out[role] = d
+            continue
+        bounds = np.concatenate([[0], np.cumsum(a.chunks[0])])
+        b0, b1 = (int(np.searchsorted(bounds, i, side="right")) - 1 for i in (hit[0], hit[-1]))
+        grid = [(y, x) for y in range(len(a.chunks[1])) for x in range(len(a.chunks[2]))]
+        name = f"{a.name}-blocks-{b0}-{b1}"
+        layer = shared.tasks_for([(a.name, b, y, x) for b in range(b0, b1 + 1) for y, x in grid])
+        for b in range(b0, b1 + 1):
+            for y, x in grid:
+                layer[(name, b - b0, y, x)] = Alias((name, b - b0, y, x), (a.name, b, y, x))
+        arr = da.Array(HighLevelGraph({name: layer}, {name: set()}), name,
+                       chunks=(a.chunks[0][b0: b1 + 1],) + a.chunks[1:], meta=a._meta)
+        out[role] = d.isel(time=slice(int(bounds[b0]), int(bounds[b1 + 1]))).copy(data=arr)
+    return out
 
 
 def _rows_to_json(rows: list[dict]) -> list[dict]:
@@ -379,6 +513,8 @@ def _writing(where: Path, what: str):
 
 def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, progress: bool,
          command: str, client, force: bool) -> RunResult:
+    import dask.array as dsa
+
     from euphotic import __version__
 
     out_dir = folder.path
@@ -430,6 +566,12 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
         # the region masks file first: written while memory holds no map blocks yet
         _region_file(cfg, prep, stage, entries, keep, {} if force else previous, provenance)
         ocean_mask, bits = _grid_masks(prep, client) if todo else (None, None)
+        # local scheduler: the inputs' and masks' tasks made into one plain graph, once
+        shared = _SharedTasks(
+            [d.data for d in prep.inputs.values()],
+            [c.totals for c in (d.attrs.get("screen_counts") for d in prep.inputs.values())
+             if c is not None],
+            ocean_mask.data, bits) if client is None and todo else None
         months_todo = list(dict.fromkeys(m for _, m in todo))
         per = cfg.months_per_compute or max(len(months_todo), 1)
         batches = [months_todo[i: i + per] for i in range(0, len(months_todo), per)]
@@ -440,20 +582,29 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             with _writing(out_dir, "the monthly maps"):  # the files' headers are written here
                 writes, lazies, counts, names = _batch_graph(
                     cfg, prep, items, ocean_mask, bits, input_files, command, stage, provenance,
-                    extra_attrs=report.static_attrs())
+                    extra_attrs=report.static_attrs(), shared=shared)
             if progress and len(batches) > 1:
                 span = f"{batch[0]}" if len(batch) == 1 else f"{batch[0]}..{batch[-1]}"
                 print(f"computing {span} ({i + 1} of {len(batches)})", file=sys.stderr)
+            # an ocean taken from temperature needs every file of it: computed with the first
+            # batch, then held as an array, so later batches do not read the whole stack again
+            lazy_ocean = ([ocean_mask.data] if shared is not None and i == 0
+                          and len(batches) > 1 and isinstance(prep.ocean.data, dsa.Array)
+                          else [])
             with _writing(out_dir, "the monthly maps"):
-                _, sums, n_valid, screened = _compute(
+                _, sums, n_valid, screened, *held = _compute(
                     [writes, [z.sums for z in lazies if z is not None], counts,
-                     report.lazy(batch)],
-                    client=client, progress=progress)
+                     report.lazy(batch), *lazy_ocean],
+                    client=client, progress=progress, shared=shared)
                 # screening: warnings, and the counts of masked values into each month's file
                 screen_attrs = report.finish(batch, screened)
                 for (_, month), name in zip(items, names, strict=True):
                     screen.record_in_file(stage.file(name), screen_attrs[np.datetime64(month, "M")],
                                           cfg.output_format)
+            if held:
+                ocean_mask = ocean_mask.copy(data=dsa.from_array(
+                    np.asarray(held[0], bool), chunks=ocean_mask.data.chunks))
+                shared.add(ocean_mask.data)
             sums = iter(sums)
             for (model_name, month), z, nv, name in zip(items, lazies, n_valid, names,
                                                         strict=True):
