@@ -40,3 +40,26 @@ def test_units_and_models_still_work_after_a_light_import():
     assert ureg.Quantity(1.0, "degrees_C").to("K").magnitude == pytest.approx(274.15)
     with pytest.raises(AttributeError):
         units.no_such_thing  # noqa: B018
+
+
+def test_citations_are_kept_between_runs_and_equal_the_rendered_text(tmp_path, monkeypatch):
+    """The stored citation lines are those pybtex renders from references.bib (the reference
+    path, :func:`euphotic.models.citation`); a damaged store is rendered again."""
+    from euphotic import models
+
+    monkeypatch.setenv("EUPHOTIC_CACHE_DIR", str(tmp_path))
+    monkeypatch.setattr(models._Citations, "_cache", {})
+    want = models.citation("vgpm")
+    assert models.CITATIONS["vgpm"] == want
+    stores = list(tmp_path.glob("citations_*.json"))
+    assert len(stores) == 1
+    assert json.loads(stores[0].read_text()) == {" ".join(models.SPECS["vgpm"].citation_keys): want}
+    # read back from the store, with the renderer out of reach
+    monkeypatch.setattr(models._Citations, "_cache", {})
+    monkeypatch.setattr(models, "citation", lambda name: pytest.fail("rendered again"))
+    assert models.CITATIONS["vgpm"] == want
+    # a damaged store: rendered again
+    stores[0].write_text("{not json")
+    monkeypatch.setattr(models._Citations, "_cache", {})
+    monkeypatch.setattr(models, "citation", lambda name: "fresh")
+    assert models.CITATIONS["vgpm"] == "fresh"
