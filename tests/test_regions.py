@@ -587,3 +587,45 @@ def test_box_edges_are_half_open_so_neighbours_tile():
     assert cells(-10, -5, 10, 5).sum() == 20 * 10
     assert cells(-180, 80, 180, 90)[-1].all()  # whole globe in longitude, top row in
     assert cells(170, 0, -170, 1).sum() == 20  # across the antimeridian
+
+
+@pytest.mark.parametrize("lat_step, lon0", [(-1.0, 0.0), (-0.5, -180.0), (1 / 24, -180.0)])
+def test_box_window_matches_polygon_path_on_descending_and_fine_grids(lat_step, lon0):
+    """Index-range boxes against the polygon path (rasterio burning the box polygon, itself
+    checked against shapely above) on descending-latitude, 0..360 and 1/24-degree grids.
+    Centres sit half a cell off whole degrees, so no centre lies on a box edge (on an edge the
+    two rules differ by design: boxes are half-open, see the test above)."""
+    from euphotic.regions import box_window
+
+    step = abs(lat_step)
+    lat = np.arange(90 - step / 2, -90, -step) if lat_step < 0 else np.arange(
+        -90 + step / 2, 90, step)
+    lon = np.arange(lon0 + step / 2, lon0 + 360, step)
+    if step < 0.1:  # the fine grid: a band of rows keeps the test light
+        lat = lat[(lat > -12) & (lat < 12)]
+    rng = np.random.default_rng(11)
+    for _ in range(40 if step >= 0.5 else 8):
+        s, n = np.sort(rng.choice(np.arange(-90, 91), 2, replace=False)).astype(float)
+        w, e = rng.choice(np.arange(-180, 181), 2, replace=False).astype(float)
+        win = box_window(w, s, e, n, lat, lon)
+        got = np.zeros((len(lat), len(lon)), bool)
+        got[win.rows, win.cols] = win.mask
+        np.testing.assert_array_equal(got, polygon_mask(box_geometry(w, s, e, n), lat, lon),
+                                      err_msg=f"box {[w, s, e, n]}")
+
+
+def test_packaged_ocean_mask_is_kept_between_runs(tmp_path, monkeypatch):
+    """The stored mask is the one sampled from the packaged land mask (the reference path),
+    read back without sampling again; a damaged store is sampled again."""
+    from euphotic import ocean
+
+    monkeypatch.setenv("EUPHOTIC_CACHE_DIR", str(tmp_path))
+    lat, lon = np.arange(89.5, -90, -1.0), np.arange(0.5, 360, 1.0)
+    want = ocean.sample_packaged_mask(lat, lon)
+    np.testing.assert_array_equal(ocean.packaged_ocean_mask(lat, lon), want)
+    (store,) = tmp_path.glob("ocean_*.npy")
+    monkeypatch.setattr(ocean, "sample_packaged_mask", lambda *a: pytest.fail("sampled again"))
+    np.testing.assert_array_equal(ocean.packaged_ocean_mask(lat, lon), want)
+    store.write_bytes(b"damaged")
+    monkeypatch.setattr(ocean, "sample_packaged_mask", lambda la, lo: np.zeros((180, 360), bool))
+    assert not ocean.packaged_ocean_mask(lat, lon).any()

@@ -8,40 +8,62 @@ from __future__ import annotations
 
 import re
 from functools import lru_cache
-
-import pint
-from cf_xarray.units import units as ureg
+from typing import TYPE_CHECKING
 
 from euphotic.constants import PAR_UMOL_PER_J, SECONDS_PER_DAY
 
-# "mol photons" is written in many ways; pint has no photon, so photons count as plain moles.
-# einstein (one mole of photons) is a long-standing unit in ocean optics.
-if "einstein" not in ureg:
-    ureg.define("einstein = mole = E")
-# Temperature spellings seen in gridded products that the registry does not know.
-# (UDUNITS-2 lib/udunits2-common.xml lists these spellings.)
-for _alias in (
-    "degrees_C",
-    "degrees_Celsius",
-    "deg_Celsius",
-    "degree_C",
-    "degreesC",
-    "degs_C",
-    "degsC",
-):
-    if _alias not in ureg:
-        ureg.define(f"@alias degree_Celsius = {_alias}")
-for _alias in (
-    "degree_K",
-    "degrees_K",
-    "degree_kelvin",
-    "degrees_kelvin",
-    "degreesK",
-    "degs_K",
-    "degsK",
-):
-    if _alias not in ureg:
-        ureg.define(f"@alias kelvin = {_alias}")
+if TYPE_CHECKING:
+    import pint
+
+
+@lru_cache(maxsize=1)
+def registry():
+    """The unit registry (cf-xarray's, with the spellings below added), built on first use:
+    building it costs most of a second, which ``import euphotic`` should not pay."""
+    from cf_xarray.units import units as ureg
+
+    _extend(ureg)
+    return ureg
+
+
+def __getattr__(name: str):
+    # ``from euphotic.units import ureg`` keeps working, building the registry then.
+    if name == "ureg":
+        return registry()
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
+
+
+def _extend(ureg) -> None:
+    """Add the photon and temperature spellings the registry does not know."""
+    # "mol photons" is written in many ways; pint has no photon, so photons count as plain moles.
+    # einstein (one mole of photons) is a long-standing unit in ocean optics.
+    if "einstein" not in ureg:
+        ureg.define("einstein = mole = E")
+    # Temperature spellings seen in gridded products that the registry does not know.
+    # (UDUNITS-2 lib/udunits2-common.xml lists these spellings.)
+    for _alias in (
+        "degrees_C",
+        "degrees_Celsius",
+        "deg_Celsius",
+        "degree_C",
+        "degreesC",
+        "degs_C",
+        "degsC",
+    ):
+        if _alias not in ureg:
+            ureg.define(f"@alias degree_Celsius = {_alias}")
+    for _alias in (
+        "degree_K",
+        "degrees_K",
+        "degree_kelvin",
+        "degrees_kelvin",
+        "degreesK",
+        "degs_K",
+        "degsK",
+    ):
+        if _alias not in ureg:
+            ureg.define(f"@alias kelvin = {_alias}")
+
 
 _PHOTON_WORDS = re.compile(r"\b(photons?|quanta)\b", re.IGNORECASE)
 
@@ -67,7 +89,7 @@ def parse_units(text: str) -> pint.Unit:
     if re.fullmatch(r"[A-Za-z]+(\.[A-Za-z0-9^-]+)+", cleaned):
         cleaned = cleaned.replace(".", " ")
     try:
-        unit = ureg.parse_units(cleaned)
+        unit = registry().parse_units(cleaned)
     except Exception as exc:  # pint raises several types here
         raise UnitError(f"unknown unit {text!r}") from exc
     return unit
@@ -77,6 +99,9 @@ def linear_factors(from_units: str, to_units: str) -> tuple[float, float]:
     """Return ``(a, b)`` such that ``value_in_to_units = a * value_in_from_units + b``."""
     src = parse_units(from_units)
     dst = parse_units(to_units)
+    import pint
+
+    ureg = registry()
     try:
         y0 = ureg.Quantity(0.0, src).to(dst).magnitude
         y1 = ureg.Quantity(1.0, src).to(dst).magnitude
@@ -109,7 +134,7 @@ def par_factors(from_units: str) -> tuple[float, str]:
         ``kind`` is ``"photons"`` or ``"energy"`` (the latter used McCree's factor).
     """
     unit = parse_units(from_units)
-    q = ureg.Quantity(1.0, unit)
+    q = registry().Quantity(1.0, unit)
     if q.check("[substance] / [length] ** 2"):
         # A dose with no time: per day is assumed only if the string says nothing else.
         raise UnitError(f"PAR unit {from_units!r} has no time; expected e.g. 'mol m-2 d-1'")

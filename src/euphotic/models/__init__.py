@@ -137,6 +137,58 @@ def citation(name: str) -> str:
     return " ".join(reference_text_for(k) for k in SPECS[name].citation_keys)
 
 
+def _citation_store():
+    """The file keeping rendered citation lines between runs (rendering the references with
+    pybtex takes over a second per process), named by a hash of ``references.bib`` and of
+    the code rendering it, in the kernel cache folder; None when those cannot be read."""
+    import hashlib
+    from pathlib import Path
+
+    from euphotic import methods
+    from euphotic.models._declare import kernel_cache_dir
+
+    h = hashlib.sha256()
+    try:
+        for f in (Path(methods.__file__).with_name("references.bib"), Path(methods.__file__)):
+            h.update(f.read_bytes())
+    except OSError:
+        return None
+    return kernel_cache_dir() / f"citations_{h.hexdigest()[:16]}.json"
+
+
+def _stored_citation(name: str) -> str:
+    """:func:`citation` of ``name``, read from the citation store when it holds the keys,
+    else rendered and added to the store (written whole by a rename; a store that cannot be
+    read or written is skipped)."""
+    import json
+    import os
+    import tempfile
+
+    keys = " ".join(SPECS[name].citation_keys)
+    store = _citation_store()
+    known: dict = {}
+    if store is not None:
+        try:
+            known = json.loads(store.read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            known = {}
+        if isinstance(known, dict) and isinstance(known.get(keys), str):
+            return known[keys]
+    text = citation(name)
+    if store is not None:
+        known = dict(known) if isinstance(known, dict) else {}
+        known[keys] = text
+        try:
+            store.parent.mkdir(parents=True, exist_ok=True)
+            fd, tmp = tempfile.mkstemp(dir=store.parent, suffix=".tmp")
+            with os.fdopen(fd, "w", encoding="utf-8") as fh:
+                json.dump(known, fh)
+            os.replace(tmp, store)
+        except OSError:
+            pass
+    return text
+
+
 class _Citations(Mapping):
     """Model name -> its references as one line of text (formatted on first use)."""
 
@@ -146,7 +198,7 @@ class _Citations(Mapping):
         if name not in SPECS:
             raise KeyError(name)
         if name not in self._cache:
-            self._cache[name] = citation(name)
+            self._cache[name] = _stored_citation(name)
         return self._cache[name]
 
     def __iter__(self):

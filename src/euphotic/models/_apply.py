@@ -2,9 +2,9 @@
 
 from __future__ import annotations
 
+import sys
 from collections.abc import Callable
 
-import dask.array as da
 import numpy as np
 import xarray as xr
 
@@ -140,7 +140,10 @@ def apply_kernel(kernel: Callable, *args, name: str, attrs: dict | None = None):
         if attrs:
             out.attrs.update(attrs)
         return out
-    if any(isinstance(a, da.Array) for a in args):
+    # dask.array is imported only when dask is in play: a dask array among the inputs means
+    # the module is loaded already (keeps ``import euphotic`` light).
+    da = sys.modules.get("dask.array")
+    if da is not None and any(isinstance(a, da.Array) for a in args):
         arrays = da.broadcast_arrays(*[da.asarray(a) for a in args])
         return da.map_blocks(kernel, *arrays, dtype=np.float64)
     return kernel(*[np.asarray(a, dtype=np.float64) for a in args])

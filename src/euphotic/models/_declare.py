@@ -34,7 +34,7 @@ from pathlib import Path
 
 import numpy as np
 
-from euphotic.models._compiled import HAVE_NUMBA, use_compiled
+from euphotic.models._compiled import HAVE_NUMBA, compile_points, use_compiled
 
 #: The role whose value is one number per latitude row and day in the fused monthly pass.
 DAY_LENGTH = "day_length"
@@ -224,6 +224,7 @@ def _load_generated_locked(spec: ModelSpec):
     global _DIGEST
     import numba
 
+    compile_points()
     src = _source(spec)
     if _DIGEST is None:
         _DIGEST = _models_digest()
