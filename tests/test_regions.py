@@ -612,20 +612,3 @@ def test_box_window_matches_polygon_path_on_descending_and_fine_grids(lat_step, 
         got[win.rows, win.cols] = win.mask
         np.testing.assert_array_equal(got, polygon_mask(box_geometry(w, s, e, n), lat, lon),
                                       err_msg=f"box {[w, s, e, n]}")
-
-
-def test_packaged_ocean_mask_is_kept_between_runs(tmp_path, monkeypatch):
-    """The stored mask is the one sampled from the packaged land mask (the reference path),
-    read back without sampling again; a damaged store is sampled again."""
-    from euphotic import ocean
-
-    monkeypatch.setenv("EUPHOTIC_CACHE_DIR", str(tmp_path))
-    lat, lon = np.arange(89.5, -90, -1.0), np.arange(0.5, 360, 1.0)
-    want = ocean.sample_packaged_mask(lat, lon)
-    np.testing.assert_array_equal(ocean.packaged_ocean_mask(lat, lon), want)
-    (store,) = tmp_path.glob("ocean_*.npy")
-    monkeypatch.setattr(ocean, "sample_packaged_mask", lambda *a: pytest.fail("sampled again"))
-    np.testing.assert_array_equal(ocean.packaged_ocean_mask(lat, lon), want)
-    store.write_bytes(b"damaged")
-    monkeypatch.setattr(ocean, "sample_packaged_mask", lambda la, lo: np.zeros((180, 360), bool))
-    assert not ocean.packaged_ocean_mask(lat, lon).any()

@@ -73,46 +73,6 @@ def _cache_file(path: Path, lat: np.ndarray, lon: np.ndarray) -> Path:
 
 
 def packaged_ocean_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
-    """Ocean (True) at each cell centre, from the 1/120-degree mask of `global-land-mask`
-    (:func:`sample_packaged_mask`), kept between runs in the kernel cache folder as packed
-    bits named by a hash of the grid and of the mask file's size and time: inflating the
-    whole packaged mask takes over a second at every start.
-    """
-    import hashlib
-    import os
-    import tempfile
-
-    from euphotic.models._declare import kernel_cache_dir
-
-    path = _packaged_mask_path()
-    lat = np.asarray(lat, dtype=np.float64)
-    lon = np.asarray(lon, dtype=np.float64)
-    st = path.stat()
-    h = hashlib.sha256(f"{st.st_size} {st.st_mtime_ns} {lat.size} {lon.size}".encode())
-    h.update(lat.tobytes())
-    h.update(lon.tobytes())
-    h.update(Path(__file__).read_bytes())  # a change of the sampling rule: a new file
-    store = kernel_cache_dir() / f"ocean_{h.hexdigest()[:20]}.npy"
-    n = lat.size * lon.size
-    try:
-        packed = np.load(store, allow_pickle=False)
-        if packed.dtype == np.uint8 and packed.size == (n + 7) // 8:
-            return np.unpackbits(packed, count=n).view(bool).reshape(lat.size, lon.size)
-    except (OSError, ValueError):
-        pass
-    out = sample_packaged_mask(lat, lon)
-    try:
-        store.parent.mkdir(parents=True, exist_ok=True)
-        fd, tmp = tempfile.mkstemp(dir=store.parent, suffix=".tmp")
-        with os.fdopen(fd, "wb") as fh:
-            np.save(fh, np.packbits(out.reshape(-1)), allow_pickle=False)
-        os.replace(tmp, store)
-    except OSError:  # read-only cache: sampled again next run
-        pass
-    return out
-
-
-def sample_packaged_mask(lat: np.ndarray, lon: np.ndarray) -> np.ndarray:
     """Ocean (True) at each cell centre, from the 1/120-degree mask of `global-land-mask`.
 
     The package's mask (21600 x 43200 booleans, rows from 90N southwards, True = ocean) is
