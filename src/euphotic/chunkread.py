@@ -30,21 +30,31 @@ try:  # libdeflate: whole-buffer inflate, 1.6-2x faster than ISA-L or zlib on fl
 except ImportError:  # pragma: no cover
     _libdeflate = None
 
-try:  # compiled byte unshuffle that releases the GIL (numpy transpose-copy otherwise)
-    import numba
+def _unshuffle_kernel(src, out, size):  # pragma: no cover - compiled
+    # out seen as (element, byte): each byte plane of src is copied into one column
+    n = out.size // size
+    o = out[: n * size].reshape((n, size))
+    for b in range(size):
+        plane = src[b * n : (b + 1) * n]
+        for i in range(n):
+            o[i, b] = plane[i]
 
-    @numba.njit(nogil=True, cache=True)
-    def _unshuffle_into(src, out, size):  # pragma: no cover - compiled
-        # out seen as (element, byte): each byte plane of src is copied into one column
-        n = out.size // size
-        o = out[: n * size].reshape((n, size))
-        for b in range(size):
-            plane = src[b * n : (b + 1) * n]
-            for i in range(n):
-                o[i, b] = plane[i]
 
-except ImportError:  # pragma: no cover
-    _unshuffle_into = None
+_unshuffle_compiled = None
+
+
+def _unshuffle_into_fn():
+    """The compiled byte unshuffle (releases the GIL), numba imported on first use; None
+    without numba (a numpy transpose-copy then)."""
+    global _unshuffle_compiled
+    if _unshuffle_compiled is None:
+        try:
+            import numba
+        except ImportError:  # pragma: no cover
+            return None
+        _unshuffle_compiled = numba.njit(nogil=True, cache=True)(_unshuffle_kernel)
+    return _unshuffle_compiled
+
 
 H5Z_DEFLATE, H5Z_SHUFFLE, H5Z_FLETCHER32 = 1, 2, 3
 _SUPPORTED = {H5Z_DEFLATE, H5Z_SHUFFLE, H5Z_FLETCHER32}
@@ -177,8 +187,9 @@ def _unshuffle(buf, size: int) -> np.ndarray:
     src = np.frombuffer(buf, dtype=np.uint8)
     n = src.size // size
     out = np.empty(src.size, dtype=np.uint8)
-    if _unshuffle_into is not None:
-        _unshuffle_into(src[: n * size], out, size)
+    kernel = _unshuffle_into_fn()
+    if kernel is not None:
+        kernel(src[: n * size], out, size)
     else:  # pragma: no cover
         out[: n * size] = src[: n * size].reshape(size, n).T.ravel()
     out[n * size :] = src[n * size :]  # HDF5 leaves a remainder of bytes unshuffled
