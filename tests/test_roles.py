@@ -417,3 +417,26 @@ def test_inspect_tries_every_catalogued_input():
     assert res.stdout.splitlines()[:2] == [
         "input:     bbp (particulate backscattering coefficient at 443 nm)",
         "variable:  bbp_443 -> converted to m-1"]
+
+
+def test_unit_answers_kept_between_runs(tmp_path, monkeypatch):
+    """Conversion factors are worked out with pint once and then read back from the cache
+    folder without building the registry; the answers are pint's (kelvin to Celsius: the SI
+    definition, t/degC = T/K - 273.15; W m-2 to a daily photon dose: McCree 1972's
+    4.57 umol J-1 times 86,400 s)."""
+    from euphotic import units
+
+    monkeypatch.setenv("EUPHOTIC_CACHE_DIR", str(tmp_path))
+    monkeypatch.setattr(units, "_TABLE", None)
+    assert units.linear_factors("K", "degC") == pytest.approx((1.0, -273.15))
+    assert units.par_factors("W m-2")[1] == "energy"
+    (stored,) = tmp_path.glob("units-*.json")
+    monkeypatch.setattr(units, "_TABLE", None)  # a new run: the table read from the file
+    monkeypatch.setattr(units, "registry", lambda: pytest.fail("registry built again"))
+    assert units.linear_factors("K", "degC") == pytest.approx((1.0, -273.15))
+    factor, kind = units.par_factors("W m-2")
+    assert kind == "energy" and factor == pytest.approx(4.57e-6 * 86400)
+    stored.write_text("not json")  # a damaged table is worked out again
+    monkeypatch.setattr(units, "_TABLE", None)
+    with pytest.raises(pytest.fail.Exception, match="registry built again"):
+        units.linear_factors("K", "degC")

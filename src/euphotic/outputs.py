@@ -644,9 +644,10 @@ def region_dataset(masks, lat: np.ndarray, lon: np.ndarray, area_rows_m2: np.nda
         {
             "region_name": ("region", np.array(names, dtype=object),
                             {"long_name": "region name, as configured"}),
-            # signed on disk (CF 1.8 has no unsigned types): uint16 planes as int32
+            # signed on disk (CF 1.8 has no unsigned types): the next wider signed type
+            # holds every value (uint8 planes as int16, uint16 as int32)
             "region_planes": (("plane", "lat", "lon"), planes.astype(
-                np.int32 if planes.dtype.itemsize <= 2 else np.int64), {
+                {1: np.int16, 2: np.int32}.get(planes.dtype.itemsize, np.int64)), {
                 "long_name": "region membership: label layers then bit planes",
                 "comment": "In the first n_label_layers planes a cell holds r + 1 for the "
                            "region r (0-based, in region_name order) it belongs to in that "

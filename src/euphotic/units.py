@@ -95,6 +95,74 @@ def parse_units(text: str) -> pint.Unit:
     return unit
 
 
+def _stored(fn):
+    """Keep ``fn``'s results (numbers and strings, from unit strings) between runs in a small
+    JSON file of the kernel cache folder, keyed by this module's source and pint's version:
+    building the registry costs most of a second of every run, for two or three answers that
+    never change. Errors are not stored (they are worked out again)."""
+    import functools
+
+    @functools.wraps(fn)
+    def wrapper(*args):
+        key = f"{fn.__name__}|{'|'.join(map(str, args))}"
+        table = _stored_table()
+        if key in table:
+            return tuple(table[key])
+        out = fn(*args)
+        table[key] = list(out)
+        _save_table(table)
+        return out
+
+    return wrapper
+
+
+_TABLE: dict | None = None
+
+
+def _table_path():
+    import hashlib
+    from importlib.metadata import version
+    from pathlib import Path
+
+    from euphotic.models._declare import kernel_cache_dir
+
+    h = hashlib.blake2b(Path(__file__).read_bytes(), digest_size=8)
+    h.update(version("pint").encode())
+    return kernel_cache_dir() / f"units-{h.hexdigest()}.json"
+
+
+def _stored_table() -> dict:
+    import json
+
+    global _TABLE
+    if _TABLE is None:
+        try:
+            _TABLE = json.loads(_table_path().read_text())
+            if not isinstance(_TABLE, dict):
+                _TABLE = {}
+        except (OSError, ValueError):
+            _TABLE = {}
+    return _TABLE
+
+
+def _save_table(table: dict) -> None:
+    """Write the table through a temporary file and a rename; skipped if it cannot be."""
+    import json
+    import os
+    import tempfile
+
+    try:
+        path = _table_path()
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(dir=path.parent, suffix=".tmp")
+        with os.fdopen(fd, "w") as fh:
+            json.dump(table, fh)
+        os.replace(tmp, path)
+    except OSError:
+        pass
+
+
+@_stored
 def linear_factors(from_units: str, to_units: str) -> tuple[float, float]:
     """Return ``(a, b)`` such that ``value_in_to_units = a * value_in_from_units + b``."""
     src = parse_units(from_units)
@@ -121,6 +189,7 @@ def convert(values, from_units: str, to_units: str):
     return out
 
 
+@_stored
 def par_factors(from_units: str) -> tuple[float, str]:
     """Factor taking PAR in ``from_units`` to a daily dose in mol photons m-2 d-1.
 
