@@ -126,6 +126,22 @@ def block_group(chunk_lat: int, chunk_lon: int, n_lat: int, n_lon: int,
     return gy, gx
 
 
+class _BlockRead:
+    """One read task's work, its arguments held as attributes: a task made of a callable and
+    no arguments costs dask nothing to parse (a month of 1/24-degree days has thousands)."""
+
+    __slots__ = ("args",)
+
+    def __init__(self, *args):
+        self.args = args
+
+    def __call__(self):
+        return _read_block(*self.args)
+
+    def __reduce__(self):
+        return (_BlockRead, self.args)
+
+
 def _read_block(part, index, reverse, transpose, squeeze, decoder):
     raw = part[index]
     if squeeze:
@@ -181,8 +197,8 @@ def dask_array(parts: list, layout: Layout, decoder, name: str):
                     args = (part, tuple(index), (False, ystep < 0, xstep < 0),
                             _with_time(transpose, t_ax), layout.squeeze, decoder)
                     # a task spec as dask builds it (no conversion of a legacy tuple later)
-                    dsk[key] = (Task(key, _read_block, *args)
-                                if Task is not None else (_read_block, *args))
+                    dsk[key] = (Task(key, _BlockRead(*args)) if Task is not None
+                                else (_read_block, *args))
     chunks = ((tuple(b - a for a, b in t_blocks)) * len(parts),
               tuple(b[1] - b[0] for b in y_blocks), tuple(b[1] - b[0] for b in x_blocks))
     graph = HighLevelGraph.from_collections(name, dsk, dependencies=[])
