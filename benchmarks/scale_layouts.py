@@ -41,7 +41,15 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from scale_month import (  # noqa: E402 - the sibling benchmark's helpers
-    CHUNK, MONTH, STD, cells_per_degree, day_fields, read_floor, run_measured, warm, write_config,
+    CHUNK,
+    MONTH,
+    STD,
+    cells_per_degree,
+    day_fields,
+    read_floor,
+    run_measured,
+    warm,
+    write_config,
 )
 
 HERE = Path(__file__).resolve().parent
@@ -275,7 +283,7 @@ def print_table(rows: list[dict]) -> None:
     table = [head] + [[cell(r, k) for k in keys] for r in rows]
     widths = [max(len(t[i]) for t in table) for i in range(len(head))]
     for t in table:
-        print("  ".join(s.rjust(w) for s, w in zip(t, widths)))
+        print("  ".join(s.rjust(w) for s, w in zip(t, widths, strict=True)))
     print("targets: eu/floor <= 0.6, peer/eu >= 4, peak GiB <= 1; mean check: max relative difference "
           "where both maps are finite <= 1e-5 (cells finite in one map only: CSV coverage_diff_cells)")
     for r in rows:
