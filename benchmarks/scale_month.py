@@ -65,15 +65,16 @@ def _smooth(rng, ny, nx, factor):
     return full / full.std()
 
 
-def _write_day(args):
-    import xarray as xr
+STD = {
+    "chl": ("mass_concentration_of_chlorophyll_a_in_sea_water", "mg m-3"),
+    "par": ("surface_downwelling_photosynthetic_photon_flux_in_air", "einstein m-2 day-1"),
+    "sst": ("sea_surface_temperature", "degC"),
+}
 
-    n, day_index, folder = args
-    day = MONTH + day_index
-    stamp = str(day).replace("-", "")
-    paths = {v: Path(folder) / f"bench_{v}_{stamp}.nc" for v in ("chl", "par", "sst")}
-    if all(p.exists() for p in paths.values()):
-        return
+
+def day_fields(n: int, day_index: int) -> tuple[np.ndarray, np.ndarray, dict[str, np.ndarray]]:
+    """(lat, lon, {chl, par, sst}) of one synthetic day at n cells per degree (float32, NaN
+    over "land"; ascending latitude, longitude in [-180, 180))."""
     rng = np.random.default_rng(1000 + day_index)
     ny, nx = 180 * n, 360 * n
     lat = -90 + (np.arange(ny) + 0.5) / n
@@ -91,11 +92,22 @@ def _write_day(args):
     par = np.where(land, np.nan, par).astype("f4")
     sst = -1.5 + 30 * tropics**2 + 0.8 * _smooth(rng, ny, nx, 2 * f) + 0.05 * noise[::-1]
     sst = np.where(land, np.nan, sst).astype("f4")
-    std = {
-        "chl": ("mass_concentration_of_chlorophyll_a_in_sea_water", "mg m-3"),
-        "par": ("surface_downwelling_photosynthetic_photon_flux_in_air", "einstein m-2 day-1"),
-        "sst": ("sea_surface_temperature", "degC"),
-    }
+    return lat, lon, {"chl": chl, "par": par, "sst": sst}
+
+
+def _write_day(args):
+    import xarray as xr
+
+    n, day_index, folder = args
+    day = MONTH + day_index
+    stamp = str(day).replace("-", "")
+    paths = {v: Path(folder) / f"bench_{v}_{stamp}.nc" for v in ("chl", "par", "sst")}
+    if all(p.exists() for p in paths.values()):
+        return
+    lat, lon, fields = day_fields(n, day_index)
+    chl, par, sst = fields["chl"], fields["par"], fields["sst"]
+    ny, nx = chl.shape
+    std = STD
     chunks = (1, min(CHUNK[1], ny), min(CHUNK[2], nx))
     for v, data in (("chl", chl), ("par", par), ("sst", sst)):
         ds = xr.Dataset(
