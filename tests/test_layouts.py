@@ -187,9 +187,9 @@ def test_axis_blocks(order, chunk, group, blocks):
 
 
 def test_block_group_sizes():
-    # 256 x 512 stored chunks on a 1/24-degree grid: 2 chunks side by side, 4 rows: 1024 x 1024
-    assert lazyread.block_group(256, 512, 4320, 8640) == (4, 2)
-    # 540 x 1080 chunks: one wide enough, two rows: about 2**20 cells
-    assert lazyread.block_group(540, 1080, 4320, 8640) == (2, 1)
+    # 256 x 512 stored chunks on a 1/24-degree grid: 2 chunks side by side, 2 rows: 512 x 1024
+    assert lazyread.block_group(256, 512, 4320, 8640) == (2, 2)
+    # 540 x 1080 chunks: one is already about 2**19 cells
+    assert lazyread.block_group(540, 1080, 4320, 8640) == (1, 1)
     # a small grid is one block
     assert lazyread.block_group(10, 14, 36, 72) == (4, 6)

@@ -109,8 +109,10 @@ class Layout:
 
 #: Cells a block aims at: small stored chunks (256 x 512 is common) are read in groups, so a
 #: month of daily global grids is not hundreds of thousands of tiny tasks (each costs the
-#: scheduler and graph optimisation about as much as reading a small chunk).
-BLOCK_CELLS = 2**20
+#: scheduler about as much as reading a small chunk). Measured on a month of 1/24-degree days
+#: in 256 x 512 chunks: 2**20 cells ran 10 % faster than 2**19 but peaked at 1.04 GiB
+#: instead of 0.95 GiB.
+BLOCK_CELLS = 2**19
 
 
 def block_group(chunk_lat: int, chunk_lon: int, n_lat: int, n_lon: int,
