@@ -17,8 +17,15 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from euphotic import compare_outputs, derived_outputs, figureset, matchup_outputs, methods
-from euphotic import report, steps
+from euphotic import (
+    compare_outputs,
+    derived_outputs,
+    figureset,
+    matchup_outputs,
+    methods,
+    report,
+    steps,
+)
 from euphotic.cli import main
 
 from .test_runs import _consistent, _debris
@@ -76,7 +83,7 @@ def test_second_run_reuses_the_steps_and_redoes_the_report(ran):
     # the reused [compare] step still prints its trends, as the table holds them
     with open(out / "compare_trends.csv", newline="") as fh:
         rows = [r for r in csv.DictReader(
-            (line for line in fh if not line.startswith("#"))) if r["series"] == "annual totals"]
+            line for line in fh if not line.startswith("#")) if r["series"] == "annual totals"]
     assert rows
     assert "Trends of annual totals (Theil-Sen slope per year" in res.stdout
     for r in rows:
