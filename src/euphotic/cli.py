@@ -166,6 +166,10 @@ def run(
         if result.manifest is not None:
             click.echo(f"wrote {result.manifest}")
         for done in result.steps:
+            if getattr(done, "reused", False):
+                click.echo(f"reused the [{done.table}] step's {len(done.files)} files, "
+                           "unchanged (--force redoes it)")
+                continue
             for p in done.files:
                 click.echo(f"wrote {p} [{done.table}]")
 

@@ -13,6 +13,7 @@ with pybtex).
 
 from __future__ import annotations
 
+import functools
 import os
 import textwrap
 from dataclasses import dataclass, field
@@ -22,6 +23,7 @@ from pathlib import Path
 import numpy as np
 
 from euphotic import roles as _roles
+from euphotic import runfolder
 from euphotic.errors import EuphoticError
 
 #: Kind of the files in the run's manifest; a new set replaces the old one.
@@ -143,10 +145,14 @@ def reference_text_for(key: str) -> str:
     return _TEXT[key]
 
 
+@functools.cache
 def _plain(latex: str) -> str:
+    # the plain-text backend itself: render_as("text") looks it up among the installed
+    # packages' entry points on every call (most of the methods text's time)
+    from pybtex.backends.plaintext import Backend
     from pybtex.richtext import Text
 
-    return Text.from_latex(latex).render_as("text")
+    return Text.from_latex(latex).render(Backend())
 
 
 def _last(person) -> str:
@@ -200,6 +206,11 @@ def reference_text(entry) -> str:
 # --------------------------------------------------------------------------------------------
 
 
+#: (path, size, modification time) -> a map's global attributes, read once per process (the
+#: methods text is written, then rebuilt with the report, in one run)
+_ATTRS: dict[tuple, dict] = {}
+
+
 def _first_map_attrs(folder: Path, manifest: dict) -> tuple[dict, list[dict]]:
     """Attributes of a map of the first model written by the committed run, and those of
     every map of that model (for the screening counts, which each month's file records for
@@ -218,8 +229,11 @@ def _first_map_attrs(folder: Path, manifest: dict) -> tuple[dict, list[dict]]:
         path = folder / name
         kw = {"engine": "zarr", "consolidated": True} if path.is_dir() else {"engine": "netcdf4"}
         try:
-            with xr.open_dataset(path, decode_times=False, **kw) as ds:
-                all_attrs.append(dict(ds.attrs))
+            key = (str(path), *runfolder.stat_entry(path).values())
+            if key not in _ATTRS:  # a file unchanged since it was read: the same attributes
+                with xr.open_dataset(path, decode_times=False, **kw) as ds:
+                    _ATTRS[key] = dict(ds.attrs)
+            all_attrs.append(dict(_ATTRS[key]))
         except (OSError, ValueError, KeyError) as exc:
             raise MethodsError(f"{path}: cannot read its attributes ({exc.__class__.__name__})"
                                ) from None

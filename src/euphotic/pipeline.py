@@ -320,7 +320,7 @@ def run(
         if steps and cfg.steps:  # still under the lock: no other command adds in between
             from euphotic.steps import run_steps
 
-            result.steps = run_steps(cfg, folder.path, command=command)
+            result.steps = run_steps(cfg, folder.path, command=command, force=force)
     return result
 
 
@@ -754,6 +754,14 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
         entries["regional_totals.png"] = {"kind": "figure", **runfolder.stat_entry(stage.file("regional_totals.png"))}
         figures.append(out_dir / "regional_totals.png")
 
+    # outputs of the steps after the run, kept for them to reuse (euphotic.steps.run_steps)
+    from euphotic.steps import carried
+
+    step_entries, step_records = ({}, {}) if force else carried(cfg, previous, out_dir)
+    for name, entry in step_entries.items():
+        if name not in entries:
+            entries[name] = entry
+            keep.add(name)
     base = Path(cfg.path).resolve().parent if cfg.path else out_dir  # inputs: relative to it
     try:
         config_sha = runfolder.hashlib.sha256(Path(cfg.path).read_bytes()).hexdigest()
@@ -777,6 +785,7 @@ def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input
                    for role, files in input_files.items()},
         "caution": outputs.CAUTION,
         "outputs": {n: entries[n] for n in sorted(entries)},
+        "steps": step_records,
     }
     with _writing(out_dir, "the run manifest"):
         folder.commit(stage, manifest, keep=keep)
