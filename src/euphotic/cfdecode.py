@@ -19,6 +19,7 @@ import xarray as xr
 from euphotic import screen, units
 from euphotic.errors import InputFileError
 from euphotic.inputfiles import TARGET_UNITS, InputSpec
+from euphotic.jit import compiled
 from euphotic.roles import role
 
 #: Encoding attributes that CF decoding needs (xarray keeps them in ``encoding``).
@@ -205,22 +206,6 @@ def _kernel(raw, out, fills, n_fills, params):  # pragma: no cover - compiled
         out[i] = w if ok else nan
 
 
-_compiled_kernel = None
-
-
-def _get_kernel():
-    """The compiled :func:`_kernel` (numba imported and the kernel loaded on first use);
-    None without numba."""
-    global _compiled_kernel
-    if _compiled_kernel is None:
-        try:
-            import numba
-        except ImportError:  # pragma: no cover
-            return None
-        _compiled_kernel = numba.njit(nogil=True, cache=True)(_kernel)
-    return _compiled_kernel
-
-
 @dataclass(frozen=True)
 class Decoder:
     """How stored values become values in the model's units (picklable, hashable).
@@ -258,7 +243,7 @@ class Decoder:
         fills = [f for f in self.fills if not np.isnan(f)]
         s_lo, s_hi = self.screen or (-np.inf, np.inf)
         below, above = screen.marks(dt)
-        kernel = _get_kernel()
+        kernel = compiled(_kernel)
         if kernel is None or len(fills) > 2:  # pragma: no cover - numba is a dependency
             flags = [self.scale is not None, self.offset is not None, self.lo is not None,
                      self.hi is not None, self.a != 1.0, self.b != 0.0]

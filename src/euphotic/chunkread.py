@@ -24,6 +24,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from euphotic.errors import InputFileError
+from euphotic.jit import compiled
 
 try:  # libdeflate: whole-buffer inflate, 1.6-2x faster than ISA-L or zlib on float chunks
     import deflate as _libdeflate
@@ -38,22 +39,6 @@ def _unshuffle_kernel(src, out, size):  # pragma: no cover - compiled
         plane = src[b * n : (b + 1) * n]
         for i in range(n):
             o[i, b] = plane[i]
-
-
-_unshuffle_compiled = None
-
-
-def _unshuffle_into_fn():
-    """The compiled byte unshuffle (releases the GIL), numba imported on first use; None
-    without numba (a numpy transpose-copy then)."""
-    global _unshuffle_compiled
-    if _unshuffle_compiled is None:
-        try:
-            import numba
-        except ImportError:  # pragma: no cover
-            return None
-        _unshuffle_compiled = numba.njit(nogil=True, cache=True)(_unshuffle_kernel)
-    return _unshuffle_compiled
 
 
 H5Z_DEFLATE, H5Z_SHUFFLE, H5Z_FLETCHER32 = 1, 2, 3
@@ -187,7 +172,7 @@ def _unshuffle(buf, size: int) -> np.ndarray:
     src = np.frombuffer(buf, dtype=np.uint8)
     n = src.size // size
     out = np.empty(src.size, dtype=np.uint8)
-    kernel = _unshuffle_into_fn()
+    kernel = compiled(_unshuffle_kernel)
     if kernel is not None:
         kernel(src[: n * size], out, size)
     else:  # pragma: no cover

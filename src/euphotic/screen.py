@@ -402,17 +402,12 @@ def _count_kernel(bits, below, above, magnitude, inf):  # pragma: no cover - com
     return b, a, ok
 
 
-_compiled_count = None
-
-
 def _marked_counts(x: np.ndarray) -> np.ndarray:
     """Counts of one block (time, lat, lon) of marked values: (time, 1, 1, 3) of below,
     above, within (finite values; plain NaN is in none)."""
-    global _compiled_count
-    if _compiled_count is None:
-        import numba
+    from euphotic.jit import compiled
 
-        _compiled_count = numba.njit(nogil=True, cache=True)(_count_kernel)
+    count = compiled(_count_kernel)
     uint, lo, hi = _MARK_BITS[x.dtype]
     bits = np.ascontiguousarray(x).view(uint).reshape(x.shape[0], -1)
     inf = np.array(np.inf, x.dtype).view(uint)[()]
@@ -420,7 +415,7 @@ def _marked_counts(x: np.ndarray) -> np.ndarray:
     out = np.zeros((x.shape[0], 1, 1, 3), np.int64)
     for t in range(x.shape[0]):
         if bits.shape[1]:
-            out[t, 0, 0] = _compiled_count(bits[t], uint(lo), uint(hi), magnitude, inf)
+            out[t, 0, 0] = count(bits[t], uint(lo), uint(hi), magnitude, inf)
     return out
 
 
