@@ -124,8 +124,7 @@ def test_run_adds_every_step_in_order_each_committed(with_steps):
     assert [(h["command"], len(h["outputs"])) for h in man["added"]] == [
         (f"{command} [compare]", len(COMPARE_FILES)),
         (f"{command} [figure_set]", len(figs)),
-        (f"{command} [report]", 4),
-        (f"{command} [report]", 1),
+        (f"{command} [report]", 5),  # the methods files and the page, in one commit
     ]
     # the report embeds the figure set (not the quick-look figures) and the comparisons
     images = _report_images(out / "report.html")
@@ -161,8 +160,9 @@ def test_rerun_with_the_steps_keeps_their_outputs_and_reuses_the_maps(tmp_path):
     assert kinds["comparison"] == COMPARE_FILES and kinds["methods"] == METHODS_FILES
     assert kinds["report"] == {"report.html"}
     # [compare] is reused unchanged; [report], which prints the run's id and time, is redone
-    # (its methods text, then its report)
-    assert [h["command"].rsplit(" ", 1)[-1] for h in man["added"]] == ["[report]", "[report]"]
+    # (its methods text and its page, in one commit)
+    assert [h["command"].rsplit(" ", 1)[-1] for h in man["added"]] == ["[report]"]
+    assert len(man["added"][0]["outputs"]) == 5
     assert _debris(out) == []
 
 

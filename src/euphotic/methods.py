@@ -211,12 +211,34 @@ def reference_text(entry) -> str:
 _ATTRS: dict[tuple, dict] = {}
 
 
+def _global_attrs(path: Path) -> dict:
+    """The global attributes of a map file (NetCDF, read with the netCDF library alone, which
+    returns the same values as xarray's decoding of them without building a Dataset) or Zarr
+    store; read once per process while the file is unchanged."""
+    try:
+        key = (str(path), *runfolder.stat_entry(path).values())
+        if key not in _ATTRS:
+            if path.is_dir():
+                import xarray as xr
+
+                with xr.open_dataset(path, engine="zarr", consolidated=True,
+                                     decode_times=False) as ds:
+                    _ATTRS[key] = dict(ds.attrs)
+            else:
+                import netCDF4
+
+                with netCDF4.Dataset(path) as nc:
+                    _ATTRS[key] = {k: nc.getncattr(k) for k in nc.ncattrs()}
+        return dict(_ATTRS[key])
+    except (OSError, ValueError, KeyError) as exc:
+        raise MethodsError(f"{path}: cannot read its attributes ({exc.__class__.__name__})"
+                           ) from None
+
+
 def _first_map_attrs(folder: Path, manifest: dict) -> tuple[dict, list[dict]]:
     """Attributes of a map of the first model written by the committed run, and those of
     every map of that model (for the screening counts, which each month's file records for
     its month)."""
-    import xarray as xr
-
     maps = [(n, e) for n, e in manifest["outputs"].items() if e.get("kind") == "map"]
     if not maps:
         raise MethodsError(f"{folder}: the run has no month maps to describe")
@@ -226,17 +248,7 @@ def _first_map_attrs(folder: Path, manifest: dict) -> tuple[dict, list[dict]]:
     for name, e in maps:
         if e.get("model") != first_model:
             continue
-        path = folder / name
-        kw = {"engine": "zarr", "consolidated": True} if path.is_dir() else {"engine": "netcdf4"}
-        try:
-            key = (str(path), *runfolder.stat_entry(path).values())
-            if key not in _ATTRS:  # a file unchanged since it was read: the same attributes
-                with xr.open_dataset(path, decode_times=False, **kw) as ds:
-                    _ATTRS[key] = dict(ds.attrs)
-            all_attrs.append(dict(_ATTRS[key]))
-        except (OSError, ValueError, KeyError) as exc:
-            raise MethodsError(f"{path}: cannot read its attributes ({exc.__class__.__name__})"
-                               ) from None
+        all_attrs.append(_global_attrs(folder / name))
     # run-wide facts (inputs, software) from a map the committed run wrote itself (its input
     # files are the manifest's): a run that reused earlier months' maps unchanged describes
     # its own inputs in the maps it wrote; else the newest map
@@ -252,22 +264,13 @@ def _first_map_attrs(folder: Path, manifest: dict) -> tuple[dict, list[dict]]:
 def _model_parameters(folder: Path, manifest: dict) -> dict[str, str]:
     """Model -> the ``model_parameters`` attribute of its first month map (the values it ran
     with; every month of a run has the same)."""
-    import xarray as xr
-
     out: dict[str, str] = {}
     maps = sorted((e.get("month", ""), n, e.get("model")) for n, e in manifest["outputs"].items()
                   if e.get("kind") == "map")
     for _, name, model in maps:
         if model in out:
             continue
-        path = folder / name
-        kw = {"engine": "zarr", "consolidated": True} if path.is_dir() else {"engine": "netcdf4"}
-        try:
-            with xr.open_dataset(path, decode_times=False, **kw) as ds:
-                out[model] = str(ds.attrs.get("model_parameters", ""))
-        except (OSError, ValueError, KeyError) as exc:
-            raise MethodsError(f"{path}: cannot read its attributes ({exc.__class__.__name__})"
-                               ) from None
+        out[model] = str(_global_attrs(folder / name).get("model_parameters", ""))
     return out
 
 
@@ -557,10 +560,20 @@ def write_methods(folder: str | os.PathLike, *, command: str = "euphotic methods
     MethodsError
         See :func:`methods_text`.
     """
-    from euphotic import runfolder
+    from euphotic import results
 
     path = Path(folder)
-    m = methods_text(path)
+    results.committed_manifest(path)  # no run, or an interrupted commit: say so, touch nothing
+    with runfolder.OutputFolder(path).adding(command, replace_kinds=(KIND,)) as (stage, added):
+        written = stage_methods(path, stage, added)
+    return written
+
+
+def stage_methods(folder: Path, stage: runfolder.Stage, added: dict[str, dict]) -> Written:
+    """Write the methods files of the run committed in ``folder`` into ``stage`` and list
+    them in ``added`` (for a commit made with :meth:`euphotic.runfolder.OutputFolder.adding`
+    that replaces kind :data:`KIND`; the report step commits them with the report)."""
+    m = methods_text(folder)
     written = Written(methods=m)
     contents = {
         "methods.md": (m.markdown, "methods paragraph and references (Markdown)"),
@@ -568,9 +581,8 @@ def write_methods(folder: str | os.PathLike, *, command: str = "euphotic methods
         "references.txt": (m.references_text, "works cited by the methods paragraph"),
         "references.bib": (m.references_bibtex, "works cited by the methods paragraph (BibTeX)"),
     }
-    with runfolder.OutputFolder(path).adding(command, replace_kinds=(KIND,)) as (stage, added):
-        for name, (text, description) in contents.items():
-            stage.file(name).write_text(text, encoding="utf-8")
-            added[name] = {"kind": KIND, "description": description}
-            written.files.append(path / name)
+    for name, (text, description) in contents.items():
+        stage.file(name).write_text(text, encoding="utf-8")
+        added[name] = {"kind": KIND, "description": description}
+        written.files.append(Path(folder) / name)
     return written

@@ -107,6 +107,8 @@ class Written:
     path: Path
     images: int = 0
     notes: list[str] = field(default_factory=list)
+    #: the methods files written into the same commit (``write_report(methods=True)``)
+    methods_files: list[Path] = field(default_factory=list)
 
 
 def _e(value: object) -> str:
@@ -147,20 +149,23 @@ def totals_table(totals) -> str:
         label = f"{a.get('long_name', v)} ({unit})" if unit else a.get("long_name", v)
         head.append(f"<th>{_e(label)}</th>")
     head.append('<th class="text">flag</th>')
+    dims = ("region", "month", "model")  # rows in this order: region, then month, then model
+    values = {v: totals[v].transpose(*dims).values for v in numeric}
+    flags = totals["flag"].transpose(*dims).values
+    regions = [_e(r) for r in totals["region"].values]
+    months = [_e(str(np.datetime64(mo, "M"))) for mo in totals["month"].values]
+    models = [_e(m) for m in totals["model"].values]
+    shown = np.zeros(flags.shape, dtype=bool)
+    for a in values.values():
+        shown |= np.isfinite(a)  # a combination with no value at all has no row
     rows = []
-    for r in totals["region"].values:
-        for i, mo in enumerate(totals["month"].values):
-            for m in totals["model"].values:
-                s = totals.sel(region=r, model=m).isel(month=i)
-                if all(not np.isfinite(float(s[v])) for v in numeric):
-                    continue  # no row for this combination
-                cells = [f'<td class="text">{_e(r)}</td>',
-                         f'<td class="text">{_e(str(np.datetime64(mo, "M")))}</td>',
-                         f'<td class="text">{_e(m)}</td>']
-                cells += [f"<td>{_e(_cell(s[v].item(), _TOTALS_DECIMALS.get(v, 4)))}</td>"
-                          for v in numeric]
-                cells.append(f'<td class="flag">{_e(s["flag"].item())}</td>')
-                rows.append("<tr>" + "".join(cells) + "</tr>")
+    for i, j, k in zip(*np.nonzero(shown)):
+        cells = [f'<td class="text">{regions[i]}</td><td class="text">{months[j]}</td>'
+                 f'<td class="text">{models[k]}</td>']
+        cells += [f"<td>{_e(_cell(a[i, j, k], _TOTALS_DECIMALS.get(v, 4)))}</td>"
+                  for v, a in values.items()]
+        cells.append(f'<td class="flag">{_e(str(flags[i, j, k]))}</td>')
+        rows.append("<tr>" + "".join(cells) + "</tr>")
     table = ('<div class="wide"><table id="totals">\n<thead><tr>' + "".join(head)
              + "</tr></thead>\n<tbody>\n" + "\n".join(rows) + "\n</tbody>\n</table></div>")
     if len(rows) > LONG_TABLE_ROWS:  # a long run: folded, so figures and comparisons show
@@ -402,9 +407,12 @@ def render(folder: str | Path, *, outputs: dict[str, dict] | None = None,
     return page, n_images
 
 
-def write_report(folder: str | Path, *, command: str = "euphotic report") -> Written:
+def write_report(folder: str | Path, *, command: str = "euphotic report",
+                 methods: bool = False) -> Written:
     """Write ``report.html`` into the run committed in ``folder`` and list it in its manifest
     (kind :data:`KIND`; a new report replaces the old one; on any failure nothing changes).
+    With ``methods``, the methods files (:func:`euphotic.methods.write_methods`) are written
+    into the same commit, so that the page is rendered once (listed in ``methods_files``).
 
     Raises
     ------
@@ -415,13 +423,19 @@ def write_report(folder: str | Path, *, command: str = "euphotic report") -> Wri
     """
     folder = Path(folder)
     results.committed_manifest(folder)  # no run, or an interrupted commit: say so, touch nothing
-    with runfolder.OutputFolder(folder).adding(command, replace_kinds=(KIND,)) as (stage, added):
+    kinds = (KIND, "methods") if methods else (KIND,)  # "methods": euphotic.methods.KIND
+    methods_files: list[Path] = []
+    with runfolder.OutputFolder(folder).adding(command, replace_kinds=kinds) as (stage, added):
         # built under the folder's lock from what is committed: no other command can add to
         # the folder between the reading and the commit
+        if methods:
+            from euphotic.methods import stage_methods
+
+            methods_files = stage_methods(folder, stage, added).files
         page, n_images = render(folder)
         stage.file(FILE).write_text(page, encoding="utf-8")
         added[FILE] = {"kind": KIND, "description": DESCRIPTION}
-    return Written(path=folder / FILE, images=n_images)
+    return Written(path=folder / FILE, images=n_images, methods_files=methods_files)
 
 
 def rebuild(folder: str | Path, stage: runfolder.Stage, outputs: dict[str, dict],

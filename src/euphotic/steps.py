@@ -110,13 +110,12 @@ def _derived(folder: Path, options: dict, *, cfg, command: str) -> Done:
 
 
 def _report(folder: Path, options: dict, *, cfg, command: str) -> Done:
-    from euphotic.methods import write_methods
     from euphotic.report import write_report
 
     done = Done("report")
-    if options.get("methods", True):
-        done.files += write_methods(folder, command=command).files
-    w = write_report(folder, command=command)
+    # the methods files and the page in one commit: the page is rendered once
+    w = write_report(folder, command=command, methods=options.get("methods", True))
+    done.files += w.methods_files
     done.files.append(w.path)
     done.value = w
     return done
