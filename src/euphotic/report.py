@@ -159,7 +159,7 @@ def totals_table(totals) -> str:
     for a in values.values():
         shown |= np.isfinite(a)  # a combination with no value at all has no row
     rows = []
-    for i, j, k in zip(*np.nonzero(shown)):
+    for i, j, k in zip(*np.nonzero(shown), strict=True):
         cells = [f'<td class="text">{regions[i]}</td><td class="text">{months[j]}</td>'
                  f'<td class="text">{models[k]}</td>']
         cells += [f"<td>{_e(_cell(a[i, j, k], _TOTALS_DECIMALS.get(v, 4)))}</td>"
