@@ -77,10 +77,12 @@ def now_iso() -> str:
     return dt.datetime.now(dt.UTC).replace(microsecond=0).strftime("%Y-%m-%dT%H:%M:%SZ")
 
 
-def _write_json_atomic(path: Path, obj) -> None:
+def _write_json_atomic(path: Path, obj, *, indent: int | None = 1) -> None:
+    """Write ``obj`` as JSON to ``path`` atomically (``indent=None``: compact, written by the
+    json module's C encoder, for an index rewritten often as a run goes on)."""
     tmp = path.with_name(f".{path.name}.tmp-{os.getpid()}")
     with open(tmp, "w") as fh:
-        json.dump(obj, fh, indent=1, sort_keys=False, allow_nan=True)
+        fh.write(json.dumps(obj, indent=indent, sort_keys=False, allow_nan=True))
         fh.flush()
         os.fsync(fh.fileno())
     os.replace(tmp, path)
@@ -211,7 +213,8 @@ class Stage:
 
     def save(self) -> None:
         """Persist the index: after a kill, recorded items can be reused by the next run."""
-        _write_json_atomic(self.path / STAGE_INDEX, self.index)
+        # compact: rewritten after every batch of months, and it grows with the months
+        _write_json_atomic(self.path / STAGE_INDEX, self.index, indent=None)
 
     @classmethod
     def load(cls, path: Path) -> Stage | None:
