@@ -478,6 +478,24 @@ class RegionMasks(Mapping):
         bit_planes: list[np.ndarray] = []
         bit_regions: list[int] = []
         windows: list[tuple[slice, slice]] = []
+        # with the number of regions known, the planes are views of one zeroed buffer of the
+        # most planes they can need (label layers, then bit planes): no copy to stack them at
+        # the end, and the pages of cells no region touches are never written
+        cap = (None if n_regions is None
+               else min(max_label_layers, n_regions) + -(-n_regions // nbits))
+        buf: list[np.ndarray] = []
+
+        def new_plane() -> np.ndarray:
+            k = len(layers) + len(bit_planes)
+            if cap is None or k >= cap:  # more regions than n_regions said: stacked at the end
+                buf.clear()
+                return np.zeros(shape, dtype=dtype)
+            if not buf:
+                if k:  # planes made before without the buffer
+                    return np.zeros(shape, dtype=dtype)
+                buf.append(np.zeros((cap, *shape), dtype=dtype))
+            return buf[0][k]
+
         for name, mask in named_masks:
             r = len(names)
             if r + 1 > np.iinfo(dtype).max:
@@ -500,18 +518,20 @@ class RegionMasks(Mapping):
             if placed:
                 continue
             if len(layers) < max_label_layers and not bit_planes:
-                layer = np.zeros(shape, dtype=dtype)
+                layer = new_plane()
                 layer[win.rows, win.cols][sub] = r + 1
                 layers.append(layer)
                 continue
             j = len(bit_regions)
             if j % nbits == 0:
-                bit_planes.append(np.zeros(shape, dtype=dtype))
+                bit_planes.append(new_plane())
             bit_planes[-1][win.rows, win.cols] |= sub.astype(dtype) << dtype.type(j % nbits)
             bit_regions.append(r)
         n_layers = len(layers)
-        planes = np.stack(layers + bit_planes) if (layers or bit_planes) else None
-        del layers, bit_planes
+        if buf:  # the planes used, in the buffer's order
+            planes = buf[0][: n_layers + len(bit_planes)]
+        else:
+            planes = np.stack(layers + bit_planes) if (layers or bit_planes) else None
         return cls(names, planes, n_label_layers=n_layers, bit_regions=tuple(bit_regions),
                    windows=windows)
 

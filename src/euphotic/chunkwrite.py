@@ -149,7 +149,7 @@ def lazy_netcdf(ds: xr.Dataset, path: Path, encoding: dict, unlimited_dims=("tim
             return None
     try:
         from xarray.backends.common import ArrayWriter
-        from xarray.backends.netCDF4_ import NetCDF4DataStore
+        from xarray.backends.netCDF4_ import NETCDF4_PYTHON_LOCK, NetCDF4DataStore
         from xarray.backends.writers import dump_to_store
     except ImportError:  # pragma: no cover - another xarray layout
         return None
@@ -162,7 +162,11 @@ def lazy_netcdf(ds: xr.Dataset, path: Path, encoding: dict, unlimited_dims=("tim
         var = ds[v].variable.copy(deep=False)
         var.encoding = dict(encoding.get(v, {}))
         encoded[v] = xr.conventions.encode_cf_variable(var, name=v)
-    store = NetCDF4DataStore.open(str(path), mode="w", format="NETCDF4")
+    # the netCDF library's own lock: only this thread writes through it (xarray's default
+    # adds a per-file write lock chosen by asking which scheduler runs, which imports
+    # dask.distributed, a quarter of a second at start)
+    store = NetCDF4DataStore.open(str(path), mode="w", format="NETCDF4",
+                                  lock=NETCDF4_PYTHON_LOCK)
     try:
         # dask-backed variables are created and left for the writer: ArrayWriter only
         # collects them, and it is never synced

@@ -222,3 +222,21 @@ def _transpose_block(raw, transpose):
     if isinstance(transpose, _AddTime):
         return raw.transpose(tuple(transpose))[np.newaxis]
     return raw.transpose(transpose)
+
+
+def held_array(arr: np.ndarray, chunks, prefix: str):
+    """A dask array over ``arr``, an array this process holds for the whole run (masks): its
+    blocks are read-only views of it. ``dask.array.from_array`` copies the whole array first
+    and hashes it for a name, which costs a second at start for a 1/24-degree grid's masks."""
+    import uuid
+
+    import dask.array as da
+    from dask.array.core import normalize_chunks, slices_from_chunks
+
+    chunks = normalize_chunks(chunks, arr.shape, dtype=arr.dtype)
+    view = arr.view()
+    view.flags.writeable = False  # a task that wrote into a block would fail, not corrupt
+    name = f"{prefix}-{uuid.uuid4().hex}"
+    dsk = {(name, *idx): view[slc] for idx, slc in zip(
+        np.ndindex(*(len(c) for c in chunks)), slices_from_chunks(chunks), strict=True)}
+    return da.Array(dsk, name, chunks, dtype=arr.dtype)

@@ -518,14 +518,22 @@ def _regular_blocks(ds: xr.Dataset, chunks: tuple[int, int, int]) -> xr.Dataset:
     the blocks are not already whole chunks), so that every block is written as whole stored
     chunks: a block straddling chunks makes the library read back, inflate and deflate the
     partial chunks again."""
+    import sys
+
+    import dask
+
+    # without dask.distributed loaded there is no cluster, and dask would pick its task-based
+    # rechunking after importing it to ask (a quarter of a second at start): say so
+    method = {} if "distributed" in sys.modules else {"array.rechunk.method": "tasks"}
     out = {}
-    for v in _GRID_FLOAT + ("n_valid_days",):
-        if v not in ds or not hasattr(ds[v].data, "chunks"):
-            continue
-        got = ds[v].data.chunks
-        want = [_split_regular(len_, c) for len_, c in zip(ds[v].shape, chunks, strict=True)]
-        if tuple(map(tuple, want)) != tuple(got):
-            out[v] = ds[v].chunk(dict(zip(ds[v].dims, chunks, strict=True)))
+    with dask.config.set(method):
+        for v in _GRID_FLOAT + ("n_valid_days",):
+            if v not in ds or not hasattr(ds[v].data, "chunks"):
+                continue
+            got = ds[v].data.chunks
+            want = [_split_regular(len_, c) for len_, c in zip(ds[v].shape, chunks, strict=True)]
+            if tuple(map(tuple, want)) != tuple(got):
+                out[v] = ds[v].chunk(dict(zip(ds[v].dims, chunks, strict=True)))
     return ds.assign(out) if out else ds
 
 
@@ -620,8 +628,28 @@ def write_lazy(ds: xr.Dataset, tmp: Path, fmt: str):
 REGIONS_FILE = "regions.nc"
 
 
+def _plane_chunks(shape: tuple[int, ...]) -> tuple[int, int, int]:
+    """Chunks of ``region_planes`` on disk: one plane, up to 1024 x 1024 cells."""
+    return (1, min(shape[1], 1024), min(shape[2], 1024))
+
+
+def _stored_planes(planes: np.ndarray, name: str | None):
+    """The planes as stored: signed on disk (CF 1.8 has no unsigned types), in the next wider
+    signed type that holds every value (uint8 planes as int16, uint16 as int32). With a
+    ``name`` (the prefix of its dask name), a dask array cast chunk by chunk as the file is
+    written, so that the conversion and compression of a fine grid's planes run in the dask
+    threads with the run's compute instead of before it."""
+    stored = {1: np.int16, 2: np.int32}.get(planes.dtype.itemsize, np.int64)
+    if name is None or not planes.size:
+        return planes.astype(stored)
+    from euphotic.lazyread import held_array
+
+    return held_array(planes, _plane_chunks(planes.shape), name).astype(stored)
+
+
 def region_dataset(masks, lat: np.ndarray, lon: np.ndarray, area_rows_m2: np.ndarray, *,
-                   earth: str, region_sources: str = "") -> xr.Dataset:
+                   earth: str, region_sources: str = "", name: str | None = None
+                   ) -> xr.Dataset:
     """The run's region masks and cell areas as one CF NetCDF dataset (``regions.nc``).
 
     The masks are stored as :class:`euphotic.aggregate.RegionMasks` holds them: label layers
@@ -630,6 +658,8 @@ def region_dataset(masks, lat: np.ndarray, lon: np.ndarray, area_rows_m2: np.nda
     row and column range so that unpacking one region reads only its window. ``cell_area``
     (m2) is the area of one cell in each row of the regular grid. Read it back with
     :func:`euphotic.results.open_regions` or :func:`euphotic.results.open_region_masks`.
+    With ``name`` (the prefix of a dask name), the planes are a lazy dask array over the
+    masks' planes (written by :func:`write_regions_lazy`).
     """
     names = list(masks.names)
     n = len(names)
@@ -646,8 +676,7 @@ def region_dataset(masks, lat: np.ndarray, lon: np.ndarray, area_rows_m2: np.nda
                             {"long_name": "region name, as configured"}),
             # signed on disk (CF 1.8 has no unsigned types): the next wider signed type
             # holds every value (uint8 planes as int16, uint16 as int32)
-            "region_planes": (("plane", "lat", "lon"), planes.astype(
-                {1: np.int16, 2: np.int32}.get(planes.dtype.itemsize, np.int64)), {
+            "region_planes": (("plane", "lat", "lon"), _stored_planes(planes, name), {
                 "long_name": "region membership: label layers then bit planes",
                 "comment": "In the first n_label_layers planes a cell holds r + 1 for the "
                            "region r (0-based, in region_name order) it belongs to in that "
@@ -684,17 +713,36 @@ def region_dataset(masks, lat: np.ndarray, lon: np.ndarray, area_rows_m2: np.nda
     return ds
 
 
-def write_regions(path: Path, ds: xr.Dataset) -> None:
-    """Write :func:`region_dataset` to ``path`` (NetCDF-4, deflated)."""
+def _regions_encoding(ds: xr.Dataset) -> dict:
     # zlib level 1: a 1/24-degree grid's planes are written in a third of level 4's time,
     # and label planes compress about as well
     enc = {"region_planes": {"zlib": True, "complevel": 1, "shuffle": True},
            "lat": {"_FillValue": None}, "lon": {"_FillValue": None},
            "cell_area": {"_FillValue": None}, "region_window": {"_FillValue": None}}
     if ds.sizes["plane"] and ds.sizes["lat"] and ds.sizes["lon"]:
-        enc["region_planes"]["chunksizes"] = (1, min(ds.sizes["lat"], 1024),
-                                              min(ds.sizes["lon"], 1024))
-    ds.to_netcdf(path, engine="netcdf4", encoding=enc)
+        enc["region_planes"]["chunksizes"] = _plane_chunks(ds["region_planes"].shape)
+    return enc
+
+
+def write_regions(path: Path, ds: xr.Dataset) -> None:
+    """Write :func:`region_dataset` to ``path`` (NetCDF-4, deflated)."""
+    ds.to_netcdf(path, engine="netcdf4", encoding=_regions_encoding(ds))
+
+
+def write_regions_lazy(path: Path, ds: xr.Dataset):
+    """Write the metadata of :func:`region_dataset` (made with a ``name``) to ``path`` now
+    and return the dask array whose computation writes the planes' compressed chunks (from
+    the dask threads, see :mod:`euphotic.chunkwrite`); None, with the whole file written
+    now, where that path does not apply (a cluster, or no planes)."""
+    if hasattr(ds["region_planes"].data, "dask"):
+        from euphotic import chunkwrite
+
+        lazy = chunkwrite.lazy_netcdf(ds, path, _regions_encoding(ds), unlimited_dims=())
+        if lazy is not None:
+            return lazy
+        ds = ds.load()
+    write_regions(path, ds)
+    return None
 
 
 # ------------------------------------------------------------------------------------------

@@ -15,7 +15,17 @@ import dask
 import numpy as np
 import xarray as xr
 
-from euphotic import aggregate, methods, ocean, outputs, preflight, roles, runfolder, screen
+from euphotic import (
+    aggregate,
+    lazyread,
+    methods,
+    ocean,
+    outputs,
+    preflight,
+    roles,
+    runfolder,
+    screen,
+)
 from euphotic.config import RunConfig
 from euphotic.errors import ConfigError, NoValidDataError
 from euphotic.geo import cell_area
@@ -157,7 +167,7 @@ def _grid_masks(prep: Prepared, client):
     def lazy(arr: np.ndarray) -> da.Array:
         chunks = spatial if spatial == "auto" else (-1,) * (arr.ndim - 2) + tuple(spatial)
         if client is None:
-            return da.from_array(arr, chunks=chunks)
+            return lazyread.held_array(arr, chunks, "grid-mask")
         future = client.scatter(arr, broadcast=False)
         return da.from_delayed(dask.delayed(future), shape=arr.shape, dtype=arr.dtype).rechunk(chunks)
 
@@ -257,7 +267,12 @@ def _compute(objs, *, client, progress: bool, shared: _SharedTasks | None = None
         if not collections:
             return objs
         dsk, keys = shared.month_graph(collections)
-        schedule = get_scheduler(collections=collections)
+        if dask.config.get("scheduler", None) is None and "distributed" not in sys.modules:
+            # what get_scheduler picks when no cluster can exist, without importing
+            # dask.distributed to ask (a quarter of a second at start)
+            from dask.threaded import get as schedule
+        else:
+            schedule = get_scheduler(collections=collections)
         posts = [c.__dask_postcompute__() for c in collections]
         if progress:
             from dask.diagnostics import ProgressBar
@@ -563,8 +578,9 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
         if reused:
             log.info("reusing %d unchanged month map(s)", len(reused))
 
-        # the region masks file first: written while memory holds no map blocks yet
-        _region_file(cfg, prep, stage, entries, keep, {} if force else previous, provenance)
+        # the region masks file: its metadata now, its planes' chunks with the first batch
+        regions_write = _region_file(cfg, prep, stage, entries, keep,
+                                     {} if force else previous, provenance)
         ocean_mask, bits = _grid_masks(prep, client) if todo else (None, None)
         # local scheduler: the inputs' and masks' tasks made into one plain graph, once
         shared = _SharedTasks(
@@ -591,11 +607,14 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             lazy_ocean = ([ocean_mask.data] if shared is not None and i == 0
                           and len(batches) > 1 and isinstance(prep.ocean.data, dsa.Array)
                           else [])
+            regions_now, regions_write = ([] if regions_write is None else [regions_write]), None
             with _writing(out_dir, "the monthly maps"):
                 _, sums, n_valid, screened, *held = _compute(
-                    [writes, [z.sums for z in lazies if z is not None], counts,
+                    [writes + regions_now, [z.sums for z in lazies if z is not None], counts,
                      report.lazy(batch), *lazy_ocean],
                     client=client, progress=progress, shared=shared)
+                if regions_now:  # the region masks' chunks were written in this compute
+                    _region_entry(stage, entries)
                 # screening: warnings, and the counts of masked values into each month's file
                 screen_attrs = report.finish(batch, screened)
                 for (_, month), name in zip(items, names, strict=True):
@@ -620,6 +639,10 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
             with _writing(out_dir, "the run's staging index"):
                 stage.save()  # after a kill, the next run reuses what is recorded here
 
+        if regions_write is not None:  # no month to compute: the region masks alone
+            with _writing(out_dir, "the region masks"):
+                _compute([regions_write], client=client, progress=False)
+            _region_entry(stage, entries)
         aggregate.warn_empty_regions(empty_regions)  # one warning per region, all months
         _check_not_empty(cfg, prep, entries)
         result = _finish(cfg, prep, folder, stage, entries, keep, previous, command=command,
@@ -669,9 +692,12 @@ def _check_not_empty(cfg: RunConfig, prep: Prepared, entries: dict[str, dict]) -
         )
 
 
-def _region_file(cfg, prep, stage, entries, keep, previous, provenance) -> None:
+def _region_file(cfg, prep, stage, entries, keep, previous, provenance):
     """``regions.nc`` into the stage, or kept when the masks and areas it holds are unchanged
-    (a content fingerprint: the planes, windows, names, cell areas and region sources)."""
+    (a content fingerprint: the planes, windows, names, cell areas and region sources).
+
+    Returns the lazy write of its planes (computed with the first batch of months, then
+    :func:`_region_entry` records it) or None when the file is kept or written already."""
     name = outputs.REGIONS_FILE
     masks, lat, lon = prep.region_masks, prep.chl["lat"].values, prep.chl["lon"].values
     sources = provenance.get("region_sources", "")
@@ -690,10 +716,19 @@ def _region_file(cfg, prep, stage, entries, keep, previous, provenance) -> None:
         keep.add(name)
         return
     ds = outputs.region_dataset(masks, lat, lon, prep.area_rows_m2, earth=cfg.earth,
-                                region_sources=sources)
+                                region_sources=sources, name="region-planes")
     with _writing(out_dir, "the region masks"):
-        outputs.write_regions(stage.file(name), ds)
-    entries[name] = {"kind": "regions", "fingerprint": fp, **runfolder.stat_entry(stage.file(name))}
+        lazy = outputs.write_regions_lazy(stage.file(name), ds)
+    entries[name] = {"kind": "regions", "fingerprint": fp}
+    if lazy is None:
+        _region_entry(stage, entries)
+    return lazy
+
+
+def _region_entry(stage, entries) -> None:
+    """Record the size and time of the ``regions.nc`` written into the stage."""
+    name = outputs.REGIONS_FILE
+    entries[name].update(runfolder.stat_entry(stage.file(name)))
 
 
 def _finish(cfg, prep, folder, stage, entries, keep, previous, *, command, input_files, run_id,
