@@ -82,30 +82,38 @@ def chunk_map(path: str, variable: str) -> ChunkMap | None:
     except OSError:
         return None  # e.g. netCDF-3 classic files: not HDF5
     with f:
-        if variable not in f:
-            return None
-        d = f[variable]
-        if not isinstance(d, h5py.Dataset) or d.chunks is None or d.dtype.kind not in "iuf":
-            return None
-        plist = d.id.get_create_plist()
-        filters = tuple(plist.get_filter(i)[0] for i in range(plist.get_nfilters()))
-        if not set(filters) <= _SUPPORTED:
-            return None
-        offsets: dict = {}
-        chunks = d.chunks
+        return chunk_map_of(f, variable, path)
 
-        def visit(info):
-            key = tuple(o // c for o, c in zip(info.chunk_offset, chunks, strict=True))
-            offsets[key] = (int(info.byte_offset), int(info.size), int(info.filter_mask))
 
-        try:
-            d.id.chunk_iter(visit)
-        except (AttributeError, RuntimeError):  # older HDF5: one call per chunk
-            for i in range(d.id.get_num_chunks()):
-                visit(d.id.get_chunk_info(i))
-        fill = d.fillvalue
-        return ChunkMap(path=str(path), shape=tuple(d.shape), chunks=tuple(chunks),
-                        dtype=np.dtype(d.dtype), fill=fill, filters=filters, offsets=offsets)
+def chunk_map_of(f, variable: str, path: str) -> ChunkMap | None:
+    """Chunk map of ``variable`` in the open h5py File ``f`` of ``path``; None if not
+    supported."""
+    import h5py
+
+    if variable not in f:
+        return None
+    d = f[variable]
+    if not isinstance(d, h5py.Dataset) or d.chunks is None or d.dtype.kind not in "iuf":
+        return None
+    plist = d.id.get_create_plist()
+    filters = tuple(plist.get_filter(i)[0] for i in range(plist.get_nfilters()))
+    if not set(filters) <= _SUPPORTED:
+        return None
+    offsets: dict = {}
+    chunks = d.chunks
+
+    def visit(info):
+        key = tuple(o // c for o, c in zip(info.chunk_offset, chunks, strict=True))
+        offsets[key] = (int(info.byte_offset), int(info.size), int(info.filter_mask))
+
+    try:
+        d.id.chunk_iter(visit)
+    except (AttributeError, RuntimeError):  # older HDF5: one call per chunk
+        for i in range(d.id.get_num_chunks()):
+            visit(d.id.get_chunk_info(i))
+    fill = d.fillvalue
+    return ChunkMap(path=str(path), shape=tuple(d.shape), chunks=tuple(chunks),
+                    dtype=np.dtype(d.dtype), fill=fill, filters=filters, offsets=offsets)
 
 
 def _fletcher32(data: bytes) -> int:

@@ -126,12 +126,14 @@ class _NamedReads:
             ) from None
 
 
-def _parts(ds: xr.Dataset, name: str, paths: list[str]):
+def _parts(ds: xr.Dataset, name: str, paths: list[str], maps: list | None = None):
     """The stored chunks of ``name`` in each file, for :mod:`euphotic.chunkread` (``(parts,
-    False)``: raw values), or ``(None, True)`` when it cannot read them all alike."""
+    False)``: raw values), or ``(None, True)`` when it cannot read them all alike. ``maps``:
+    the files' chunk maps where they are known already (None: read here)."""
     if not chunkread.enabled():
         return None, True
-    maps = [chunkread.chunk_map(p, name) for p in paths]
+    maps = [m if m is not None else chunkread.chunk_map(p, name)
+            for p, m in zip(paths, maps or [None] * len(paths), strict=True)]
     if any(m is None for m in maps) or len({(m.shape, m.chunks, m.dtype) for m in maps}) != 1:
         return None, True
     if maps[0].shape != ds[name].shape:
@@ -139,9 +141,11 @@ def _parts(ds: xr.Dataset, name: str, paths: list[str]):
     return [chunkread.ChunkedArray(m) for m in maps], False
 
 
-def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
-    """One file as a :class:`_Piece`. With ``stack`` (raw chunk-reader arrays of files laid
-    out exactly like this one, this file's first), the piece holds all of them in order."""
+def _open_one(spec: InputSpec, path: str, stack: list | None = None,
+              maps: list | None = None) -> _Piece:
+    """One file as a :class:`_Piece`. With ``stack`` (paths of files laid out exactly like
+    this one, this file's first; ``maps``: their chunk maps where known), the piece holds
+    all of them in order."""
     try:
         ds = xr.open_dataset(
             path,
@@ -228,7 +232,7 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None) -> _Piece:
     # --- values: one task per stored chunk reads, orients and decodes it (euphotic.lazyread)
     dims = tuple(da.dims)
     paths = stack or [path]
-    parts, decoded = _parts(ds, name, paths)
+    parts, decoded = _parts(ds, name, paths, maps)
     if stack is not None and parts is None:
         raise _NotStackable(stack[0])
     detached = parts is not None  # values read by euphotic.chunkread need no open handle
@@ -283,7 +287,7 @@ def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
 
     with h5py.File(paths[0], "r") as f:
         layout = h5_layout(f, first)
-    same, others = [(paths[0], first.start, first.end, first.stamps)], []
+    same, others = [(paths[0], first.start, first.end, first.stamps, None)], []
     for p in paths[1:]:
         try:
             hit = like_first(spec, p, first, layout) if layout is not None else None
@@ -296,7 +300,8 @@ def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
     if len(same) == 1:
         return [first] + others
     try:
-        stacked = _open_one(spec, paths[0], stack=[x[0] for x in same])
+        stacked = _open_one(spec, paths[0], stack=[x[0] for x in same],
+                            maps=[x[4] for x in same])
     except _NotStackable:
         return [first] + [_open_checked(spec, x[0]) for x in same[1:]] + others
     if first.stamps is not None:

@@ -93,8 +93,12 @@ def h5_time_dataset(f, spec: InputSpec, time_d: str | None, n_time: int) -> xr.D
 
 
 def like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
-    """Dates of a file laid out exactly like ``first``, read with h5py only (no netCDF open);
-    None when anything differs (the file is then opened and checked in full)."""
+    """Dates of a file laid out exactly like ``first``, read with h5py only (no netCDF open),
+    and the chunk map of its variable (:func:`euphotic.chunkread.chunk_map`, None if the
+    chunk reader cannot read it): ``(start, end, stamps, chunk map)``; None when anything
+    differs (the file is then opened and checked in full)."""
+    from euphotic import chunkread
+
     import h5py
 
     try:
@@ -108,6 +112,7 @@ def like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
             var = f[first.variable]
             n_time = var.shape[first.file_dims.index(first.time_dim)] if first.time_dim else 1
             ds = h5_time_dataset(f, spec, first.time_dim, n_time)
+            cmap = chunkread.chunk_map_of(f, first.variable, path)
         except (KeyError, OSError, ValueError, TypeError):
             return None  # anything unexpected: the full open reports it properly
         if (role(spec.role).kelvin_check
@@ -127,5 +132,5 @@ def like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
     start, end, stamps = file_dates(spec, ds, first.time_dim, n_time, path)
     if (stamps is None) != (first.stamps is None):
         return None
-    return start, end, stamps
+    return start, end, stamps, cmap
 
