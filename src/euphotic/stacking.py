@@ -97,9 +97,9 @@ def like_first(spec: InputSpec, path: str, first: _Piece, layout: tuple):
     and the chunk map of its variable (:func:`euphotic.chunkread.chunk_map`, None if the
     chunk reader cannot read it): ``(start, end, stamps, chunk map)``; None when anything
     differs (the file is then opened and checked in full)."""
-    from euphotic import chunkread
-
     import h5py
+
+    from euphotic import chunkread
 
     try:
         f = h5py.File(path, "r")
