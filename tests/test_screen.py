@@ -529,19 +529,23 @@ def test_counting_reads_each_block_once(tmp_path):
     assert sorted(reads) == sorted(inputs)
 
 
-def test_screen_range_on_many_blocks_matches_numpy():
-    """Masking and counting block by block (7 x 9 blocks, uneven edges) equals numpy on the
-    whole array (numpy is the reference)."""
+def test_marked_values_are_counted_block_by_block_as_numpy_counts():
+    """Values the read path marked (below / above the range: NaN with payloads 1 / 2) are
+    counted per period block by block (7 x 9 blocks, uneven edges) as numpy counts the
+    unmarked array (numpy is the reference); plain NaN (missing) is in no count, and the
+    marks are NaN to numpy."""
     import dask.array as dsa
     import xarray as xr
 
     x = np.random.default_rng(0).uniform(-10, 200, (3, 23, 31)).astype("f4")
     x[0, 0, :5] = np.nan
-    da = xr.DataArray(dsa.from_array(x, chunks=(1, 7, 9)), dims=("time", "lat", "lon"),
+    below, above = screen.marks(np.float32)
+    assert np.isnan(below) and np.isnan(above)
+    marked = np.where(x < 0.001, below, np.where(x > 100, above, x)).astype("f4")
+    da = xr.DataArray(dsa.from_array(marked, chunks=(1, 7, 9)), dims=("time", "lat", "lon"),
                       attrs={"units": "mg m-3"})
-    masked, counts = screen.screen_range(da, role="chl", lo=0.001, hi=100.0)
-    assert masked.data.chunks == da.data.chunks
-    np.testing.assert_array_equal(masked.values, np.where((x < 0.001) | (x > 100), np.nan, x))
+    counts = screen.count_marks(da, role="chl", lo=0.001, hi=100.0)
     want = [[(x[i] < 0.001).sum(), (x[i] > 100).sum(), ((x[i] >= 0.001) & (x[i] <= 100)).sum()]
             for i in range(3)]
     np.testing.assert_array_equal(counts.totals.compute(), want)
+    np.testing.assert_array_equal(np.isnan(marked), np.isnan(x) | (x < 0.001) | (x > 100))

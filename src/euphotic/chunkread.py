@@ -237,67 +237,20 @@ class ChunkedArray:
 
 
 def dask_array(path: str, variable: str, chunks: tuple[int, ...] | None = None):
-    """A dask array of the raw (still CF-encoded) values of ``variable``; None if unsupported."""
-    return stacked_dask_array([path], variable, axis=0, chunks=chunks)
-
-
-class StackedChunks:
-    """Array-like over the same variable of several files laid out alike, one after the other
-    along ``axis`` (or along a new leading axis when ``axis`` is None)."""
-
-    def __init__(self, parts: list[ChunkedArray], axis: int | None):
-        self.parts = parts
-        self.axis = axis
-        one = parts[0].shape
-        self.step = 1 if axis is None else one[axis]
-        self.shape = ((len(parts),) + one if axis is None
-                      else one[:axis] + (one[axis] * len(parts),) + one[axis + 1:])
-        self.dtype = parts[0].dtype
-        self.ndim = len(self.shape)
-
-    def __getitem__(self, key) -> np.ndarray:
-        key = key if isinstance(key, tuple) else (key,)
-        key = key + (slice(None),) * (self.ndim - len(key))
-        ax = 0 if self.axis is None else self.axis
-        a, b, _ = key[ax].indices(self.shape[ax]) if isinstance(key[ax], slice) else (key[ax], key[ax] + 1, 1)
-        pieces = []
-        for i in range(a // self.step, (max(b - 1, a)) // self.step + 1):
-            lo = max(a, i * self.step) - i * self.step
-            hi = min(b, (i + 1) * self.step) - i * self.step
-            if self.axis is None:
-                sub = self.parts[i][key[1:]][np.newaxis]
-            else:
-                sub = self.parts[i][key[:ax] + (slice(lo, hi),) + key[ax + 1:]]
-            pieces.append(sub)
-        out = pieces[0] if len(pieces) == 1 else np.concatenate(pieces, axis=ax)
-        if not isinstance(key[ax], slice):
-            out = out.squeeze(axis=ax)
-        return out
-
-
-def stacked_dask_array(paths: list[str], variable: str, axis: int | None,
-                       chunks: tuple[int, ...] | None = None):
-    """One dask array over the raw values of ``variable`` in several files laid out alike
-    (same shape, chunks and filters), joined along ``axis`` (None: a new leading axis);
-    dask chunks follow each file's stored chunks. None if a file is not supported."""
+    """A dask array of the raw (still CF-encoded) values of ``variable``, in blocks of
+    ``chunks`` (default: the stored chunks); None if unsupported."""
     import dask.array as da
     from dask.base import tokenize
 
-    maps = [chunk_map(p, variable) for p in paths]
-    if any(m is None for m in maps) or len({(m.shape, m.chunks, m.dtype) for m in maps}) != 1:
+    cmap = chunk_map(path, variable)
+    if cmap is None:
         return None
-    stats = [os.stat(p) for p in paths]
-    name = "chunkread-" + tokenize(list(map(str, paths)), variable, axis, chunks,
-                                   [(st.st_mtime_ns, st.st_size) for st in stats])
-    src = StackedChunks([ChunkedArray(m) for m in maps], axis)
-    one = chunks or maps[0].chunks
-    per_file = [tuple(_split(n, c)) for n, c in zip(maps[0].shape, one, strict=True)]
-    if axis is None:
-        dims = [(1,) * len(paths)] + per_file
-    else:
-        dims = list(per_file)
-        dims[axis] = per_file[axis] * len(paths)
-    return da.from_array(src, chunks=tuple(dims), name=name, lock=False, asarray=False,
+    st = os.stat(path)
+    name = "chunkread-" + tokenize(str(path), variable, chunks, st.st_mtime_ns, st.st_size)
+    src = ChunkedArray(cmap)
+    dims = tuple(tuple(_split(n, c)) for n, c in zip(cmap.shape, chunks or cmap.chunks,
+                                                      strict=True))
+    return da.from_array(src, chunks=dims, name=name, lock=False, asarray=False,
                          fancy=False, meta=np.empty((0,) * src.ndim, src.dtype))
 
 

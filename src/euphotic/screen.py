@@ -2,7 +2,7 @@
 
 Pure functions on numpy arrays and lazy (dask-backed) xarray objects; nothing here computes.
 The readers call them while opening an input (:func:`resolve_duplicates`,
-:func:`find_overlaps`, :func:`check_kelvin_label`, :func:`screen_range`); the pipeline adds the
+:func:`find_overlaps`, :func:`check_kelvin_label`, :func:`count_marks`); the pipeline adds the
 lazy counts of :func:`counts_for_months` to its one compute and turns the computed numbers
 into per-month warnings and file attributes with :func:`month_numbers`.
 """
@@ -326,52 +326,6 @@ class LazyCounts:
         return [self.lo, self.hi]
 
 
-def _block_counts(x: np.ndarray, lo: float, hi: float) -> np.ndarray:
-    """Counts of one block (time, lat, lon): (time, 1, 1, 3) of below, above, within."""
-    below = (x < lo).sum(axis=(1, 2))
-    above = (x > hi).sum(axis=(1, 2))
-    missing = np.isnan(x).sum(axis=(1, 2)) if x.dtype.kind == "f" else 0
-    inside = x.shape[1] * x.shape[2] - below - above - missing
-    return np.stack([below, above, inside], axis=-1).astype(np.int64)[:, None, None, :]
-
-
-def _mask_block(x: np.ndarray, counted: np.ndarray, lo: float, hi: float) -> np.ndarray:
-    """One block with values outside [lo, hi] set to NaN. ``counted`` (the block's counts)
-    is only a dependency: the block is counted before the model reads it, so a read block is
-    never kept waiting for its count."""
-    return np.where((x < lo) | (x > hi), np.asarray(np.nan, x.dtype), x)
-
-
-def screen_range(da: xr.DataArray, *, role: str, lo: float, hi: float
-                 ) -> tuple[xr.DataArray, LazyCounts]:
-    """Mask values of ``da`` (time, lat, lon) outside [lo, hi] and count them per period.
-
-    Each block is counted by one task and masked by a task that waits for that count, so
-    the one compute reads a block once, counts it and frees it as soon as the model has used
-    it (counting in a separate branch of the graph made the scheduler keep every block of
-    a month in memory until the end).
-    """
-    import dask.array as dsa
-
-    data = da.data if isinstance(da.data, dsa.Array) else dsa.from_array(np.asarray(da.data))
-    lo, hi = float(lo), float(hi)
-    per_block = dsa.blockwise(
-        _block_counts, "tyxk", data, "tyx", lo=lo, hi=hi, new_axes={"k": 3}, dtype=np.int64,
-        adjust_chunks={"y": lambda _: 1, "x": lambda _: 1},
-        meta=np.empty((0, 0, 0, 0), np.int64),
-    )
-    masked_data = dsa.blockwise(
-        _mask_block, "tyx", data, "tyx", per_block, "tyxk", lo=lo, hi=hi, dtype=data.dtype,
-        concatenate=True, align_arrays=False,  # blocks paired by index (counts are 1 x 1)
-        meta=np.empty((0, 0, 0), data.dtype),
-    )
-    counts = LazyCounts(role=role, lo=lo, hi=hi, units=str(da.attrs.get("units", _units(role))),
-                        totals=per_block.sum(axis=(1, 2)))
-    masked = da.copy(data=masked_data)
-    masked.attrs = dict(da.attrs)
-    return masked, counts
-
-
 #: Bits of the NaN that marks a value below / above the plausible range, per float type (a
 #: quiet NaN with payload 1 or 2; missing values are the plain quiet NaN).
 _MARK_BITS = {np.dtype(np.float32): (np.uint32, 0x7FC00001, 0x7FC00002),
@@ -421,9 +375,8 @@ def _marked_counts(x: np.ndarray) -> np.ndarray:
 
 def count_marks(da: xr.DataArray, *, role: str, lo: float, hi: float) -> LazyCounts:
     """Lazy per-period counts of ``da`` (time, lat, lon), whose values outside [lo, hi] the
-    read path has already set to marked NaN (:func:`marks`): one small counting task per
-    block, and no masking pass (the form of :func:`screen_range` for inputs read by
-    :mod:`euphotic.lazyread`)."""
+    read path (:mod:`euphotic.lazyread`) has already set to marked NaN (:func:`marks`): one
+    small counting task per block, and no masking pass."""
     import dask.array as dsa
 
     data = da.data if isinstance(da.data, dsa.Array) else dsa.from_array(np.asarray(da.data))
