@@ -59,11 +59,10 @@ def _cache_file(path: Path, lat: np.ndarray, lon: np.ndarray) -> Path:
     kernels), else ``$XDG_CACHE_HOME/euphotic/masks`` or ``~/.cache/euphotic/masks``; the name
     holds a digest of the grid and of the packaged mask file (its path, size and time)."""
     import hashlib
-    import os
 
-    where = os.environ.get("EUPHOTIC_CACHE_DIR")
-    base = Path(where) if where else Path(
-        os.environ.get("XDG_CACHE_HOME") or Path.home() / ".cache") / "euphotic" / "masks"
+    from euphotic.cachedir import cache_dir
+
+    base = cache_dir("masks")
     st = path.stat()
     h = hashlib.blake2b(digest_size=12)
     for arr in (lat, lon):

@@ -124,11 +124,11 @@ def _table_path():
     from importlib.metadata import version
     from pathlib import Path
 
-    from euphotic.models._declare import kernel_cache_dir
+    from euphotic.cachedir import cache_dir
 
     h = hashlib.blake2b(Path(__file__).read_bytes(), digest_size=8)
     h.update(version("pint").encode())
-    return kernel_cache_dir() / f"units-{h.hexdigest()}.json"
+    return cache_dir("lookups") / f"units-{h.hexdigest()}.json"
 
 
 def _stored_table() -> dict:

@@ -145,7 +145,7 @@ def _citation_store():
     from pathlib import Path
 
     from euphotic import methods
-    from euphotic.models._declare import kernel_cache_dir
+    from euphotic.cachedir import cache_dir
 
     h = hashlib.sha256()
     try:
@@ -153,7 +153,7 @@ def _citation_store():
             h.update(f.read_bytes())
     except OSError:
         return None
-    return kernel_cache_dir() / f"citations_{h.hexdigest()[:16]}.json"
+    return cache_dir("lookups") / f"citations_{h.hexdigest()[:16]}.json"
 
 
 def _stored_citation(name: str) -> str:

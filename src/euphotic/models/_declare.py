@@ -200,11 +200,9 @@ def _models_digest() -> str:
 def kernel_cache_dir() -> Path:
     """Where generated kernel files (and numba's cache of them) live:
     ``$EUPHOTIC_CACHE_DIR``, else ``$XDG_CACHE_HOME/euphotic/kernels`` (``~/.cache``)."""
-    env = os.environ.get("EUPHOTIC_CACHE_DIR")
-    if env:
-        return Path(env)
-    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
-    return Path(base) / "euphotic" / "kernels"
+    from euphotic.cachedir import cache_dir
+
+    return cache_dir("kernels")
 
 
 _DIGEST: str | None = None
