@@ -10,7 +10,9 @@ day (``period_start``) and the day after its last (``period_end``). Nothing is l
 
 from __future__ import annotations
 
+import dataclasses
 import os
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -79,6 +81,9 @@ class _Piece:
     #: files whose sample covered every value and found none valid
     empty: list[str] = field(default_factory=list)
     grid_dims: tuple = ()  # the file's (lat, lon) dimension names
+    #: (paths, chunk maps) -> ``data`` over those files laid out exactly like this one (this
+    #: file's first), read with this file's layout and decoder; None when not chunk-read
+    restack: Callable[[list[str], list], xr.DataArray] | None = None
 
 
 
@@ -126,26 +131,24 @@ class _NamedReads:
             ) from None
 
 
-def _parts(ds: xr.Dataset, name: str, paths: list[str], maps: list | None = None):
-    """The stored chunks of ``name`` in each file, for :mod:`euphotic.chunkread` (``(parts,
-    False)``: raw values), or ``(None, True)`` when it cannot read them all alike. ``maps``:
-    the files' chunk maps where they are known already (None: read here)."""
+def _parts(shape: tuple, name: str, paths: list[str], maps: list | None = None):
+    """The stored chunks of ``name`` (of ``shape``) in each file, for
+    :mod:`euphotic.chunkread` (``(parts, False)``: raw values), or ``(None, True)`` when it
+    cannot read them all alike. ``maps``: the files' chunk maps where they are known already
+    (None: read here)."""
     if not chunkread.enabled():
         return None, True
     maps = [m if m is not None else chunkread.chunk_map(p, name)
             for p, m in zip(paths, maps or [None] * len(paths), strict=True)]
     if any(m is None for m in maps) or len({(m.shape, m.chunks, m.dtype) for m in maps}) != 1:
         return None, True
-    if maps[0].shape != ds[name].shape:
+    if maps[0].shape != tuple(shape):
         return None, True
     return [chunkread.ChunkedArray(m) for m in maps], False
 
 
-def _open_one(spec: InputSpec, path: str, stack: list | None = None,
-              maps: list | None = None) -> _Piece:
-    """One file as a :class:`_Piece`. With ``stack`` (paths of files laid out exactly like
-    this one, this file's first; ``maps``: their chunk maps where known), the piece holds
-    all of them in order."""
+def _open_one(spec: InputSpec, path: str) -> _Piece:
+    """One file as a :class:`_Piece` (with ``restack`` to read files laid out like it)."""
     try:
         ds = xr.open_dataset(
             path,
@@ -203,7 +206,7 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None,
     # --- a look at a few values (temperature only): one stored chunk, no dask
     empty: list[str] = []
     sample_attrs = dict(da.attrs)
-    if role(spec.role).kelvin_check and units_used and stack is None:
+    if role(spec.role).kelvin_check and units_used:
         index, whole = sample_index(da.shape, file_dims, enc.get("chunksizes"), lat_d, lon_d)
         try:
             decoded = ds[name].variable[index]  # read (and CF-decoded) by the netCDF library
@@ -231,10 +234,7 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None,
 
     # --- values: one task per stored chunk reads, orients and decodes it (euphotic.lazyread)
     dims = tuple(da.dims)
-    paths = stack or [path]
-    parts, decoded = _parts(ds, name, paths, maps)
-    if stack is not None and parts is None:
-        raise _NotStackable(stack[0])
+    parts, decoded = _parts(da.shape, name, [path])
     detached = parts is not None  # values read by euphotic.chunkread need no open handle
     if parts is None:
         parts, decoded = [_NamedReads(ds[name].variable, path)], True
@@ -251,29 +251,45 @@ def _open_one(spec: InputSpec, path: str, stack: list | None = None,
                                    lat_raw.size, lon_raw.size))
     decoder = decoder_for(parts[0].dtype, enc, dict(da.attrs), a, b, decoded=decoded,
                           screen_range=screen.valid_range(spec.role, spec.valid_range))
-    stats = [os.stat(p) for p in paths]
-    key = ("chunkread-" if detached else "ncread-") + tokenize(paths, [(st.st_mtime_ns, st.st_size) for st in stats], name,
-                             layout.axes, layout.squeeze, layout.chunks, layout.group, lat_order, lon_order,
-                             decoder, decoded)
-    values = lazyread.dask_array(parts, layout, decoder, key)
     lat_sorted = lat_raw[lat_order]
-    da = xr.DataArray(values, dims=("time", "lat", "lon"),
-                      coords={"lat": lat_sorted,
-                              "lon": lon_values if in_task else lon_raw},
-                      name=name)
-    if not in_task:  # an irregular longitude order: reordered by xarray
-        da = normalize_lon(da, path)
+    shape = da.shape
+
+    def values_of(paths: list[str], parts: list) -> xr.DataArray:
+        stats = [os.stat(p) for p in paths]
+        key = ("chunkread-" if detached else "ncread-") + tokenize(
+            paths, [(st.st_mtime_ns, st.st_size) for st in stats], name, layout.axes,
+            layout.squeeze, layout.chunks, layout.group, lat_order, lon_order, decoder, decoded)
+        out = xr.DataArray(lazyread.dask_array(parts, layout, decoder, key),
+                           dims=("time", "lat", "lon"),
+                           coords={"lat": lat_sorted, "lon": lon_values if in_task else lon_raw},
+                           name=name)
+        if not in_task:  # an irregular longitude order: reordered by xarray
+            out = normalize_lon(out, path)
+        out.attrs = {
+            "units": TARGET_UNITS[spec.role],
+            "long_name": LONG_NAMES[spec.role],
+            "source_variable": name,
+        }
+        return out
+
+    first_map = parts[0].cmap if detached else None
+
+    def restack(paths: list[str], maps: list) -> xr.DataArray:
+        if paths and paths[0] == path and maps and maps[0] is None:
+            maps = [first_map, *maps[1:]]  # this file's chunk map, read already
+        parts, _ = _parts(shape, name, paths, maps)
+        if parts is None:
+            raise _NotStackable(paths[0])
+        return values_of(paths, parts)
+
+    values = values_of([path], parts)
     if detached:
         ds.close()
-    da.attrs = {
-        "units": TARGET_UNITS[spec.role],
-        "long_name": LONG_NAMES[spec.role],
-        "source_variable": name,
-    }
-    return _Piece(path=path, data=da, start=start, end=end, stamps=stamps, variable=name,
+    return _Piece(path=path, data=values, start=start, end=end, stamps=stamps, variable=name,
                   time_dim=file_time_d, file_dims=file_dims,
                   detached=detached, paths=[path], info=info, enc=enc,
-                  sample_attrs=sample_attrs, empty=empty, grid_dims=(lat_d, lon_d))
+                  sample_attrs=sample_attrs, empty=empty, grid_dims=(lat_d, lon_d),
+                  restack=restack if detached else None)
 
 
 def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
@@ -299,9 +315,9 @@ def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
             same.append((p, *hit))
     if len(same) == 1:
         return [first] + others
-    try:
-        stacked = _open_one(spec, paths[0], stack=[x[0] for x in same],
-                            maps=[x[4] for x in same])
+    try:  # the first file's layout and decoder over every file laid out like it
+        stacked = dataclasses.replace(first, data=first.restack(
+            [x[0] for x in same], [None] + [x[4] for x in same[1:]]))
     except _NotStackable:
         return [first] + [_open_checked(spec, x[0]) for x in same[1:]] + others
     if first.stamps is not None:
