@@ -69,3 +69,40 @@ def test_not_used_for_a_cluster(monkeypatch, tmp_path):
 
     with pytest.raises(TypeError, match="writes from threads"):
         pickle.dumps(w)
+
+
+def test_region_masks_written_by_the_dask_threads_equal_the_library_file(tmp_path):
+    """``regions.nc`` with its planes written as direct chunks while the run computes equals
+    the file the netCDF library writes (read back with netCDF4-python: same variables,
+    attributes, chunking, filters and values); the lazy planes are read-only views of the
+    masks, not copies."""
+    import dask
+
+    from euphotic import aggregate, lazyread
+
+    rng = np.random.default_rng(5)
+    lat = np.arange(-9.75, 10, 0.5)
+    lon = np.arange(-19.75, 20, 0.5)
+    masks = aggregate.RegionMasks.build(
+        [(f"r{i}", rng.random((lat.size, lon.size)) > 0.5) for i in range(5)],
+        max_label_layers=1)  # one label layer, then bit planes
+    area = np.full(lat.size, 3.0e9)
+    eager = outputs.region_dataset(masks, lat, lon, area, earth="sphere")
+    ref = tmp_path / "library.nc"
+    outputs.write_regions(ref, eager)
+    lazy_ds = outputs.region_dataset(masks, lat, lon, area, earth="sphere", name="planes")
+    direct = tmp_path / "direct.nc"
+    pending = outputs.write_regions_lazy(direct, lazy_ds)
+    assert pending is not None  # the planes are left for the compute
+    dask.compute(pending)
+    with netCDF4.Dataset(ref) as a, netCDF4.Dataset(direct) as b:
+        assert a.variables.keys() == b.variables.keys()
+        for v in a.variables:
+            assert a[v].chunking() == b[v].chunking() and a[v].filters() == b[v].filters(), v
+            assert a[v].ncattrs() == b[v].ncattrs(), v
+            np.testing.assert_array_equal(a[v][:], b[v][:])
+        assert a["region_planes"].dtype == np.int32  # uint16 planes stored signed, wider
+    held = lazyread.held_array(masks.planes, (1, 7, 9), "m")
+    block = dict(held.dask)[(held.name, 0, 1, 2)]  # the block as the graph holds it
+    assert np.shares_memory(block, masks.planes) and not block.flags.writeable
+    np.testing.assert_array_equal(held.compute(), masks.planes)

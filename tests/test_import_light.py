@@ -9,6 +9,7 @@ import subprocess
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 SRC = str(Path(__file__).resolve().parents[1] / "src")
@@ -63,3 +64,27 @@ def test_citations_are_kept_between_runs_and_equal_the_rendered_text(tmp_path, m
     monkeypatch.setattr(models._Citations, "_cache", {})
     monkeypatch.setattr(models, "citation", lambda name: "fresh")
     assert models.CITATIONS["vgpm"] == "fresh"
+
+
+def test_a_local_run_does_not_load_the_cluster_library(tmp_path):
+    """A run without a cluster never imports dask.distributed (xarray and dask import it only
+    to ask whether a cluster is in use, a quarter of a second at start); its maps are
+    written (checked by reading one back with netCDF4-python)."""
+    from tests._grids import monthly_case
+
+    cfg = monthly_case(tmp_path, 2)
+    code = ("import json, sys; from euphotic.config import load_config; "
+            "from euphotic.pipeline import run; "
+            f"run(load_config({str(cfg)!r}), progress=False, steps=False); "
+            "print(json.dumps('distributed' in sys.modules))")
+    env = {**os.environ, "PYTHONPATH": SRC + os.pathsep + os.environ.get("PYTHONPATH", "")}
+    res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                         env=env, cwd=tmp_path)
+    assert res.returncode == 0, res.stderr
+    assert json.loads(res.stdout.strip().splitlines()[-1]) is False
+    import netCDF4
+
+    maps = sorted((tmp_path / "out").glob("npp_vgpm_2023-0*.nc"))
+    assert len(maps) == 2
+    with netCDF4.Dataset(maps[0]) as nc:
+        assert np.isfinite(nc["npp"][:].filled(np.nan)).any()

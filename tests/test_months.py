@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import dask
+import dask.array
 import numpy as np
 import pytest
 import xarray as xr

@@ -612,3 +612,19 @@ def test_box_window_matches_polygon_path_on_descending_and_fine_grids(lat_step, 
         got[win.rows, win.cols] = win.mask
         np.testing.assert_array_equal(got, polygon_mask(box_geometry(w, s, e, n), lat, lon),
                                       err_msg=f"box {[w, s, e, n]}")
+
+
+@pytest.mark.parametrize("n_regions", [None, 6, 2])  # none given; honest; too few (more come)
+def test_planes_are_the_same_with_or_without_the_number_of_regions(n_regions):
+    """Masks built into one zeroed buffer (the number of regions known up front) give the
+    planes numpy's stack of separately built planes gives (the reference); more regions than
+    ``n_regions`` said still load. Each mask reads back exactly."""
+    rng = np.random.default_rng(11)
+    masks = [(f"r{i}", rng.random((6, 9)) > 0.6) for i in range(6)]
+    ref = aggregate.RegionMasks.build(iter(masks), max_label_layers=2)  # no length: stacked
+    got = aggregate.RegionMasks.build(iter(masks), n_regions=n_regions, max_label_layers=2)
+    # the integer type follows n_regions; the values (labels, bits) are the same
+    np.testing.assert_array_equal(got.planes, ref.planes.astype(got.planes.dtype))
+    assert (got.n_label_layers, got.bit_regions) == (ref.n_label_layers, ref.bit_regions)
+    for name, m in masks:
+        np.testing.assert_array_equal(got[name], m)

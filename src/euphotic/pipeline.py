@@ -255,11 +255,33 @@ def _cull(tasks, keys) -> dict:
     return out
 
 
-def _compute(objs, *, client, progress: bool, shared: _SharedTasks | None = None):
+#: Input values (cells x time steps, all inputs) a batch of months may read and still be
+#: computed in the calling thread: below this the work takes milliseconds, and handing
+#: tasks to threads costs more than it saves (a decade of monthly composites on a basin grid).
+SMALL_BATCH_VALUES = 2**20
+
+
+def _batch_values(prep: Prepared, batch) -> int:
+    """Input values (cells x time steps of every input) the months of ``batch`` read."""
+    m0 = np.datetime64(min(batch), "M").astype("datetime64[D]")
+    m1 = (np.datetime64(max(batch), "M") + 1).astype("datetime64[D]")
+    n = 0
+    for d in prep.inputs.values():
+        if "period_start" not in d.coords:
+            continue
+        steps = int(((d["period_start"].values.astype("datetime64[D]") < m1)
+                     & (d["period_end"].values.astype("datetime64[D]") > m0)).sum())
+        n += steps * d.sizes.get("lat", 1) * d.sizes.get("lon", 1)
+    return n
+
+
+def _compute(objs, *, client, progress: bool, shared: _SharedTasks | None = None,
+             small: bool = False):
     """Compute ``objs`` once, with a progress bar when asked.
 
     With ``shared`` (local scheduler), the graph is cut out of the run's shared tasks and
-    given to the scheduler as it is: no graph optimisation per compute."""
+    given to the scheduler as it is: no graph optimisation per compute; ``small`` (see
+    :data:`SMALL_BATCH_VALUES`): in the calling thread."""
     if client is None and shared is not None:
         from dask.base import get_scheduler, unpack_collections
 
@@ -270,7 +292,10 @@ def _compute(objs, *, client, progress: bool, shared: _SharedTasks | None = None
         if dask.config.get("scheduler", None) is None and "distributed" not in sys.modules:
             # what get_scheduler picks when no cluster can exist, without importing
             # dask.distributed to ask (a quarter of a second at start)
-            from dask.threaded import get as schedule
+            if small:
+                from dask.local import get_sync as schedule
+            else:
+                from dask.threaded import get as schedule
         else:
             schedule = get_scheduler(collections=collections)
         posts = [c.__dask_postcompute__() for c in collections]
@@ -612,7 +637,8 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
                 _, sums, n_valid, screened, *held = _compute(
                     [writes + regions_now, [z.sums for z in lazies if z is not None], counts,
                      report.lazy(batch), *lazy_ocean],
-                    client=client, progress=progress, shared=shared)
+                    client=client, progress=progress, shared=shared,
+                    small=_batch_values(prep, batch) <= SMALL_BATCH_VALUES)
                 if regions_now:  # the region masks' chunks were written in this compute
                     _region_entry(stage, entries)
                 # screening: warnings, and the counts of masked values into each month's file
