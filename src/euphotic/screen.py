@@ -385,11 +385,17 @@ def count_marks(da: xr.DataArray, *, role: str, lo: float, hi: float) -> LazyCou
         adjust_chunks={"y": lambda _: 1, "x": lambda _: 1},
         meta=np.empty((0, 0, 0, 0), np.int64),
     )
-    # one sum per period over all its blocks' counts (tiny arrays): no reduction tree
-    every = {1: per_block.numblocks[1], 2: per_block.numblocks[2]}
+    # one task per time block sums the counts of all its blocks (tiny arrays, given to it
+    # together): a reduction would add a task per block
+    totals = dsa.blockwise(_sum_counts, "tk", per_block, "tyxk", concatenate=True,
+                           dtype=np.int64, meta=np.empty((0, 0), np.int64))
     return LazyCounts(role=role, lo=float(lo), hi=float(hi),
-                      units=str(da.attrs.get("units", _units(role))),
-                      totals=per_block.sum(axis=(1, 2), split_every=every))
+                      units=str(da.attrs.get("units", _units(role))), totals=totals)
+
+
+def _sum_counts(counts: np.ndarray) -> np.ndarray:
+    """(time, blocks along lat, blocks along lon, 3) counts -> (time, 3)."""
+    return counts.sum(axis=(1, 2))
 
 
 def periods_of_months(starts, ends, months: Sequence[np.datetime64]) -> dict:
