@@ -261,18 +261,19 @@ def _cull(tasks, keys) -> dict:
 SMALL_BATCH_VALUES = 2**20
 
 
+def _touching(d: xr.DataArray, first, last) -> np.ndarray:
+    """Which periods of input ``d`` touch the months ``first`` to ``last`` (boolean)."""
+    m0 = np.datetime64(first, "M").astype("datetime64[D]")
+    m1 = (np.datetime64(last, "M") + 1).astype("datetime64[D]")
+    return ((d["period_start"].values.astype("datetime64[D]") < m1)
+            & (d["period_end"].values.astype("datetime64[D]") > m0))
+
+
 def _batch_values(prep: Prepared, batch) -> int:
     """Input values (cells x time steps of every input) the months of ``batch`` read."""
-    m0 = np.datetime64(min(batch), "M").astype("datetime64[D]")
-    m1 = (np.datetime64(max(batch), "M") + 1).astype("datetime64[D]")
-    n = 0
-    for d in prep.inputs.values():
-        if "period_start" not in d.coords:
-            continue
-        steps = int(((d["period_start"].values.astype("datetime64[D]") < m1)
-                     & (d["period_end"].values.astype("datetime64[D]") > m0)).sum())
-        n += steps * d.sizes.get("lat", 1) * d.sizes.get("lon", 1)
-    return n
+    return sum(int(_touching(d, min(batch), max(batch)).sum())
+               * d.sizes.get("lat", 1) * d.sizes.get("lon", 1)
+               for d in prep.inputs.values() if "period_start" in d.coords)
 
 
 def _compute(objs, *, client, progress: bool, shared: _SharedTasks | None = None,
@@ -484,13 +485,10 @@ def _month_inputs(inputs: dict[str, xr.DataArray], month: np.datetime64,
 
     if shared is None:
         return dict(inputs)
-    m0 = np.datetime64(month, "M").astype("datetime64[D]")
-    m1 = (np.datetime64(month, "M") + 1).astype("datetime64[D]")
     out = {}
     for role, d in inputs.items():
         a = d.data
-        hit = np.flatnonzero((d["period_start"].values.astype("datetime64[D]") < m1)
-                             & (d["period_end"].values.astype("datetime64[D]") > m0))
+        hit = np.flatnonzero(_touching(d, month, month))
         if not isinstance(a, da.Array) or not len(hit) or a.name not in shared.layers:
             out[role] = d
             continue
@@ -647,8 +645,8 @@ def _run(cfg: RunConfig, prep: Prepared, folder: runfolder.OutputFolder, *, prog
                     screen.record_in_file(stage.file(name), screen_attrs[np.datetime64(month, "M")],
                                           cfg.output_format)
             if held:
-                ocean_mask = ocean_mask.copy(data=dsa.from_array(
-                    np.asarray(held[0], bool), chunks=ocean_mask.data.chunks))
+                ocean_mask = ocean_mask.copy(data=lazyread.held_array(
+                    np.asarray(held[0], bool), ocean_mask.data.chunks, "ocean"))
                 shared.add(ocean_mask.data)
             sums = iter(sums)
             for (model_name, month), z, nv, name in zip(items, lazies, n_valid, names,
