@@ -81,8 +81,8 @@ class _Piece:
     #: files whose sample covered every value and found none valid
     empty: list[str] = field(default_factory=list)
     grid_dims: tuple = ()  # the file's (lat, lon) dimension names
-    #: (paths, chunk maps) -> ``data`` over those files laid out exactly like this one (this
-    #: file's first), read with this file's layout and decoder; None when not chunk-read
+    #: (paths, chunk maps) of files laid out exactly like this one -> ``data`` over this file
+    #: then those, read with this file's layout and decoder; None when not chunk-read
     restack: Callable[[list[str], list], xr.DataArray] | None = None
 
 
@@ -274,12 +274,11 @@ def _open_one(spec: InputSpec, path: str) -> _Piece:
 
     first_map = parts[0].cmap if detached else None
 
-    def restack(paths: list[str], maps: list) -> xr.DataArray:
-        if paths and paths[0] == path and maps and maps[0] is None:
-            maps = [first_map, *maps[1:]]  # this file's chunk map, read already
-        parts, _ = _parts(shape, name, paths, maps)
+    def restack(more: list[str], maps: list) -> xr.DataArray:
+        paths = [path, *more]
+        parts, _ = _parts(shape, name, paths, [first_map, *maps])
         if parts is None:
-            raise _NotStackable(paths[0])
+            raise _NotStackable(path)
         return values_of(paths, parts)
 
     values = values_of([path], parts)
@@ -317,7 +316,7 @@ def _open_all(spec: InputSpec, paths: list[str]) -> list[_Piece]:
         return [first] + others
     try:  # the first file's layout and decoder over every file laid out like it
         stacked = dataclasses.replace(first, data=first.restack(
-            [x[0] for x in same], [None] + [x[4] for x in same[1:]]))
+            [x[0] for x in same[1:]], [x[4] for x in same[1:]]))
     except _NotStackable:
         return [first] + [_open_checked(spec, x[0]) for x in same[1:]] + others
     if first.stamps is not None:
