@@ -423,14 +423,17 @@ def write_report(folder: str | Path, *, command: str = "euphotic report",
     """
     folder = Path(folder)
     results.committed_manifest(folder)  # no run, or an interrupted commit: say so, touch nothing
-    kinds = (KIND, "methods") if methods else (KIND,)  # "methods": euphotic.methods.KIND
+    kinds: tuple[str, ...] = (KIND,)
+    if methods:
+        from euphotic.methods import KIND as METHODS_KIND
+        from euphotic.methods import stage_methods
+
+        kinds += (METHODS_KIND,)
     methods_files: list[Path] = []
     with runfolder.OutputFolder(folder).adding(command, replace_kinds=kinds) as (stage, added):
         # built under the folder's lock from what is committed: no other command can add to
         # the folder between the reading and the commit
         if methods:
-            from euphotic.methods import stage_methods
-
             methods_files = stage_methods(folder, stage, added).files
         page, n_images = render(folder)
         stage.file(FILE).write_text(page, encoding="utf-8")
