@@ -248,11 +248,13 @@ def dask_array(path: str, variable: str, chunks: tuple[int, ...] | None = None):
     st = os.stat(path)
     name = "chunkread-" + tokenize(str(path), variable, chunks, st.st_mtime_ns, st.st_size)
     src = ChunkedArray(cmap)
-    dims = tuple(tuple(_split(n, c)) for n, c in zip(cmap.shape, chunks or cmap.chunks,
-                                                      strict=True))
+    dims = tuple(regular_chunks(n, c) for n, c in zip(cmap.shape, chunks or cmap.chunks,
+                                                       strict=True))
     return da.from_array(src, chunks=dims, name=name, lock=False, asarray=False,
                          fancy=False, meta=np.empty((0,) * src.ndim, src.dtype))
 
 
-def _split(n: int, c: int) -> list[int]:
-    return [min(c, n - i) for i in range(0, n, c)] or [0]
+def regular_chunks(n: int, c: int) -> tuple[int, ...]:
+    """Sizes of the chunks of ``c`` cutting an axis of ``n`` (the last one shorter), as dask
+    gives them ((0,) for an empty axis)."""
+    return tuple(min(c, n - i) for i in range(0, n, c)) or (0,)

@@ -143,7 +143,7 @@ def lazy_netcdf(ds: xr.Dataset, path: Path, encoding: dict, unlimited_dims=("tim
     for v in lazy:
         enc = encoding.get(v, {})
         chunks = enc.get("chunksizes")
-        want = tuple(tuple(min(c, n - i) for i in range(0, n, c))
+        want = tuple(chunkread.regular_chunks(n, c)
                      for n, c in zip(ds[v].shape, chunks or (), strict=False))
         if not chunks or len(chunks) != ds[v].ndim or want != ds[v].data.chunks:
             return None

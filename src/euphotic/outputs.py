@@ -522,6 +522,8 @@ def _regular_blocks(ds: xr.Dataset, chunks: tuple[int, int, int]) -> xr.Dataset:
 
     import dask
 
+    from euphotic.chunkread import regular_chunks
+
     # without dask.distributed loaded there is no cluster, and dask would pick its task-based
     # rechunking after importing it to ask (a quarter of a second at start): say so
     method = {} if "distributed" in sys.modules else {"array.rechunk.method": "tasks"}
@@ -531,14 +533,10 @@ def _regular_blocks(ds: xr.Dataset, chunks: tuple[int, int, int]) -> xr.Dataset:
             if v not in ds or not hasattr(ds[v].data, "chunks"):
                 continue
             got = ds[v].data.chunks
-            want = [_split_regular(len_, c) for len_, c in zip(ds[v].shape, chunks, strict=True)]
-            if tuple(map(tuple, want)) != tuple(got):
+            want = tuple(regular_chunks(n, c) for n, c in zip(ds[v].shape, chunks, strict=True))
+            if want != tuple(got):
                 out[v] = ds[v].chunk(dict(zip(ds[v].dims, chunks, strict=True)))
     return ds.assign(out) if out else ds
-
-
-def _split_regular(n: int, c: int) -> list[int]:
-    return [min(c, n - i) for i in range(0, n, c)] or [0]
 
 
 _NAN32 = np.float32(np.nan)
